@@ -1,0 +1,172 @@
+"""The ``amploop`` command line: a thin layer over the Python functions.
+
+This is the only module that maps errors to exit codes and prints them.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from enum import IntEnum
+
+from . import __version__
+from .errors import (
+    AmploopError,
+    JobError,
+    JournalError,
+    MeasurementError,
+    NetlistError,
+    OutputError,
+    SimulatorError,
+    TuningError,
+)
+from .units import engineering
+
+__all__ = ["main", "ExitCode"]
+
+
+class ExitCode(IntEnum):
+    """Exit codes of the ``amploop`` command."""
+
+    OK = 0
+    SIMULATOR_FAILURE = 1  # a corner could not be simulated or measured
+    BAD_INPUT = 2  # the job file, the netlist or the command line is wrong
+    INFEASIBLE = 3  # no compensation within the bounds meets the target
+    INTERRUPTED = 130
+
+
+def _exit_code(error: AmploopError) -> ExitCode:
+    if isinstance(error, (JobError, NetlistError, TuningError)):
+        return ExitCode.BAD_INPUT
+    if isinstance(error, (SimulatorError, MeasurementError)):
+        return ExitCode.SIMULATOR_FAILURE
+    if isinstance(error, (OutputError, JournalError)):
+        return ExitCode.BAD_INPUT
+    return ExitCode.SIMULATOR_FAILURE
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="amploop",
+        description="Measure the loop gain of a two-stage amplifier in its feedback loop at "
+        "every corner, and tune its Miller compensation.",
+        epilog="Results are only as good as the device models; sign-off stays with your own "
+        "models, flow and foundry rules.",
+    )
+    parser.add_argument("--version", action="version", version=f"amploop {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("job", help="the job file (TOML)")
+    common.add_argument("--out", required=True, metavar="DIR", help="out folder")
+    common.add_argument("--set", action="append", default=[], metavar="ROLE=VALUE",
+                        help="set a compensation value by its role, e.g. --set cc=1.5p")
+    common.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes (default: the CPU count)")
+    common.add_argument("--allow-control", action="store_true",
+                        help="run .control blocks found in your netlist (they can run commands)")
+    common.add_argument("--quiet", action="store_true", help="print only errors")
+    common.add_argument("--json", action="store_true",
+                        help="print one JSON summary line instead of the table")
+
+    commands.add_parser("measure", parents=[common], help="measure loop gain and margins",
+                        description="Measure the loop gain and its margins at every corner.")
+    return parser
+
+
+def _table(rows: list[list[str]], header: list[str]) -> str:
+    widths = [max(len(header[i]), *(len(r[i]) for r in rows)) for i in range(len(header))]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths))]
+    lines.append("  ".join("-" * w for w in widths))
+    for row in rows:
+        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w)
+                               for i, (c, w) in enumerate(zip(row, widths))))
+    return "\n".join(lines)
+
+
+def _figure(value, fmt: str) -> str:
+    return "–" if value is None else format(value, fmt)
+
+
+def corner_table(corners) -> str:
+    """The per-corner table printed by ``measure`` (and by ``tune`` at the end)."""
+    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover", "note"]
+    rows = []
+    for c in corners:
+        m = c.margins
+        rows.append([
+            c.corner.name,
+            _figure(m and m.dc_loop_gain_db, ".1f"),
+            engineering(m and m.unity_gain_hz, "Hz"),
+            _figure(m and m.phase_margin_deg, ".2f"),
+            _figure(m and m.gain_margin_db, ".2f"),
+            engineering(m and m.phase_crossover_hz, "Hz"),
+            "ok" if c.status == "ok" else "ERROR",
+        ])
+    return _table(rows, header)
+
+
+def _progress_printer(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int, result) -> None:
+        sys.stderr.write(f"\r  corners {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def _run_measure(args) -> ExitCode:
+    from .job import load_job, parse_overrides
+    from .measure import measure
+
+    job = load_job(args.job)
+    overrides = parse_overrides(args.set, job)
+    result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
+                     allow_control=args.allow_control, progress=_progress_printer(args.quiet))
+    failed = [c for c in result.corners if c.status != "ok"]
+    if args.json:
+        summary = result.as_json()
+        print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
+                         | {"failed_corners": [c.corner.name for c in failed],
+                            "out": str(result.out)}))
+    elif not args.quiet:
+        values = ", ".join(f"{k} = {engineering(v, 'F' if k == 'cc' else 'Ω')}"
+                           for k, v in result.values.items())
+        print(f"job {job.name}: {len(result.corners)} corners at {values}")
+        print(corner_table(result.corners))
+        print(f"{result.ac_run} AC analyses in {result.seconds:.1f} s; results in {result.out}")
+    for c in failed:
+        print(f"amploop: corner {c.corner.name}: {c.error}", file=sys.stderr)
+    if failed:
+        if all(c.error and c.error.startswith("parse error") for c in failed):
+            return ExitCode.BAD_INPUT
+        return ExitCode.SIMULATOR_FAILURE
+    return ExitCode.OK
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``amploop`` command; returns the exit code."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if getattr(args, "workers", None) is not None and args.workers < 1:
+        parser.error("--workers must be at least 1")
+    try:
+        if args.command == "measure":
+            return int(_run_measure(args))
+        parser.error(f"unknown command {args.command}")
+    except AmploopError as error:
+        print(f"amploop: error: {error}", file=sys.stderr)
+        return int(_exit_code(error))
+    except KeyboardInterrupt:
+        print("amploop: interrupted; finished results are in the out folder", file=sys.stderr)
+        return int(ExitCode.INTERRUPTED)
+    return int(ExitCode.OK)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,100 @@
+"""The one error hierarchy of amploop.
+
+Every error amploop raises on purpose derives from :class:`AmploopError` and carries
+the file, the place in it and the problem, so that the command line can print one
+line and exit; the mapping to exit codes lives in :mod:`amploop.cli` alone.
+"""
+
+from __future__ import annotations
+
+import difflib
+from pathlib import Path
+
+__all__ = [
+    "AmploopError",
+    "JobError",
+    "NetlistError",
+    "SimulatorError",
+    "MeasurementError",
+    "TuningError",
+    "JournalError",
+    "OutputError",
+    "did_you_mean",
+]
+
+
+class AmploopError(Exception):
+    """Root of amploop's errors.
+
+    Parameters
+    ----------
+    problem
+        What is wrong, in one sentence.
+    file
+        The file the problem is in, if any.
+    place
+        Where in the file: a line number, or a TOML key path such as ``[feedback].kind``.
+    hint
+        What to do about it, if there is something useful to say.
+    """
+
+    def __init__(
+        self,
+        problem: str,
+        *,
+        file: str | Path | None = None,
+        place: str | int | None = None,
+        hint: str | None = None,
+    ) -> None:
+        self.problem = problem
+        self.file = None if file is None else str(file)
+        self.place = None if place is None else str(place)
+        self.hint = hint
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = ":".join(part for part in (self.file, self.place) if part)
+        text = f"{where}: {self.problem}" if where else self.problem
+        if self.hint:
+            text += f" ({self.hint})"
+        return text
+
+
+class JobError(AmploopError):
+    """The job file is missing, malformed, or names something that does not exist."""
+
+
+class NetlistError(AmploopError):
+    """The user's netlist (or a file it includes) cannot be used as asked."""
+
+
+class SimulatorError(AmploopError):
+    """ngspice failed on an analysis: parse error, no DC solution, crash or time-out."""
+
+
+class MeasurementError(AmploopError):
+    """The simulation ran but its loop gain cannot be read (e.g. never crosses 0 dB)."""
+
+
+class TuningError(AmploopError):
+    """A tuning strategy cannot proceed with what it was given."""
+
+
+class JournalError(AmploopError):
+    """The journal database of an out folder is locked, corrupt or from another version."""
+
+
+class OutputError(AmploopError):
+    """The out folder cannot be written (permissions, disk full)."""
+
+
+def did_you_mean(name: str, choices) -> str:
+    """``"; did you mean 'x'?"`` when a choice is close to ``name``, else a list of choices."""
+    choices = list(dict.fromkeys(choices))
+    lowered = {c.lower(): c for c in choices}
+    close = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.6)
+    if close:
+        return f"; did you mean {lowered[close[0]]!r}?"
+    if choices and len(choices) <= 12:
+        return "; choices: " + ", ".join(repr(c) for c in choices)
+    return ""

@@ -1,0 +1,152 @@
+"""A small, safe evaluator for SPICE parameter expressions.
+
+Used only to report the values in effect (``.param cc=1.5p``, ``{2*cbase}``); the
+simulator evaluates the deck itself. Nothing here ever executes code.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+from .units import SCALE_SUFFIXES
+
+__all__ = ["evaluate"]
+
+_FUNCTIONS = {
+    "sqrt": math.sqrt, "exp": math.exp, "log": math.log, "ln": math.log, "log10": math.log10,
+    "abs": abs, "min": min, "max": max, "pow": math.pow, "pwr": math.pow,
+}
+_CONSTANTS = {"pi": math.pi, "e": math.e}
+
+_TOKEN = re.compile(
+    r"\s*(?:(?P<number>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[a-zA-Z]*)"
+    r"|(?P<name>[A-Za-z_][\w.]*)|(?P<op>\*\*|[-+*/^(),]))"
+)
+
+
+def _number(text: str) -> float:
+    match = re.match(r"((?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)$", text)
+    mantissa, tail = match.group(1), match.group(2).lower()
+    for suffix, factor in SCALE_SUFFIXES.items():
+        if tail.startswith(suffix):
+            return float(mantissa) * factor
+    return float(mantissa)  # SPICE ignores unknown letters after a number ("10V")
+
+
+def evaluate(expression: str, params: dict[str, str] | None = None, _depth: int = 0) -> float:
+    """Evaluate ``expression`` (optionally in ``{}`` or quotes) to a float.
+
+    Parameters
+    ----------
+    expression
+        A SPICE number or arithmetic expression: ``+ - * / ^ **``, parentheses, the
+        functions sqrt exp log ln log10 abs min max pow, and parameter names.
+    params
+        Parameter name (case-insensitive) -> expression text, looked up recursively.
+
+    Raises
+    ------
+    ValueError
+        On anything else (unknown name, syntax error, a loop in the definitions).
+    """
+    if _depth > 50:
+        raise ValueError("parameters defined in terms of each other in a loop")
+    lowered = {k.lower(): v for k, v in (params or {}).items()}
+    text = expression.strip()
+    if len(text) >= 2 and (text[0], text[-1]) in {("{", "}"), ("'", "'"), ('"', '"')}:
+        text = text[1:-1]
+    tokens: list[tuple[str, str]] = []
+    position = 0
+    while position < len(text):
+        if text[position:].strip() == "":
+            break
+        match = _TOKEN.match(text, position)
+        if not match or match.end() == position:
+            raise ValueError(f"cannot read {text[position:]!r}")
+        kind = match.lastgroup
+        tokens.append((kind, match.group(kind)))
+        position = match.end()
+    parser = _Parser(tokens, lowered, _depth)
+    value = parser.expression()
+    if parser.position != len(tokens):
+        raise ValueError(f"unexpected {tokens[parser.position][1]!r}")
+    return value
+
+
+class _Parser:
+    def __init__(self, tokens, params, depth):
+        self.tokens = tokens
+        self.params = params
+        self.depth = depth
+        self.position = 0
+
+    def peek(self) -> str | None:
+        return self.tokens[self.position][1] if self.position < len(self.tokens) else None
+
+    def take(self) -> tuple[str, str]:
+        if self.position >= len(self.tokens):
+            raise ValueError("expression ends too early")
+        token = self.tokens[self.position]
+        self.position += 1
+        return token
+
+    def expression(self) -> float:
+        value = self.term()
+        while self.peek() in ("+", "-"):
+            op = self.take()[1]
+            value = value + self.term() if op == "+" else value - self.term()
+        return value
+
+    def term(self) -> float:
+        value = self.unary()
+        while self.peek() in ("*", "/"):
+            op = self.take()[1]
+            right = self.unary()
+            if op == "/" and right == 0:
+                raise ValueError("division by zero")
+            value = value * right if op == "*" else value / right
+        return value
+
+    def unary(self) -> float:
+        if self.peek() in ("+", "-"):
+            op = self.take()[1]
+            value = self.unary()
+            return -value if op == "-" else value
+        return self.power()
+
+    def power(self) -> float:
+        base = self.atom()
+        if self.peek() in ("**", "^"):
+            self.take()
+            return math.pow(base, self.unary())
+        return base
+
+    def atom(self) -> float:
+        kind, text = self.take()
+        if kind == "number":
+            return _number(text)
+        if kind == "op" and text == "(":
+            value = self.expression()
+            if self.take()[1] != ")":
+                raise ValueError("missing ')'")
+            return value
+        if kind == "name":
+            name = text.lower()
+            if self.peek() == "(":
+                if name not in _FUNCTIONS:
+                    raise ValueError(f"unknown function {text!r}")
+                self.take()
+                args = [self.expression()]
+                while self.peek() == ",":
+                    self.take()
+                    args.append(self.expression())
+                if self.take()[1] != ")":
+                    raise ValueError("missing ')'")
+                return float(_FUNCTIONS[name](*args))
+            if name in self.params:
+                return evaluate(self.params[name], self.params, self.depth + 1)
+            if name in _CONSTANTS:
+                return _CONSTANTS[name]
+            raise ValueError(f"unknown parameter {text!r}")
+        raise ValueError(f"unexpected {text!r}")

@@ -1,0 +1,185 @@
+"""Stability margins read off a sampled loop gain.
+
+Pure functions on arrays. Between samples the log-magnitude and the unwrapped phase are
+interpolated by a local cubic in log-frequency (four neighbouring samples), and each
+crossing is solved for exactly on that cubic; at 40 points per decade this puts the
+phase margin within about 1e-4° of the continuous answer on smooth loops.
+
+Conventions (common practice): the loop gain T is positive at DC for negative feedback;
+its phase is unwrapped from the lowest frequency. The phase margin at a 0 dB crossing is
+180° + ∠T (unwrapped), so a loop whose phase has fallen past −180° at crossover has a
+negative margin. The gain margin at a phase crossover (∠T = −180° + k·360°) is −|T| in dB.
+Every crossing is found; the worst (smallest) of each margin is reported. A missing
+crossing is ``None``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import brentq
+
+from .loopgain import FrequencyResponse
+
+__all__ = ["Margins", "loop_margins", "gain_crossings", "phase_crossings"]
+
+
+@dataclass(frozen=True)
+class Margins:
+    """Stability margins of one loop gain.
+
+    Attributes
+    ----------
+    dc_loop_gain_db
+        |T| at the lowest analysed frequency, dB.
+    unity_gain_hz
+        The 0 dB crossing with the worst phase margin, Hz (None: no crossing).
+    phase_margin_deg
+        The worst phase margin over all 0 dB crossings, degrees.
+    gain_margin_db
+        The worst gain margin over all phase crossovers, dB (None: phase never reaches −180°).
+    phase_crossover_hz
+        Where that gain margin is read, Hz.
+    crossings_hz, phase_margins_deg
+        Every 0 dB crossing and its phase margin, in frequency order.
+    phase_crossovers_hz, gain_margins_db
+        Every phase crossover and its gain margin, in frequency order.
+    """
+
+    dc_loop_gain_db: float
+    unity_gain_hz: float | None
+    phase_margin_deg: float | None
+    gain_margin_db: float | None
+    phase_crossover_hz: float | None
+    crossings_hz: tuple[float, ...] = ()
+    phase_margins_deg: tuple[float, ...] = ()
+    phase_crossovers_hz: tuple[float, ...] = ()
+    gain_margins_db: tuple[float, ...] = ()
+
+    def as_dict(self) -> dict:
+        """The five reported figures, keyed as in results.json."""
+        return {
+            "dc_loop_gain_db": self.dc_loop_gain_db,
+            "unity_gain_hz": self.unity_gain_hz,
+            "phase_margin_deg": self.phase_margin_deg,
+            "gain_margin_db": self.gain_margin_db,
+            "phase_crossover_hz": self.phase_crossover_hz,
+        }
+
+
+def _cubic_at(x: np.ndarray, y: np.ndarray, i: int, xq: float) -> float:
+    """Lagrange cubic through samples i−1..i+2 (shifted inside the array), at xq."""
+    n = x.size
+    lo = min(max(i - 1, 0), max(n - 4, 0))
+    idx = range(lo, min(lo + 4, n))
+    total = 0.0
+    for j in idx:
+        weight = 1.0
+        for k in idx:
+            if k != j:
+                weight *= (xq - x[k]) / (x[j] - x[k])
+        total += weight * y[j]
+    return total
+
+
+def _roots(x: np.ndarray, y: np.ndarray, level: float) -> list[tuple[int, float]]:
+    """Where y(x) crosses ``level``: (interval index, x) with x solved on the local cubic."""
+    d = y - level
+    found = []
+    for i in np.nonzero((d[:-1] == 0) | (np.sign(d[:-1]) * np.sign(d[1:]) < 0))[0]:
+        if d[i] == 0:
+            found.append((int(i), float(x[i])))
+            continue
+
+        def g(xq: float, i: int = int(i)) -> float:
+            return _cubic_at(x, y, i, xq) - level
+
+        a, b = float(x[i]), float(x[i + 1])
+        if np.sign(g(a)) * np.sign(g(b)) < 0:
+            root = brentq(g, a, b, xtol=1e-14, rtol=1e-13)
+        else:  # the cubic strays outside the bracket: fall back to a straight line
+            root = a + (b - a) * d[i] / (d[i] - d[i + 1])
+        found.append((int(i), float(root)))
+    return found
+
+
+def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
+    """Every 0 dB crossing as (frequency Hz, phase margin degrees)."""
+    x = np.log10(response.frequency_hz)
+    with np.errstate(divide="ignore"):
+        m = np.log(np.abs(response.values))
+    m = np.where(np.isfinite(m), m, -745.0)
+    p = response.phase_deg
+    result = []
+    for i, xr in _roots(x, m, 0.0):
+        result.append((float(10.0**xr), 180.0 + _cubic_at(x, p, i, xr)))
+    return result
+
+
+def phase_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
+    """Every phase crossover (∠T = −180° + k·360°) as (frequency Hz, gain margin dB)."""
+    x = np.log10(response.frequency_hz)
+    with np.errstate(divide="ignore"):
+        m = np.log(np.abs(response.values))
+    m = np.where(np.isfinite(m), m, -745.0)
+    p = response.phase_deg
+    turns = np.floor((p + 180.0) / 360.0)
+    levels = {-180.0 + 360.0 * k for k in range(int(turns.min()), int(turns.max()) + 2)}
+    found = []
+    for level in levels:
+        for i, xr in _roots(x, p, level):
+            gm_db = -20.0 / np.log(10.0) * _cubic_at(x, m, i, xr)
+            found.append((float(10.0**xr), float(gm_db)))
+    found.sort()
+    return found
+
+
+def loop_margins(response: FrequencyResponse) -> Margins:
+    """Phase margin, gain margin and crossover frequencies of a loop gain.
+
+    Parameters
+    ----------
+    response
+        The complex loop gain T(jω) on its frequency grid (Hz).
+
+    Returns
+    -------
+    Margins
+        Worst phase margin (degrees) over all 0 dB crossings and its frequency (Hz),
+        worst gain margin (dB) over all phase crossovers and its frequency (Hz), and the
+        DC loop gain (dB at the lowest frequency). ``None`` where a crossing is missing.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> f = np.logspace(0, 9, 361)
+    >>> s = 2j * np.pi * f
+    >>> T = 1e4 / ((1 + s / (2 * np.pi * 1e3)) * (1 + s / (2 * np.pi * 1e7)))
+    >>> round(loop_margins(FrequencyResponse(f, T)).phase_margin_deg, 2)
+    51.83
+    """
+    gains = gain_crossings(response)
+    phases = phase_crossings(response)
+    dc_db = float(response.magnitude_db[0])
+    if gains:
+        worst = min(gains, key=lambda c: c[1])
+        unity_hz, pm = worst
+    else:
+        unity_hz, pm = None, None
+    if phases:
+        worst_gm = min(phases, key=lambda c: c[1])
+        crossover_hz, gm = worst_gm
+    else:
+        crossover_hz, gm = None, None
+    return Margins(
+        dc_loop_gain_db=dc_db,
+        unity_gain_hz=unity_hz,
+        phase_margin_deg=pm,
+        gain_margin_db=gm,
+        phase_crossover_hz=crossover_hz,
+        crossings_hz=tuple(c[0] for c in gains),
+        phase_margins_deg=tuple(c[1] for c in gains),
+        phase_crossovers_hz=tuple(c[0] for c in phases),
+        gain_margins_db=tuple(c[1] for c in phases),
+    )

@@ -1,0 +1,232 @@
+"""``amploop measure``: the loop gain and margins of the amplifier at every corner.
+
+Callable from Python as :func:`measure`; the command line is a thin layer over it.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .amplifier import Amplifier, prepare_amplifier
+from .errors import AmploopError, MeasurementError, SimulatorError
+from .job import Corner, Job, safe_filename
+from .loopgain import FrequencyResponse
+from .margins import Margins, loop_margins
+from .outputs import OutFolder
+from .pool import WorkerPool
+from .testbench import Testbench, build_testbench
+from .units import engineering
+
+__all__ = ["CornerResult", "MeasureResult", "measure", "assess_loop_gain", "corner_files"]
+
+SCHEMA = 1
+
+
+@dataclass(frozen=True)
+class CornerResult:
+    """One corner's measurement.
+
+    ``status`` is ``"ok"`` or ``"error"``; on error ``error`` says why and the margins
+    hold what could still be read (possibly nothing).
+    """
+
+    corner: Corner
+    status: str
+    error: str | None = None
+    margins: Margins | None = None
+    loop_gain: FrequencyResponse | None = field(default=None, repr=False)
+    warnings: tuple[str, ...] = ()
+
+    def as_json(self) -> dict:
+        figures = dict.fromkeys(
+            ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
+             "phase_crossover_hz"))
+        if self.margins is not None:
+            figures.update(self.margins.as_dict())
+        return {
+            "name": self.corner.name,
+            "lib": self.corner.lib,
+            "temp": self.corner.temp,
+            "params": dict(self.corner.params),
+            "status": self.status,
+            "error": self.error,
+            **figures,
+            "warnings": list(self.warnings),
+        }
+
+
+@dataclass(frozen=True)
+class MeasureResult:
+    """The whole measurement: values in effect, every corner, analysis counts."""
+
+    job: Job
+    values: dict[str, float]
+    corners: tuple[CornerResult, ...]
+    ac_run: int
+    ac_reused: int
+    out: Path | None
+    seconds: float = 0.0
+
+    @property
+    def status(self) -> str:
+        return "ok" if all(c.status == "ok" for c in self.corners) else "failed"
+
+    def as_json(self) -> dict:
+        return {
+            "schema": SCHEMA,
+            "command": "measure",
+            "job": self.job.name,
+            "status": self.status,
+            "values": dict(self.values),
+            "corners": [c.as_json() for c in self.corners],
+            "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+        }
+
+
+def assess_loop_gain(response: FrequencyResponse) -> tuple[Margins, str | None]:
+    """Margins of a measured loop gain, and the reason it cannot be used (None if fine).
+
+    A loop that is positive feedback at DC (phase near ±180° at the lowest frequency) or
+    never crosses 0 dB within the sweep gives a reason; the figures that exist are kept.
+    """
+    margins = loop_margins(response)
+    dc_phase = float(response.phase_deg[0])
+    f0, f1 = response.frequency_hz[0], response.frequency_hz[-1]
+    if abs(dc_phase) > 90.0:
+        return margins, (
+            f"the loop gain is negative at {engineering(f0, 'Hz')} (phase {dc_phase:.0f}°): "
+            "positive feedback; are in_p and in_n swapped?"
+        )
+    if margins.unity_gain_hz is None:
+        mags = response.magnitude_db
+        return margins, (
+            f"the loop gain never crosses 0 dB between {engineering(f0, 'Hz')} and "
+            f"{engineering(f1, 'Hz')} (|T| from {mags[0]:.1f} dB to {mags[-1]:.1f} dB); "
+            "widen [analysis].start/stop or check the feedback network"
+        )
+    return margins, None
+
+
+def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
+    """A unique, file-name-safe stem per corner name."""
+    stems: dict[str, str] = {}
+    used: set[str] = set()
+    for corner in corners:
+        stem = safe_filename(corner.name)
+        candidate, n = stem, 2
+        while candidate.lower() in used:
+            candidate, n = f"{stem}-{n}", n + 1
+        used.add(candidate.lower())
+        stems[corner.name] = candidate
+    return stems
+
+
+def result_from_output(bench: Testbench, output) -> CornerResult:
+    """Turn a worker's answer (output or SimulatorError) into a corner result."""
+    if isinstance(output, AmploopError):
+        return CornerResult(corner=bench.corner, status="error", error=output.problem)
+    try:
+        response = bench.loop_gain(output)
+    except (ValueError, KeyError) as exc:
+        return CornerResult(corner=bench.corner, status="error",
+                            error=f"unusable simulator output: {exc}")
+    if not np.all(np.isfinite(response.values)):
+        return CornerResult(corner=bench.corner, status="error",
+                            error="the simulator returned non-finite loop-gain values")
+    margins, problem = assess_loop_gain(response)
+    return CornerResult(
+        corner=bench.corner,
+        status="ok" if problem is None else "error",
+        error=problem,
+        margins=margins,
+        loop_gain=response,
+        warnings=output.warnings,
+    )
+
+
+def measure(
+    job: Job,
+    *,
+    out: str | Path | None = None,
+    overrides: dict[str, float] | None = None,
+    workers: int | None = None,
+    pool: WorkerPool | None = None,
+    allow_control: bool = False,
+    progress: Callable[[int, int, CornerResult], None] | None = None,
+) -> MeasureResult:
+    """Measure the loop gain and margins at every corner of ``job``.
+
+    Parameters
+    ----------
+    job
+        A loaded job (:func:`amploop.job.load_job`).
+    out
+        Out folder for results.json, per-corner CSVs and decks; None writes nothing.
+    overrides
+        Compensation values by role (SI), e.g. ``{"cc": 1.5e-12}``.
+    workers
+        Worker processes when no ``pool`` is given (default: the CPU count).
+    pool
+        An existing worker pool to use.
+    allow_control
+        Accept ``.control`` blocks in the user's files.
+    progress
+        Called after each corner with (done, total, result).
+
+    Returns
+    -------
+    MeasureResult
+        One :class:`CornerResult` per corner in the job's order. A failing corner never
+        loses the others' results.
+    """
+    started = time.perf_counter()
+    amplifier = prepare_amplifier(job, allow_control=allow_control)
+    values = amplifier.values_in_effect(overrides)
+    folder = OutFolder(out) if out is not None else None
+    stems = corner_files(job.corners)
+    benches = {c.name: build_testbench(amplifier, c, values) for c in job.corners}
+    if folder is not None:
+        for name, bench in benches.items():
+            folder.write_text(f"decks/{stems[name]}.cir",
+                              bench.hand_deck(data_file=f"{stems[name]}-loop_gain.txt"))
+    results: dict[str, CornerResult] = {}
+    ac_run = 0
+    own_pool = pool is None
+    pool = pool or WorkerPool(workers)
+    try:
+        requests = [(name, b.request(job.analysis.time_limit_s)) for name, b in benches.items()]
+        for name, output in pool.run(requests):
+            bench = benches[name]
+            if not isinstance(output, SimulatorError):
+                ac_run += sum(step.is_ac for step in bench.steps)
+            result = result_from_output(bench, output)
+            results[name] = result
+            if folder is not None and result.loop_gain is not None:
+                folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", result.loop_gain)
+            if progress is not None:
+                progress(len(results), len(benches), result)
+    finally:
+        if own_pool:
+            pool.close()
+        ordered = tuple(results[c.name] for c in job.corners if c.name in results)
+        result = MeasureResult(job=job, values=values, corners=ordered, ac_run=ac_run,
+                               ac_reused=0, out=folder.path if folder else None,
+                               seconds=time.perf_counter() - started)
+        if folder is not None:
+            data = result.as_json()
+            if len(ordered) < len(job.corners):
+                data["status"] = "interrupted"
+            folder.write_json("results.json", data)
+    return result
+
+
+def require_measured(result: CornerResult) -> Margins:
+    """The margins of a corner that measured, or a MeasurementError saying why not."""
+    if result.status != "ok" or result.margins is None:
+        raise MeasurementError(result.error or "not measured", place=result.corner.name)
+    return result.margins

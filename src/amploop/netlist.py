@@ -1,0 +1,710 @@
+"""Reading and rewriting the user's SPICE netlist: text in, text out.
+
+The reader understands just enough of the ngspice dialect to find the amplifier's
+``.subckt``, its ports and parameters, global ``.param`` lines, the element that holds
+the compensation capacitor or resistor, and the files that are included. Everything
+else is carried through unchanged.
+
+Dialect handled: ``*`` comment lines, ``;``, ``$ `` and ``//`` end-of-line comments,
+``+`` continuation lines, ``.subckt name ports [params:] k=v ...`` / ``.ends``,
+``.param``, ``.include`` / ``.inc`` and ``.lib file section`` (paths relative to the
+including file), ``.lib section`` / ``.endl`` in library files, ``.model`` and
+case-insensitive names.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import NetlistError, did_you_mean
+from .expressions import evaluate
+
+__all__ = [
+    "LogicalLine",
+    "Statement",
+    "SourceFile",
+    "Subckt",
+    "Netlist",
+    "read_netlist",
+    "read_source",
+    "lib_sections",
+    "split_logical_lines",
+    "tokenize",
+    "render_file",
+    "replace_param",
+    "replace_element_value",
+    "replace_instance_param",
+]
+
+# Dot-commands that belong to a simulation run, not to a circuit library. At the top level
+# of the user's netlist they are left out of the generated testbench (as comments).
+ANALYSIS_COMMANDS = frozenset(
+    {
+        ".ac", ".dc", ".tran", ".op", ".noise", ".tf", ".pz", ".sens", ".disto", ".four",
+        ".print", ".plot", ".probe", ".save", ".meas", ".measure", ".temp", ".width",
+        ".ic", ".nodeset", ".end", ".title", ".sp", ".pss", ".wrdata",
+    }
+)
+
+# Files a netlist reaches through these commands are read by ngspice when it loads the deck.
+_INCLUDE_COMMANDS = frozenset({".include", ".inc", ".incl"})
+
+
+@dataclass(frozen=True)
+class LogicalLine:
+    """One statement of a file as written: its physical lines and their joined meaning.
+
+    Attributes
+    ----------
+    number
+        1-based number of the first physical line.
+    raw
+        The physical lines exactly as read (comment lines inside a continuation included).
+    text
+        The statement with comments removed and ``+`` continuations joined; empty for
+        comment and blank lines.
+    """
+
+    number: int
+    raw: tuple[str, ...]
+    text: str
+
+
+def _strip_inline_comment(line: str) -> str:
+    """Drop an end-of-line comment: ``;`` anywhere, ``$`` or ``//`` after blank space."""
+    depth = 0
+    quote = ""
+    for i, ch in enumerate(line):
+        if quote:
+            if ch == quote:
+                quote = ""
+            continue
+        if ch in "'\"":
+            quote = ch
+        elif ch == "{":
+            depth += 1
+        elif ch == "}":
+            depth = max(0, depth - 1)
+        elif depth == 0:
+            if ch == ";":
+                return line[:i]
+            before_blank = i == 0 or line[i - 1] in " \t"
+            if ch == "$" and before_blank:
+                return line[:i]
+            if ch == "/" and line[i : i + 2] == "//" and before_blank:
+                return line[:i]
+    return line
+
+
+def split_logical_lines(text: str) -> list[LogicalLine]:
+    """Split netlist text into logical lines (continuations joined, comments removed).
+
+    Parameters
+    ----------
+    text
+        The whole file. Line endings may be ``\\n`` or ``\\r\\n``.
+
+    Returns
+    -------
+    list of LogicalLine
+        In file order; every physical line belongs to exactly one logical line, so
+        joining all ``raw`` tuples gives the file back.
+    """
+    physical = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
+    if physical and physical[-1] == "":
+        physical.pop()
+    logical: list[LogicalLine] = []
+    for number, line in enumerate(physical, start=1):
+        stripped = line.strip()
+        if stripped.startswith("+") and logical and logical[-1].text:
+            previous = logical[-1]
+            addition = _strip_inline_comment(stripped[1:]).strip()
+            joined = f"{previous.text} {addition}".strip()
+            logical[-1] = LogicalLine(previous.number, (*previous.raw, line), joined)
+            continue
+        if stripped.startswith("*") or not stripped:
+            # A comment or blank line inside a continuation sequence belongs to the statement
+            # when a "+" line follows; attach it provisionally only to keep raw text whole.
+            logical.append(LogicalLine(number, (line,), ""))
+            continue
+        logical.append(LogicalLine(number, (line,), _strip_inline_comment(line).strip()))
+    return _attach_interrupted_continuations(logical)
+
+
+def _attach_interrupted_continuations(lines: list[LogicalLine]) -> list[LogicalLine]:
+    """Handle ``+`` lines that follow comment lines: ngspice joins them across the comments."""
+    # split_logical_lines only joins a "+" line to the line right before it when that one is a
+    # statement. A "+" line after comment lines was turned into its own statement starting with
+    # "+"; fold it (and the comments before it) into the last statement.
+    result: list[LogicalLine] = []
+    pending: list[LogicalLine] = []
+    for line in lines:
+        if not line.text:
+            pending.append(line)
+            continue
+        if line.text.startswith("+") and result:
+            previous = result[-1]
+            raw = previous.raw + tuple(r for p in pending for r in p.raw) + line.raw
+            addition = line.text[1:].strip()
+            result[-1] = LogicalLine(previous.number, raw, f"{previous.text} {addition}".strip())
+            pending = []
+            continue
+        result.extend(pending)
+        pending = []
+        result.append(line)
+    result.extend(pending)
+    return result
+
+
+_TOKEN_OPEN = {"{": "}", "(": ")", "'": "'", '"': '"'}
+
+
+def tokenize(text: str) -> list[str]:
+    """Split a statement into tokens, keeping ``{...}``, ``(...)`` and quoted groups whole.
+
+    ``name = value`` is normalised to ``name=value`` so parameters read the same however
+    they were spaced. Parentheses around a ``.model`` parameter list become blank space.
+    """
+    tokens: list[str] = []
+    current = ""
+    stack: list[str] = []
+    for ch in text:
+        if stack:
+            current += ch
+            if ch == stack[-1]:
+                stack.pop()
+            elif ch in "{(" and stack[-1] not in "'\"":
+                stack.append(_TOKEN_OPEN[ch])
+            continue
+        if ch in " \t,":
+            if current:
+                tokens.append(current)
+                current = ""
+            continue
+        if ch in _TOKEN_OPEN:
+            stack.append(_TOKEN_OPEN[ch])
+        current += ch
+    if current:
+        tokens.append(current)
+    # join "a = b", "a= b" and "a =b"
+    joined: list[str] = []
+    i = 0
+    while i < len(tokens):
+        token = tokens[i]
+        if token == "=" and joined and i + 1 < len(tokens):
+            joined[-1] = f"{joined[-1]}={tokens[i + 1]}"
+            i += 2
+            continue
+        if token.endswith("=") and len(token) > 1 and i + 1 < len(tokens):
+            joined.append(token + tokens[i + 1])
+            i += 2
+            continue
+        if token.startswith("=") and len(token) > 1 and joined:
+            joined[-1] = joined[-1] + token
+            i += 1
+            continue
+        joined.append(token)
+        i += 1
+    return joined
+
+
+@dataclass(frozen=True)
+class Statement:
+    """A statement of a netlist file together with where it sits.
+
+    Attributes
+    ----------
+    file
+        The file it is in (absolute).
+    index
+        Index of its logical line in that file (stable key for rewriting).
+    line
+        1-based physical line number, for messages.
+    tokens
+        :func:`tokenize` of the statement.
+    subckt
+        Name (lower case) of the innermost enclosing ``.subckt``; None at top level.
+    section
+        Name (lower case) of the enclosing ``.lib`` section of a library file; None outside.
+    """
+
+    file: Path
+    index: int
+    line: int
+    tokens: tuple[str, ...]
+    subckt: str | None
+    section: str | None
+
+    @property
+    def keyword(self) -> str:
+        """The first token in lower case: an element name or a dot-command."""
+        return self.tokens[0].lower()
+
+    @property
+    def where(self) -> str:
+        return f"{self.file}:{self.line}"
+
+
+@dataclass(frozen=True)
+class SourceFile:
+    """One file of the netlist: its logical lines and the statements parsed from them."""
+
+    path: Path
+    lines: tuple[LogicalLine, ...]
+    statements: tuple[Statement, ...]
+
+
+@dataclass(frozen=True)
+class Subckt:
+    """A ``.subckt`` definition.
+
+    Attributes
+    ----------
+    name
+        As written in the file.
+    ports
+        Port names as written, in order.
+    params
+        Default parameter values from the header, lower-case name -> expression text.
+    header
+        The ``.subckt`` statement.
+    body
+        Statements directly inside (nested subckts' bodies included, marked by their
+        own ``subckt`` attribute).
+    """
+
+    name: str
+    ports: tuple[str, ...]
+    params: dict[str, str]
+    header: Statement
+    body: tuple[Statement, ...]
+
+    def port_index(self, port: str) -> int | None:
+        lowered = [p.lower() for p in self.ports]
+        return lowered.index(port.lower()) if port.lower() in lowered else None
+
+    def element(self, name: str) -> Statement | None:
+        """The element named ``name`` directly in this subckt (case-insensitive)."""
+        for statement in self.body:
+            if statement.subckt == self.name.lower() and statement.keyword == name.lower():
+                return statement
+        return None
+
+    def elements(self) -> list[Statement]:
+        """The element lines directly in this subckt (not in nested ones)."""
+        return [
+            s for s in self.body if s.subckt == self.name.lower() and not s.keyword.startswith(".")
+        ]
+
+    def local_params(self) -> dict[str, tuple[Statement, str]]:
+        """``.param`` lines directly inside: lower-case name -> (statement, expression)."""
+        found: dict[str, tuple[Statement, str]] = {}
+        for statement in self.body:
+            if statement.subckt == self.name.lower() and statement.keyword == ".param":
+                for name, expr in _assignments(statement.tokens[1:]):
+                    found[name.lower()] = (statement, expr)
+        return found
+
+
+def _assignments(tokens: tuple[str, ...] | list[str]) -> list[tuple[str, str]]:
+    pairs = []
+    for token in tokens:
+        if "=" in token:
+            name, _, expr = token.partition("=")
+            pairs.append((name, expr))
+    return pairs
+
+
+def _include_target(statement: Statement) -> tuple[Path, str | None] | None:
+    """The file (and section) an ``.include`` / ``.lib file section`` statement reads."""
+    keyword = statement.keyword
+    tokens = statement.tokens
+    if keyword in _INCLUDE_COMMANDS and len(tokens) >= 2:
+        return _resolve(statement, tokens[1]), None
+    if keyword == ".lib" and len(tokens) >= 3:
+        return _resolve(statement, tokens[1]), tokens[2].lower()
+    return None
+
+
+def _resolve(statement: Statement, name: str) -> Path:
+    name = name.strip("'\"")
+    path = Path(name).expanduser()
+    if not path.is_absolute():
+        path = statement.file.parent / path
+    return path.resolve()
+
+
+def read_source(path: Path, text: str | None = None) -> SourceFile:
+    """Parse one file into logical lines and statements (no includes followed).
+
+    Raises
+    ------
+    NetlistError
+        If the file cannot be read or a ``.subckt`` / ``.lib`` block is not closed.
+    """
+    path = Path(path).resolve()
+    if text is None:
+        try:
+            text = path.read_text(encoding="utf-8", errors="replace")
+        except FileNotFoundError:
+            raise NetlistError("file not found", file=path) from None
+        except OSError as exc:
+            raise NetlistError(f"cannot read: {exc.strerror}", file=path) from None
+    lines = tuple(split_logical_lines(text))
+    statements: list[Statement] = []
+    subckt_stack: list[tuple[str, int]] = []
+    section: tuple[str, int] | None = None
+    in_control: int | None = None
+    for index, logical in enumerate(lines):
+        if not logical.text:
+            continue
+        tokens = tuple(tokenize(logical.text))
+        if not tokens:
+            continue
+        keyword = tokens[0].lower()
+        if in_control is not None:
+            if keyword == ".endc":
+                in_control = None
+            continue
+        if keyword == ".control":
+            in_control = logical.number
+        statement = Statement(
+            file=path,
+            index=index,
+            line=logical.number,
+            tokens=tokens,
+            subckt=subckt_stack[-1][0] if subckt_stack else None,
+            section=section[0] if section else None,
+        )
+        if keyword == ".subckt":
+            if len(tokens) < 2:
+                raise NetlistError(".subckt without a name", file=path, place=logical.number)
+            subckt_stack.append((tokens[1].lower(), logical.number))
+            statement = Statement(path, index, logical.number, tokens, tokens[1].lower(),
+                                  statement.section)
+        elif keyword == ".ends":
+            if not subckt_stack:
+                raise NetlistError(".ends without a .subckt", file=path, place=logical.number)
+            subckt_stack.pop()
+        elif keyword == ".lib" and len(tokens) == 2 and not subckt_stack:
+            section = (tokens[1].lower(), logical.number)
+        elif keyword == ".endl":
+            section = None
+        statements.append(statement)
+        if keyword == ".end" and not subckt_stack:
+            break
+    if subckt_stack:
+        name, number = subckt_stack[-1]
+        raise NetlistError(f".subckt {name} is never closed by .ends", file=path, place=number)
+    if section is not None:
+        raise NetlistError(
+            f".lib section {section[0]} is never closed by .endl", file=path, place=section[1]
+        )
+    if in_control is not None:
+        raise NetlistError(".control block is never closed by .endc", file=path, place=in_control)
+    return SourceFile(path=path, lines=lines, statements=tuple(statements))
+
+
+def lib_sections(path: Path) -> dict[str, Statement]:
+    """The ``.lib name`` sections a library file defines: lower-case name -> its statement."""
+    source = read_source(path)
+    return {
+        s.tokens[1].lower(): s
+        for s in source.statements
+        if s.keyword == ".lib" and len(s.tokens) == 2 and s.subckt is None
+    }
+
+
+@dataclass
+class Netlist:
+    """The user's netlist file and every file it reaches, parsed.
+
+    Attributes
+    ----------
+    root
+        The netlist file named in the job.
+    files
+        Every parsed file by absolute path.
+    subckts
+        Every ``.subckt`` reached, lower-case name -> definition (first one wins, as in SPICE).
+    global_params
+        Top-level ``.param`` definitions reached: lower-case name -> (statement, expression);
+        the last one wins, as in ngspice.
+    """
+
+    root: Path
+    files: dict[Path, SourceFile] = field(default_factory=dict)
+    subckts: dict[str, Subckt] = field(default_factory=dict)
+    global_params: dict[str, tuple[Statement, str]] = field(default_factory=dict)
+
+    def subckt(self, name: str) -> Subckt:
+        """The subckt called ``name``, or a :class:`NetlistError` with a did-you-mean."""
+        found = self.subckts.get(name.lower())
+        if found is None:
+            raise NetlistError(
+                f"no .subckt named {name!r}" + did_you_mean(name, [s.name for s in self.subckts.values()]),
+                file=self.root,
+            )
+        return found
+
+    def dependencies(self) -> list[Path]:
+        """Every file the netlist reads, the root first."""
+        return list(self.files)
+
+
+def read_netlist(path: str | Path) -> Netlist:
+    """Read the netlist file and follow its ``.include`` and ``.lib file section`` lines.
+
+    Parameters
+    ----------
+    path
+        The file holding (or including) the amplifier's ``.subckt``.
+
+    Returns
+    -------
+    Netlist
+
+    Raises
+    ------
+    NetlistError
+        Missing files (naming the including file and line), unclosed blocks.
+    """
+    root = Path(path).resolve()
+    netlist = Netlist(root=root)
+    _read_into(netlist, root, section=None, seen=set())
+    return netlist
+
+
+def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> None:
+    key = (path, section)
+    if key in seen:
+        return
+    seen.add(key)
+    source = netlist.files.get(path) or read_source(path)
+    netlist.files[path] = source
+    for statement in _active_statements(source, section):
+        if statement.subckt is None and statement.keyword == ".param":
+            for name, expr in _assignments(statement.tokens[1:]):
+                netlist.global_params[name.lower()] = (statement, expr)
+        target = _include_target(statement)
+        if target is not None:
+            target_path, target_section = target
+            if not target_path.exists():
+                raise NetlistError(
+                    f"{statement.tokens[0]} {statement.tokens[1]}: file not found ({target_path})",
+                    file=statement.file,
+                    place=statement.line,
+                )
+            _read_into(netlist, target_path, target_section, seen)
+            if target_section is not None and target_section not in lib_sections(target_path):
+                raise NetlistError(
+                    f".lib section {target_section!r} not found in {target_path}"
+                    + did_you_mean(target_section, lib_sections(target_path)),
+                    file=statement.file,
+                    place=statement.line,
+                )
+    _collect_subckts(netlist, source, section)
+
+
+def _active_statements(source: SourceFile, section: str | None) -> list[Statement]:
+    """Statements that take effect when the file is read whole (None) or for one section."""
+    return [s for s in source.statements if s.section == section]
+
+
+def _collect_subckts(netlist: Netlist, source: SourceFile, section: str | None) -> None:
+    statements = _active_statements(source, section)
+    for i, statement in enumerate(statements):
+        if statement.keyword != ".subckt":
+            continue
+        name = statement.tokens[1]
+        if name.lower() in netlist.subckts:
+            continue
+        ports: list[str] = []
+        params: dict[str, str] = {}
+        for token in statement.tokens[2:]:
+            if token.lower() == "params:":
+                continue
+            if "=" in token:
+                key, _, expr = token.partition("=")
+                params[key.lower()] = expr
+            elif not params:
+                ports.append(token)
+        depth = 0
+        body: list[Statement] = []
+        for inner in statements[i + 1 :]:
+            if inner.keyword == ".subckt":
+                depth += 1
+            elif inner.keyword == ".ends":
+                if depth == 0:
+                    break
+                depth -= 1
+            body.append(inner)
+        netlist.subckts[name.lower()] = Subckt(
+            name=name, ports=tuple(ports), params=params, header=statement, body=tuple(body)
+        )
+
+
+# --- rewriting -------------------------------------------------------------------------
+
+
+def replace_param(statement: Statement, name: str, value: str) -> str:
+    """The text of a ``.param`` (or ``.subckt``) statement with parameter ``name`` set to ``value``."""
+    tokens = list(statement.tokens)
+    for i, token in enumerate(tokens):
+        key, eq, _ = token.partition("=")
+        if eq and key.lower() == name.lower() and i > 0:
+            tokens[i] = f"{key}={value}"
+            return " ".join(tokens)
+    raise NetlistError(f"parameter {name!r} not set here", file=statement.file, place=statement.line)
+
+
+_VALUE_KEYS = {"r": ("r", "resistance"), "c": ("c", "capacitance"), "l": ("l", "inductance")}
+
+
+def element_value_index(statement: Statement) -> int:
+    """Index of the token holding a two-terminal element's value (R, C or L)."""
+    kind = statement.keyword[0]
+    tokens = statement.tokens
+    keys = _VALUE_KEYS.get(kind)
+    if keys is None:
+        raise NetlistError(
+            f"element {tokens[0]} is not a resistor or capacitor: its value cannot be set",
+            file=statement.file,
+            place=statement.line,
+        )
+    for i, token in enumerate(tokens[3:], start=3):
+        key, eq, _ = token.partition("=")
+        if eq and key.lower() in keys:
+            return i
+    if len(tokens) >= 4 and "=" not in tokens[3]:
+        return 3
+    raise NetlistError(
+        f"element {tokens[0]} has no value to set", file=statement.file, place=statement.line
+    )
+
+
+def element_value(statement: Statement) -> str:
+    """The value expression of an R, C or L element, as written."""
+    token = statement.tokens[element_value_index(statement)]
+    return token.partition("=")[2] if "=" in token else token
+
+
+def replace_element_value(statement: Statement, value: str) -> str:
+    """The text of an R, C or L element line with its value replaced."""
+    tokens = list(statement.tokens)
+    i = element_value_index(statement)
+    key, eq, _ = tokens[i].partition("=")
+    tokens[i] = f"{key}={value}" if eq else value
+    return " ".join(tokens)
+
+
+def replace_instance_param(statement: Statement, name: str, value: str) -> str:
+    """The text of a device line with ``name=value`` set (added when absent), e.g. ``w=2u``."""
+    tokens = list(statement.tokens)
+    for i, token in enumerate(tokens[1:], start=1):
+        key, eq, _ = token.partition("=")
+        if eq and key.lower() == name.lower():
+            tokens[i] = f"{key}={value}"
+            return " ".join(tokens)
+    tokens.append(f"{name}={value}")
+    return " ".join(tokens)
+
+
+def render_file(
+    netlist: Netlist,
+    path: Path,
+    edits: dict[tuple[Path, int], str],
+    *,
+    top_level: bool,
+) -> tuple[str, list[str]]:
+    """Text of one netlist file for the testbench, with edits applied.
+
+    Parameters
+    ----------
+    netlist
+        The parsed netlist.
+    path
+        Which file to render.
+    edits
+        ``(file, logical-line index) -> new statement text``.
+    top_level
+        True for the user's netlist file itself: its top-level element lines and analysis
+        commands are left out (as comments), since the testbench supplies its own.
+
+    Returns
+    -------
+    text, notes
+        The rendered text and one note per line that was left out.
+
+    Included files that hold an edit are inlined (rendered recursively); the others stay
+    as ``.include`` / ``.lib`` lines with absolute paths.
+    """
+    source = netlist.files[path]
+    by_index = {s.index: s for s in source.statements}
+    out: list[str] = []
+    notes: list[str] = []
+    edited_files = {file for file, _ in edits}
+    for index, logical in enumerate(source.lines):
+        statement = by_index.get(index)
+        if statement is None:
+            out.extend(logical.raw)
+            continue
+        if (path, index) in edits:
+            out.append(edits[(path, index)])
+            continue
+        keyword = statement.keyword
+        target = _include_target(statement)
+        if target is not None and statement.section is None:
+            target_path, target_section = target
+            if target_section is None and target_path in edited_files:
+                text, inner_notes = render_file(netlist, target_path, edits, top_level=False)
+                out.append(f"* ---- begin {target_path} (inlined: amploop set values in it)")
+                out.append(text)
+                out.append(f"* ---- end {target_path}")
+                notes.extend(inner_notes)
+            elif target_section is None:
+                out.append(f'{statement.tokens[0]} "{target_path}"')
+            else:
+                out.append(f'.lib "{target_path}" {statement.tokens[2]}')
+            continue
+        if top_level and statement.subckt is None and statement.section is None:
+            if keyword == ".end":
+                out.append(f"* amploop: the rest of {path.name} follows .end and is left out")
+                break
+            if keyword in ANALYSIS_COMMANDS or not keyword.startswith("."):
+                out.extend(f"* amploop left out: {raw}" for raw in logical.raw)
+                notes.append(
+                    f"{path}:{statement.line}: {statement.tokens[0]} is outside the subckt; "
+                    "left out of the testbench"
+                )
+                continue
+        out.extend(logical.raw)
+    return "\n".join(out), notes
+
+
+def value_of(expression: str, params: dict[str, str], *, where: str) -> float:
+    """Evaluate a parameter or element value expression to a float (SI units).
+
+    Raises
+    ------
+    NetlistError
+        If the expression uses something the small evaluator does not know.
+    """
+    try:
+        return evaluate(expression, params)
+    except ValueError as exc:
+        file, _, place = where.rpartition(":")
+        raise NetlistError(
+            f"cannot evaluate {expression!r}: {exc}", file=file or None, place=place or None,
+            hint="give the value with --set",
+        ) from None
+
+
+_NAME = re.compile(r"^[A-Za-z_][\w.]*$")
+
+
+def is_name(text: str) -> bool:
+    """True for a plausible SPICE parameter or node name."""
+    return bool(_NAME.match(text))

@@ -1,0 +1,237 @@
+"""The closed-loop testbench around the user's amplifier: text in, text out.
+
+For one corner and one set of compensation values this writes a complete ngspice deck:
+the corner's parameters, temperature and model section, the user's netlist (with the
+compensation values set where the netlist keeps them), the subckt instance with its
+bias sources, the input common mode, the feedback network, the load, and the loop-gain
+probe between the amplifier output and the feedback network::
+
+    tb_sig --Z1-- tb_inn --Z2-- tb_fb ==probe== tb_out (subckt out, load CL)
+                    |                              |
+                  (in_n)     X1 two-stage amp    (out)
+    tb_inp (Vcm) -- (in_p)
+
+The signal source ``tb_sig`` sits at the common-mode voltage and is AC ground during the
+loop-gain runs, so the DC output settles at the common mode for either feedback kind.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from .amplifier import Amplifier
+from .job import Corner
+from .loopgain import FrequencyResponse
+from .probe import Probe, make_probe
+from .simulator import AnalysisOutput, AnalysisRequest, Step
+from .units import parse_value, spice_number
+
+__all__ = ["Testbench", "build_testbench", "NODE_AMP", "NODE_FEEDBACK", "port_node"]
+
+#: Amplifier side of the probe: the subckt's output with the load.
+NODE_AMP = "tb_out"
+#: Feedback side of the probe: where the feedback network meets the output.
+NODE_FEEDBACK = "tb_fb"
+
+
+def port_node(port: str) -> str:
+    """Top-level node name the testbench gives a subckt port."""
+    return "tb_" + "".join(ch if ch.isalnum() or ch == "_" else "_" for ch in port.lower())
+
+
+@dataclass(frozen=True)
+class Testbench:
+    """A generated deck for one corner and one set of compensation values.
+
+    Attributes
+    ----------
+    corner
+        The corner it simulates.
+    values
+        Compensation values by role, SI (farads, ohms, or the device size).
+    deck
+        ngspice netlist text, title line first and ``.end`` last, no ``.control`` block.
+    steps
+        Simulator commands to run after loading the deck.
+    probe
+        The loop-gain probe in it.
+    files
+        Files the deck reads (absolute paths).
+    notes
+        Lines of the user's netlist left out of the testbench, and similar remarks.
+    """
+
+    corner: Corner
+    values: dict[str, float]
+    deck: str
+    steps: tuple[Step, ...]
+    probe: Probe
+    files: tuple[Path, ...]
+    notes: tuple[str, ...] = ()
+    label: str = ""
+
+    def request(self, time_limit_s: float) -> AnalysisRequest:
+        """The analysis request for a worker."""
+        return AnalysisRequest(label=self.label or self.corner.name, deck=self.deck,
+                               steps=self.steps, time_limit_s=time_limit_s)
+
+    def loop_gain(self, output: AnalysisOutput) -> FrequencyResponse:
+        """The loop gain from a finished analysis of this testbench."""
+        return self.probe.loop_gain(output.reads, NODE_AMP, NODE_FEEDBACK)
+
+    def hand_deck(self, data_file: str = "loop_gain.txt") -> str:
+        """The deck with a ``.control`` block, to rerun by hand: ``ngspice -b FILE``.
+
+        It runs the same commands and writes the loop gain (frequency, real, imaginary)
+        to ``data_file`` with ngspice's ``wrdata``.
+        """
+        lines = [
+            ".control",
+            "set num_threads=1",
+            *[step.command for step in self.steps],
+        ]
+        if self.probe.name == "double-injection":
+            ac = [i for i, s in enumerate(self.steps) if s.is_ac]
+            first, second = f"ac{1}", f"ac{len(ac)}"
+            lines.append(
+                f"let loop_gain = 1/({first}.v({NODE_FEEDBACK}) - {second}.i(vprobe)) - 1"
+            )
+        else:
+            lines.append(f"let loop_gain = -v({NODE_AMP})/v({NODE_FEEDBACK})")
+        lines += [
+            f"wrdata {data_file} loop_gain",
+            "quit",
+            ".endc",
+        ]
+        body = self.deck.rstrip()
+        assert body.lower().endswith(".end")
+        return body[: -len(".end")] + "\n".join(lines) + "\n.end\n"
+
+
+def _quote(value: str) -> str:
+    """A job-file value as a SPICE value: numbers stay, expressions get braces if needed."""
+    text = value.strip()
+    if text.startswith("{") or text.startswith("'"):
+        return text
+    try:
+        parse_value(text)
+    except ValueError:
+        return "{" + text + "}"
+    return text  # a SPICE number as the user wrote it; ngspice reads it the same way
+
+
+def build_testbench(
+    amplifier: Amplifier,
+    corner: Corner,
+    values: dict[str, float],
+    *,
+    probe: Probe | None = None,
+    ac_command: str | None = None,
+    label: str | None = None,
+    extra_steps: tuple[Step, ...] = (),
+) -> Testbench:
+    """Write the closed-loop loop-gain testbench for one corner.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier (job + netlist).
+    corner
+        Model section, temperature (°C) and parameter values (SI).
+    values
+        Compensation values by role (``cc`` in farads, ``rc`` in ohms or a device size);
+        roles left out keep the netlist's value.
+    probe
+        Defaults to the job's ``[analysis].probe``.
+    ac_command
+        Defaults to the job's sweep.
+    extra_steps
+        Commands to run before the probe's (e.g. an ``op`` that reads device gm).
+
+    Returns
+    -------
+    Testbench
+    """
+    job = amplifier.job
+    probe = probe or make_probe(job.analysis.probe)
+    ac_command = ac_command or job.analysis.ac_command()
+    full_values = amplifier.values_in_effect(values)
+    loop = probe.elements(NODE_AMP, NODE_FEEDBACK)
+    deck, notes = closed_loop_deck(amplifier, corner, full_values, loop_elements=loop,
+                                   title=f"amploop loop gain: job {job.name}, corner {corner.name}")
+    steps = tuple(extra_steps) + probe.steps(ac_command, NODE_AMP, NODE_FEEDBACK)
+    return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, probe=probe,
+                     files=amplifier.files, notes=tuple(notes), label=label or corner.name)
+
+
+def closed_loop_deck(
+    amplifier: Amplifier,
+    corner: Corner,
+    values: dict[str, float],
+    *,
+    loop_elements: list[str],
+    title: str,
+    signal: str = "ac 0",
+) -> tuple[str, list[str]]:
+    """The deck text of the amplifier in its feedback loop.
+
+    ``loop_elements`` connect ``tb_out`` (amplifier side) to ``tb_fb`` (feedback side):
+    a probe, or a plain short for time-domain runs. ``signal`` is appended to the signal
+    source (``ac 0`` for loop-gain runs, a ``pulse(...)`` for a step).
+    """
+    job = amplifier.job
+    netlist_text, instance_params, notes = amplifier.render(values, corner.params)
+    defined = set(amplifier.netlist.global_params)
+    top_params = {k: v for k, v in corner.params.items() if k.lower() not in defined}
+
+    lines = [f"* {title}".replace("\n", " "), "* generated by amploop; rerun by hand with: ngspice -b <this file>"]
+    lines.append("* results are only as good as the device models; sign-off stays with your own flow")
+    if top_params:
+        lines.append(".param " + " ".join(f"{k}={spice_number(v)}" for k, v in top_params.items()))
+    lines.append(f".temp {spice_number(corner.temp)}")
+    models = job.amplifier.models
+    if models is not None:
+        if corner.lib is not None:
+            lines.append(f'.lib "{models}" {corner.lib}')
+        else:
+            lines.append(f'.include "{models}"')
+    for include in job.amplifier.includes:
+        lines.append(f'.include "{include}"')
+    lines.append(f"* ---- user netlist {amplifier.netlist.root} (compensation values set by amploop)")
+    lines.append(netlist_text)
+    lines.append("* ---- end of user netlist")
+
+    lines.append("* ---- testbench")
+    subckt = amplifier.subckt
+    nodes = {
+        job.amplifier.in_p.lower(): "tb_inp",
+        job.amplifier.in_n.lower(): "tb_inn",
+        job.amplifier.out.lower(): NODE_AMP,
+    }
+    for number, source in enumerate(job.bias.sources, start=1):
+        node = port_node(source.port)
+        nodes[source.port.lower()] = node
+        value = _quote(source.value)
+        if source.kind == "volts":
+            lines.append(f"Vbias{number} {node} 0 dc {value}  ; port {source.port}")
+        else:
+            lines.append(f"Ibias{number} {node} 0 dc {value}  ; port {source.port}")
+    instance = ["X1", *[nodes[p.lower()] for p in subckt.ports], subckt.name]
+    instance += [f"{k}={v}" for k, v in instance_params.items()]
+    lines.append(" ".join(instance))
+    common_mode = _quote(job.bias.common_mode)
+    lines.append(f"Vcm tb_inp 0 dc {common_mode}")
+    lines.append(f"Vsig tb_sig 0 dc {common_mode} {signal}")
+    fb = job.feedback
+    if fb.kind == "resistive":
+        lines.append(f"Rin tb_sig tb_inn {_quote(fb.input)}")
+        lines.append(f"Rfb {NODE_FEEDBACK} tb_inn {_quote(fb.feedback)}")
+    else:
+        lines.append(f"Cin tb_sig tb_inn {_quote(fb.input)}")
+        lines.append(f"Cfb {NODE_FEEDBACK} tb_inn {_quote(fb.feedback)}")
+        lines.append(f"Rdc {NODE_FEEDBACK} tb_inn {_quote(fb.dc_path)}")
+    lines.append(f"Cload {NODE_AMP} 0 {_quote(fb.load)}")
+    lines.extend(loop_elements)
+    lines.append(".end")
+    return "\n".join(lines) + "\n", notes

@@ -1,0 +1,112 @@
+"""SPICE numbers at the edges: parsing scale suffixes, writing decks, showing values.
+
+Inside amploop every quantity is a plain SI float (farads, ohms, hertz, volts).
+Suffixes appear only where text comes in (job file, netlist, ``--set``) or goes out
+(generated decks, tables, plots).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+__all__ = ["parse_value", "spice_number", "engineering", "SCALE_SUFFIXES"]
+
+#: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
+SCALE_SUFFIXES: dict[str, float] = {
+    "t": 1e12,
+    "g": 1e9,
+    "meg": 1e6,
+    "k": 1e3,
+    "mil": 25.4e-6,
+    "m": 1e-3,
+    "u": 1e-6,
+    "n": 1e-9,
+    "p": 1e-12,
+    "f": 1e-15,
+}
+
+# Unit names SPICE users write after the suffix ("2pF", "10kOhm"); SPICE ignores them.
+_UNIT_TAILS = ("", "f", "h", "v", "a", "s", "hz", "ohm", "ohms")
+
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)\s*$")
+
+
+def parse_value(text: str | int | float) -> float:
+    """Read a SPICE number such as ``"1.5p"``, ``"10k"``, ``"2meg"``, ``"3e-12"`` or ``4``.
+
+    Parameters
+    ----------
+    text
+        A number, or a string with an optional scale suffix (f p n u m k meg g t mil,
+        case-insensitive as in SPICE) and an optional unit name after it (``2pF``).
+
+    Returns
+    -------
+    float
+        The value in SI units.
+
+    Raises
+    ------
+    ValueError
+        When the text is not a SPICE number; the caller adds file and place.
+    """
+    if isinstance(text, bool):
+        raise ValueError(f"expected a number, got {text!r}")
+    if isinstance(text, (int, float)):
+        value = float(text)
+    else:
+        match = _NUMBER.match(str(text))
+        if not match:
+            raise ValueError(f"{text!r} is not a number (SPICE suffixes: f p n u m k meg g t)")
+        mantissa, tail = match.group(1), match.group(2).lower()
+        scale = 1.0
+        for suffix, factor in SCALE_SUFFIXES.items():
+            if tail.startswith(suffix) and tail[len(suffix):] in _UNIT_TAILS:
+                scale, tail = factor, ""
+                break
+        if tail not in _UNIT_TAILS:
+            raise ValueError(
+                f"{text!r}: unknown suffix {match.group(2)!r} (SPICE suffixes: f p n u m k meg g t)"
+            )
+        value = float(mantissa) * scale
+    if not math.isfinite(value):
+        raise ValueError(f"{text!r} is not a finite number")
+    return value
+
+
+def spice_number(value: float) -> str:
+    """Write a float for a deck without losing precision.
+
+    Python's shortest round-trip form (``1e-12``, ``1.5e-12``): as exact as ``%.17g`` and
+    easier to read; ``%g`` would lose about 5e-6 relative.
+    """
+    return repr(float(value))
+
+
+_PREFIXES = [(1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"),
+             (1e-6, "µ"), (1e-9, "n"), (1e-12, "p"), (1e-15, "f"), (1e-18, "a")]
+
+
+def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
+    """Show a value with an SI prefix for people: ``engineering(1.23e7, "Hz") == "12.3 MHz"``.
+
+    ``None`` and NaN show as ``"–"``; infinities as ``"inf"``.
+    """
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    if math.isinf(value):
+        return ("-inf" if value < 0 else "inf") + (f" {unit}" if unit else "")
+    if value == 0:
+        return f"0 {unit}".strip()
+    magnitude = float(f"{abs(value):.{digits}g}")  # round first: 999.97 shows as 1 k
+    scale, prefix = _PREFIXES[-1]
+    for scale, prefix in _PREFIXES:
+        if magnitude >= scale:
+            break
+    mantissa = math.copysign(magnitude, value) / scale
+    text = f"{mantissa:.{digits}g}"
+    if "e" in text:  # beyond the prefix table
+        text = f"{mantissa * scale:.{digits}g}"
+        prefix = ""
+    return f"{text} {prefix}{unit}".strip()
