@@ -199,7 +199,8 @@ class WorkerPool:
                         self._retire(worker, kill=True)
                         raise SimulatorError(
                             f"ngspice worker processes keep dying at start (exit code {code})",
-                            hint="check that ngspice's shared library is installed",
+                            hint="check that ngspice's shared library is installed; a script "
+                            "that calls amploop needs the `if __name__ == \"__main__\":` guard",
                         )
                 self._retire(worker, kill=True)
                 if task is not None:
