@@ -9,6 +9,7 @@ text edits that set new values. It reads files but never simulates.
 from __future__ import annotations
 
 import difflib
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -75,6 +76,30 @@ class Amplifier:
         if self.job.amplifier.models is not None:
             files.append(self.job.amplifier.models)
         return tuple(dict.fromkeys(files))
+
+    def find_word(self, word: str) -> Statement | None:
+        """The first statement of the user's files that uses ``word`` (case-insensitive)."""
+        pattern = re.compile(rf"(?<![\w.]){re.escape(word)}(?![\w])", re.IGNORECASE)
+        for source in self.netlist.files.values():
+            for statement in source.statements:
+                if any(pattern.search(token) for token in statement.tokens):
+                    return statement
+        return None
+
+    def locate_parse_error(self, problem: str) -> str:
+        """Prefix an ngspice parse error with the user's file and line where it can be found.
+
+        ngspice numbers lines of its expanded deck (inside a subckt often "line no. 0"), so
+        the name it complains about is looked up in the user's files instead.
+        """
+        for pattern in (r"\[([^\]]+)\]", r"'([^']+)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$"):
+            match = re.search(pattern, problem)
+            if match:
+                statement = self.find_word(match.group(1).strip("("))
+                if statement is not None:
+                    cleaned = re.sub(r"\s*\(Netlist line no\. \d+ of the deck\)", "", problem)
+                    return f"{statement.file}:{statement.line}: {cleaned}"
+        return problem
 
     def values_in_effect(self, overrides: dict[str, float] | None = None) -> dict[str, float]:
         """Compensation values (SI) the netlist holds, with ``overrides`` applied."""
@@ -246,7 +271,7 @@ def _check_ports(job: Job, subckt: Subckt) -> None:
 
 
 def _close(name: str, choices) -> str:
-    close = difflib.get_close_matches(name.lower(), [c.lower() for c in choices], n=1, cutoff=0.6)
+    close = difflib.get_close_matches(name.lower(), [c.lower() for c in choices], n=1, cutoff=0.5)
     if close:
         original = next(c for c in choices if c.lower() == close[0])
         return f"; did you mean {original!r}?"

@@ -120,6 +120,21 @@ def _progress_printer(quiet: bool):
     return show
 
 
+def _print_corner_errors(failed, total: int) -> None:
+    """One line per distinct problem, naming the corners it hit."""
+    by_problem: dict[str, list[str]] = {}
+    for c in failed:
+        by_problem.setdefault(c.error or "failed", []).append(c.corner.name)
+    for problem, names in by_problem.items():
+        if len(names) == total and total > 1:
+            who = f"all {total} corners"
+        elif len(names) > 3:
+            who = f"corners {', '.join(names[:3])} and {len(names) - 3} more"
+        else:
+            who = ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
+        print(f"amploop: error: {problem} ({who})", file=sys.stderr)
+
+
 def _run_measure(args) -> ExitCode:
     from .job import load_job, parse_overrides
     from .measure import measure
@@ -140,10 +155,13 @@ def _run_measure(args) -> ExitCode:
         print(f"job {job.name}: {len(result.corners)} corners at {values}")
         print(corner_table(result.corners))
         print(f"{result.ac_run} AC analyses in {result.seconds:.1f} s; results in {result.out}")
-    for c in failed:
-        print(f"amploop: corner {c.corner.name}: {c.error}", file=sys.stderr)
+    if not args.quiet:
+        for c in result.corners:
+            for warning in c.warnings:
+                print(f"amploop: warning: corner {c.corner.name}: {warning}", file=sys.stderr)
+    _print_corner_errors(failed, len(result.corners))
     if failed:
-        if all(c.error and c.error.startswith("parse error") for c in failed):
+        if all(c.error and "parse error" in c.error for c in failed):
             return ExitCode.BAD_INPUT
         return ExitCode.SIMULATOR_FAILURE
     return ExitCode.OK

@@ -92,7 +92,7 @@ def did_you_mean(name: str, choices) -> str:
     """``"; did you mean 'x'?"`` when a choice is close to ``name``, else a list of choices."""
     choices = list(dict.fromkeys(choices))
     lowered = {c.lower(): c for c in choices}
-    close = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.6)
+    close = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.5)
     if close:
         return f"; did you mean {lowered[close[0]]!r}?"
     if choices and len(choices) <= 12:

@@ -126,10 +126,14 @@ def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
     return stems
 
 
-def result_from_output(bench: Testbench, output) -> CornerResult:
+def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = None
+                       ) -> CornerResult:
     """Turn a worker's answer (output or SimulatorError) into a corner result."""
     if isinstance(output, AmploopError):
-        return CornerResult(corner=bench.corner, status="error", error=output.problem)
+        problem = output.problem
+        if amplifier is not None and problem.startswith("parse error"):
+            problem = amplifier.locate_parse_error(problem)
+        return CornerResult(corner=bench.corner, status="error", error=problem)
     try:
         response = bench.loop_gain(output)
     except (ValueError, KeyError) as exc:
@@ -204,7 +208,7 @@ def measure(
             bench = benches[name]
             if not isinstance(output, SimulatorError):
                 ac_run += sum(step.is_ac for step in bench.steps)
-            result = result_from_output(bench, output)
+            result = result_from_output(bench, output, amplifier)
             results[name] = result
             if folder is not None and result.loop_gain is not None:
                 folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", result.loop_gain)

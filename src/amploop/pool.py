@@ -53,12 +53,12 @@ def _worker_main(conn) -> None:
             return
         task_id, request = message
         try:
-            output = session.run(request)
-            conn.send((task_id, "ok", output))
+            reply = (task_id, "ok", session.run(request))
         except SimulatorError as exc:
-            conn.send((task_id, "error", exc.problem))
+            reply = (task_id, "error", exc.problem)
         except Exception as exc:  # noqa: BLE001 - an unexpected failure of one analysis
-            conn.send((task_id, "error", f"internal error in the worker: {exc!r}"))
+            reply = (task_id, "error", f"internal error in the worker: {exc!r}")
+        conn.send(reply + (session.broken,))
         if session.broken:
             conn.close()
             os._exit(0)  # ngspice cannot recover in this process; the pool starts another
@@ -146,7 +146,10 @@ class WorkerPool:
                     self._next_id += 1
                     worker.task = (self._next_id, key, request, attempt)
                     worker.started = time.monotonic()
-                    worker.conn.send((self._next_id, request))
+                    try:
+                        worker.conn.send((self._next_id, request))
+                    except OSError:  # it died between two looks; the sentinel will tell
+                        pass
             yield from self._collect(pending)
 
     def _busy(self) -> int:
@@ -182,13 +185,13 @@ class WorkerPool:
             if message is not None and worker.task and message[0] == worker.task[0]:
                 _, key, request, _ = worker.task
                 worker.task = None
-                _, status, payload = message
+                _, status, payload, exiting = message
+                if exiting:  # its ngspice cannot go on; it ends itself
+                    self._retire(worker, kill=False)
                 if status == "ok":
                     yield key, payload
                 else:
                     yield key, SimulatorError(payload, place=request.label)
-                if not worker.process.is_alive() or worker.conn.closed:
-                    self._retire(worker, kill=True)
                 continue
             if not worker.process.is_alive():
                 code = worker.process.exitcode

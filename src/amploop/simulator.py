@@ -148,9 +148,11 @@ def summarise_failure(lines: list[str]) -> str:
         "timestep too small" in joined and "transient op" in joined
     ):
         return "no DC operating point: gmin stepping, source stepping and transient op all failed"
-    for line in text:
+    for i, line in enumerate(text):
         if any(p.search(line) for p in _FATAL) and "cannot recover" not in line.lower() \
                 and "please check your input" not in line.lower():
+            if line.endswith(":"):  # "Error on line:" followed by the line and the reason
+                return " ".join([line, *text[i + 1 : i + 3]])
             return line
     for line in text:
         if "please check your input" in line.lower():

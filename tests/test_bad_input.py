@@ -1,0 +1,245 @@
+"""Bad input gets one line naming the file, the place and the problem, and exit code 2.
+
+Simulator-side failures (an ngspice parse error, no DC operating point, a loop gain that
+never crosses 0 dB) are per-corner errors in results.json while the other corners finish.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from amploop.cli import main
+from nodal import Macromodel
+
+
+def run(argv: list[str], capsys) -> tuple[int, str, str]:
+    code = main(argv)
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def one_error_line(err: str) -> str:
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1, f"expected one line, got: {err!r}"
+    assert "Traceback" not in err
+    return lines[0]
+
+
+def edit(path: Path, old: str, new: str) -> None:
+    text = path.read_text()
+    assert old in text, f"{old!r} not in {path}"
+    path.write_text(text.replace(old, new))
+
+
+@pytest.fixture
+def job(macro_job) -> Path:
+    return macro_job(Macromodel(cc=1.5e-12, rc=800.0), corners={"light": 1e-12, "heavy": 5e-12})
+
+
+def measure_args(job: Path, tmp_path: Path) -> list[str]:
+    return ["measure", str(job), "--out", str(tmp_path / "out"), "--workers", "1"]
+
+
+def test_missing_job_file(tmp_path, capsys):
+    code, _, err = run(measure_args(tmp_path / "nope.toml", tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "nope.toml" in line and "not found" in line
+
+
+def test_missing_netlist_file(job, tmp_path, capsys):
+    edit(job, 'netlist = "macro.cir"', 'netlist = "gone.cir"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "job.toml" in line and "[amplifier].netlist" in line and "gone.cir" in line
+
+
+def test_subckt_not_in_the_netlist(job, tmp_path, capsys):
+    edit(job, 'subckt = "macro"', 'subckt = "macr"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir" in line and "'macr'" in line and "did you mean 'macro'" in line
+
+
+def test_port_not_among_the_subckt_ports(job, tmp_path, capsys):
+    edit(job, 'in_n = "inn"', 'in_n = "in_minus"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "job.toml" in line and "[amplifier].in_n" in line and "in_minus" in line
+    assert "inp inn out" in line
+
+
+def test_unconnected_port(job, tmp_path, capsys):
+    netlist = job.parent / "macro.cir"
+    edit(netlist, ".subckt macro inp inn out", ".subckt macro inp inn out vdd")
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "'vdd'" in line and "not connected" in line and "[bias]" in line
+
+
+def test_compensation_parameter_that_does_not_exist(job, tmp_path, capsys):
+    edit(job, 'rc = { param = "rc"', 'rc = { param = "rz"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir" in line and "[compensation].rc" in line and "'rz'" in line
+    assert "did you mean 'rc'" in line
+
+
+def test_compensation_element_that_does_not_exist(job, tmp_path, capsys):
+    edit(job, 'cc = { param = "cc"', 'cc = { element = "Cx"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir" in line and "'Cx'" in line and "did you mean" in line
+
+
+def test_compensation_element_of_the_wrong_kind(job, tmp_path, capsys):
+    edit(job, 'cc = { param = "cc"', 'cc = { element = "R1"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    assert "R1 is not a capacitor" in one_error_line(err)
+
+
+def test_lib_section_that_does_not_exist(job, tmp_path, capsys):
+    (job.parent / "models.lib").write_text(".lib tt\n.endl tt\n.lib ss\n.endl ss\n")
+    edit(job, 'out = "out"', 'out = "out"\nmodels = "models.lib"')
+    text = job.read_text().replace('name = "light"', 'name = "light"\nlib = "tt"')
+    job.write_text(text.replace('name = "heavy"', 'name = "heavy"\nlib = "sf"'))
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "job.toml" in line and "heavy" in line and "'sf'" in line and "models.lib" in line
+
+
+def test_toml_syntax_error_names_line_and_column(job, tmp_path, capsys):
+    edit(job, 'subckt = "macro"', 'subckt = "macro')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "job.toml:4:" in line and "TOML syntax error" in line
+
+
+@pytest.mark.parametrize("old, new, place, words", [
+    ('subckt = "macro"', 'subckt = "macro"\nsubcircuit = "x"', "[amplifier].subcircuit",
+     "did you mean 'subckt'"),
+    ("[analysis]", "[analysys]", "analysys", "did you mean 'analysis'"),
+    ('points_per_decade = 40', 'point_per_decade = 40', "[analysis].point_per_decade",
+     "did you mean 'points_per_decade'"),
+])
+def test_unknown_key_gets_a_did_you_mean(job, tmp_path, capsys, old, new, place, words):
+    edit(job, old, new)
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert place in line and words in line
+
+
+@pytest.mark.parametrize("old, new, place", [
+    ('input = "10000.0"', 'input = "10x"', "[feedback].input"),
+    ('input = "10000.0"', 'input = "-10k"', "[feedback].input"),
+    ('min = "0.1p"', 'min = "-0.1p"', "[compensation].cc.min"),
+    ('start = "1"', 'start = "one"', "[analysis].start"),
+    ('params = { cl = 1e-12 }', 'params = { cl = "1q" }', "[[corners]][0].params.cl"),
+])
+def test_unparseable_or_negative_values(job, tmp_path, capsys, old, new, place):
+    edit(job, old, new)
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "job.toml" in line and place in line
+
+
+def test_negative_load_from_a_corner_parameter_is_refused_before_simulating(job, tmp_path, capsys):
+    edit(job, "params = { cl = 5e-12 }", "params = { cl = -5e-12 }")
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "[feedback].load" in line and "heavy" in line and "negative" in line
+    assert not (tmp_path / "out").exists()
+
+
+def test_bias_values_may_be_negative(macro_job, tmp_path, capsys):
+    job = macro_job(Macromodel(cc=1.5e-12, rc=800.0))
+    edit(job, 'common_mode = "0.9"', 'common_mode = "-0.4"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 0, err
+
+
+def test_bad_set_value(job, tmp_path, capsys):
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "cc=fast"], capsys)
+    assert code == 2
+    assert "--set 'cc=fast'" in one_error_line(err)
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "ccomp=1p"], capsys)
+    assert code == 2
+    assert "did you mean 'cc'" in one_error_line(err)
+
+
+def test_ngspice_parse_error_names_the_users_file_and_line(job, tmp_path, capsys):
+    edit(job.parent / "macro.cir", "R2 out 0", "R2 out 0 {r2_typo} ; was")
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir:7:" in line and "r2_typo" in line and "all 2 corners" in line
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert results["status"] == "failed"
+    assert all(c["status"] == "error" and "r2_typo" in c["error"] for c in results["corners"])
+
+
+def test_dc_operating_point_that_does_not_converge(job, tmp_path, capsys):
+    """A behavioural source with no DC solution: exp(40·v) = v/1 kΩ has none."""
+    edit(job.parent / "macro.cir", ".ends", "Bx 0 nx I=exp(40*v(nx))\nRx nx 0 1k\n.ends")
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 1
+    line = one_error_line(err)
+    assert "no DC operating point" in line
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert [c["status"] for c in results["corners"]] == ["error", "error"]
+    assert results["corners"][0]["phase_margin_deg"] is None
+
+
+def test_loop_gain_that_never_crosses_0_db(job, tmp_path, capsys):
+    edit(job, 'stop = "10G"', 'stop = "10k"')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 1
+    line = one_error_line(err)
+    assert "never crosses 0 dB" in line and "all 2 corners" in line
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    corner = results["corners"][0]
+    assert corner["status"] == "error" and corner["unity_gain_hz"] is None
+    assert corner["dc_loop_gain_db"] > 40  # what could be read is kept
+
+
+def test_one_failing_corner_never_loses_the_others(job, tmp_path, capsys):
+    """Only the heavy corner switches on a behavioural source that has no DC solution."""
+    edit(job, "params = { cl = 1e-12 }", "params = { cl = 1e-12, k = 0 }")
+    edit(job, "params = { cl = 5e-12 }", "params = { cl = 5e-12, k = 1 }")
+    edit(job.parent / "macro.cir", ".ends", "Bx 0 nx I={k}*exp(40*v(nx))\nRx nx 0 1k\n.ends")
+    code, out, err = run(measure_args(job, tmp_path), capsys)
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    statuses = {c["name"]: c["status"] for c in results["corners"]}
+    assert statuses == {"light": "ok", "heavy": "error"}, results
+    assert code == 1 and results["status"] == "failed"
+    assert (tmp_path / "out" / "loop_gain" / "light.csv").is_file()
+    assert results["corners"][0]["phase_margin_deg"] > 0
+    line = one_error_line(err)
+    assert "corner heavy" in line and "no DC operating point" in line
+
+
+def test_no_traceback_from_the_installed_command(job, tmp_path):
+    """The console script itself, as a user runs it: one line on stderr, exit 2."""
+    edit(job, 'kind = "resistive"', 'kind = "resistiv"')
+    proc = subprocess.run([sys.executable, "-m", "amploop.cli", *measure_args(job, tmp_path)],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2
+    line = one_error_line(proc.stderr)
+    assert "[feedback].kind" in line and "did you mean 'resistive'" in line
