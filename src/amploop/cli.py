@@ -154,7 +154,8 @@ def _run_measure(args) -> ExitCode:
                            for k, v in result.values.items())
         print(f"job {job.name}: {len(result.corners)} corners at {values}")
         print(corner_table(result.corners))
-        print(f"{result.ac_run} AC analyses in {result.seconds:.1f} s; results in {result.out}")
+        print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
+              f"{result.seconds:.1f} s; results in {result.out}")
     if not args.quiet:
         for c in result.corners:
             for warning in c.warnings:

@@ -18,13 +18,17 @@ from .job import Corner, Job, safe_filename
 from .loopgain import FrequencyResponse
 from .margins import Margins, loop_margins
 from .outputs import OutFolder
+from .journal import Journal, file_digests
 from .pool import WorkerPool
+from .runner import Runner
 from .testbench import Testbench, build_testbench
 from .units import engineering
 
 __all__ = ["CornerResult", "MeasureResult", "measure", "assess_loop_gain", "corner_files"]
 
 SCHEMA = 1
+#: The journal's file name inside an out folder.
+JOURNAL_FILE = "journal.sqlite"
 
 
 @dataclass(frozen=True)
@@ -191,23 +195,32 @@ def measure(
     started = time.perf_counter()
     amplifier = prepare_amplifier(job, allow_control=allow_control)
     values = amplifier.values_in_effect(overrides)
-    folder = OutFolder(out) if out is not None else None
-    stems = corner_files(job.corners)
     benches = {c.name: build_testbench(amplifier, c, values) for c in job.corners}
+    if out is None:
+        return _measure_into(job, amplifier, values, benches, None, None, pool, workers,
+                             progress, started)
+    folder = OutFolder(out)
+    with folder.lock():
+        with Journal(folder.path / JOURNAL_FILE) as journal:
+            return _measure_into(job, amplifier, values, benches, folder, journal, pool,
+                                 workers, progress, started)
+
+
+def _measure_into(job, amplifier, values, benches, folder, journal, pool, workers, progress,
+                  started) -> MeasureResult:
+    stems = corner_files(job.corners)
     if folder is not None:
         for name, bench in benches.items():
             folder.write_text(f"decks/{stems[name]}.cir",
                               bench.hand_deck(data_file=f"{stems[name]}-loop_gain.txt"))
     results: dict[str, CornerResult] = {}
-    ac_run = 0
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
+    runner = Runner(pool, journal, file_digests(amplifier.files))
     try:
         requests = [(name, b.request(job.analysis.time_limit_s)) for name, b in benches.items()]
-        for name, output in pool.run(requests):
+        for name, output, _reused in runner.run(requests):
             bench = benches[name]
-            if not isinstance(output, SimulatorError):
-                ac_run += sum(step.is_ac for step in bench.steps)
             result = result_from_output(bench, output, amplifier)
             results[name] = result
             if folder is not None and result.loop_gain is not None:
@@ -218,8 +231,9 @@ def measure(
         if own_pool:
             pool.close()
         ordered = tuple(results[c.name] for c in job.corners if c.name in results)
-        result = MeasureResult(job=job, values=values, corners=ordered, ac_run=ac_run,
-                               ac_reused=0, out=folder.path if folder else None,
+        result = MeasureResult(job=job, values=values, corners=ordered, ac_run=runner.ac_run,
+                               ac_reused=runner.ac_reused,
+                               out=folder.path if folder else None,
                                seconds=time.perf_counter() - started)
         if folder is not None:
             data = result.as_json()

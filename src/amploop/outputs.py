@@ -7,15 +7,17 @@ final name, so an interruption never leaves half a file behind.
 from __future__ import annotations
 
 import csv
+import fcntl
 import io
 import json
 import math
 import os
+from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
 
-from .errors import OutputError
+from .errors import JournalError, OutputError
 from .loopgain import FrequencyResponse
 
 __all__ = ["OutFolder", "clean_json"]
@@ -59,6 +61,34 @@ class OutFolder:
             raise OutputError(f"cannot create the out folder: {exc.strerror}", file=self.path) from None
         if not os.access(self.path, os.W_OK):
             raise OutputError("the out folder is not writable", file=self.path)
+
+    @contextmanager
+    def lock(self):
+        """Hold the folder for this run; a second run on the same folder is refused."""
+        path = self.path / ".amploop.lock"
+        try:
+            handle = open(path, "a+")
+        except OSError as exc:
+            raise OutputError(f"cannot create the lock file: {exc.strerror}", file=path) from None
+        try:
+            fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            handle.seek(0)
+            owner = handle.read().strip() or "another process"
+            handle.close()
+            raise JournalError(
+                f"another amploop run ({owner}) is using this out folder", file=self.path,
+                hint="wait for it to finish, or use another --out folder",
+            ) from None
+        try:
+            handle.seek(0)
+            handle.truncate()
+            handle.write(f"pid {os.getpid()}")
+            handle.flush()
+            yield
+        finally:
+            fcntl.flock(handle, fcntl.LOCK_UN)
+            handle.close()
 
     def write_text(self, relative: str, text: str) -> Path:
         """Write ``text`` to ``relative`` inside the folder, atomically."""

@@ -1,0 +1,193 @@
+"""The journal: every finished analysis of an out folder, in SQLite, for reuse and resume.
+
+Each analysis is keyed by a hash of everything that decides its result: the deck text,
+the simulator commands, the contents of every file the deck reads, and the journal's
+format version. A rerun of the same job therefore finds every analysis it already ran,
+and an interrupted run loses at most the analyses that were in flight.
+
+Only the coordinating process writes (WAL mode, ``synchronous=NORMAL``: survives a crash
+of the application; explicit ``BEGIN IMMEDIATE`` transactions; the connection is opened
+in the coordinator after the workers' fork server exists and is never shared with them).
+Result arrays are stored as a numpy ``.npz`` without pickles, so opening a journal from
+elsewhere can never execute code.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import sqlite3
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .errors import JournalError
+from .simulator import AnalysisOutput, AnalysisRequest
+
+__all__ = ["Journal", "analysis_key", "file_digests", "JOURNAL_SCHEMA"]
+
+#: Bump when the stored format or the meaning of a key changes; older journals are refused.
+JOURNAL_SCHEMA = 1
+_APPLICATION_ID = 0x616D706C  # "ampl"
+
+
+def file_digests(paths) -> dict[str, str]:
+    """sha256 of each file's content, by absolute path."""
+    digests = {}
+    for path in paths:
+        path = Path(path)
+        try:
+            digests[str(path)] = hashlib.sha256(path.read_bytes()).hexdigest()
+        except OSError:
+            digests[str(path)] = "missing"
+    return digests
+
+
+def analysis_key(request: AnalysisRequest, digests: dict[str, str]) -> str:
+    """The hash that identifies an analysis: deck, commands, read vectors, file contents."""
+    h = hashlib.sha256()
+    h.update(f"amploop-journal-{JOURNAL_SCHEMA}\n".encode())
+    h.update(request.deck.encode("utf-8"))
+    for step in request.steps:
+        h.update(b"\0step\0" + step.command.encode() + b"\0" + "\0".join(step.read).encode())
+    for path in sorted(digests):
+        h.update(f"\0file\0{path}\0{digests[path]}".encode())
+    for name, content in request.files:
+        h.update(f"\0bundled\0{name}\0".encode() + hashlib.sha256(content.encode()).digest())
+    return h.hexdigest()
+
+
+def _pack(output: AnalysisOutput) -> bytes:
+    arrays = {}
+    for i, reads in enumerate(output.reads):
+        for name, values in reads.items():
+            arrays[f"{i}|{name}"] = np.asarray(values)
+    arrays["__steps__"] = np.array(len(output.reads))
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays)
+    return buffer.getvalue()
+
+
+def _unpack(blob: bytes, warnings: str, transient_op: int, seconds: float) -> AnalysisOutput:
+    with np.load(io.BytesIO(blob), allow_pickle=False) as data:
+        steps = int(data["__steps__"])
+        reads: list[dict[str, np.ndarray]] = [{} for _ in range(steps)]
+        for key in data.files:
+            if key == "__steps__":
+                continue
+            index, _, name = key.partition("|")
+            reads[int(index)][name] = data[key]
+    return AnalysisOutput(reads=tuple(reads), warnings=tuple(json.loads(warnings)),
+                          transient_op=bool(transient_op), seconds=seconds)
+
+
+class Journal:
+    """The journal database of one out folder.
+
+    Parameters
+    ----------
+    path
+        The database file (created when missing).
+
+    Raises
+    ------
+    JournalError
+        If the file is not an amploop journal, is corrupt, or comes from another schema.
+    """
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        fresh = not self.path.exists() or self.path.stat().st_size == 0
+        try:
+            self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
+            self._db.execute("PRAGMA journal_mode=WAL")
+            self._db.execute("PRAGMA synchronous=NORMAL")
+            if fresh:
+                self._create()
+            self._check()
+        except sqlite3.DatabaseError as exc:
+            self._close_quietly()
+            raise JournalError(
+                f"the journal is unreadable ({exc})", file=self.path,
+                hint="move it away to start afresh, or use another --out folder",
+            ) from None
+
+    def _create(self) -> None:
+        self._db.execute("BEGIN IMMEDIATE")
+        self._db.execute(f"PRAGMA application_id={_APPLICATION_ID}")
+        self._db.execute(f"PRAGMA user_version={JOURNAL_SCHEMA}")
+        self._db.execute(
+            "CREATE TABLE analyses (key TEXT PRIMARY KEY, label TEXT NOT NULL, "
+            "created REAL NOT NULL, seconds REAL NOT NULL, ac_runs INTEGER NOT NULL, "
+            "transient_op INTEGER NOT NULL, warnings TEXT NOT NULL, data BLOB NOT NULL)"
+        )
+        self._db.execute("COMMIT")
+
+    def _check(self) -> None:
+        app = self._db.execute("PRAGMA application_id").fetchone()[0]
+        version = self._db.execute("PRAGMA user_version").fetchone()[0]
+        if app != _APPLICATION_ID:
+            raise JournalError("this file is not an amploop journal", file=self.path,
+                               hint="use another --out folder")
+        if version != JOURNAL_SCHEMA:
+            raise JournalError(
+                f"the journal has schema {version}; this amploop writes schema {JOURNAL_SCHEMA}",
+                file=self.path,
+                hint="rerun with a new --out folder (or delete the journal to start afresh)",
+            )
+        integrity = self._db.execute("PRAGMA quick_check").fetchone()[0]
+        if integrity != "ok":
+            raise JournalError(f"the journal is corrupt ({integrity})", file=self.path,
+                               hint="move it away to start afresh")
+
+    def get(self, key: str) -> AnalysisOutput | None:
+        """The stored output of analysis ``key``, or None."""
+        row = self._db.execute(
+            "SELECT data, warnings, transient_op, seconds FROM analyses WHERE key = ?", (key,)
+        ).fetchone()
+        if row is None:
+            return None
+        try:
+            return _unpack(*row)
+        except (ValueError, OSError, KeyError) as exc:
+            raise JournalError(f"a stored analysis is unreadable ({exc})", file=self.path,
+                               hint="move the journal away to start afresh") from None
+
+    def put(self, key: str, label: str, request: AnalysisRequest, output: AnalysisOutput) -> None:
+        """Record a finished analysis (one transaction; durable when this returns)."""
+        blob = _pack(output)
+        try:
+            self._db.execute("BEGIN IMMEDIATE")
+            self._db.execute(
+                "INSERT OR REPLACE INTO analyses VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                (key, label, time.time(), output.seconds, request.ac_runs,
+                 int(output.transient_op), json.dumps(list(output.warnings)), blob),
+            )
+            self._db.execute("COMMIT")
+        except sqlite3.Error as exc:
+            try:
+                self._db.execute("ROLLBACK")
+            except sqlite3.Error:
+                pass
+            raise JournalError(f"cannot record an analysis: {exc}", file=self.path,
+                               hint="is the disk full? finished analyses so far are kept") from None
+
+    def count(self) -> int:
+        return self._db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
+
+    def _close_quietly(self) -> None:
+        try:
+            self._db.close()
+        except (sqlite3.Error, AttributeError):
+            pass
+
+    def close(self) -> None:
+        self._close_quietly()
+
+    def __enter__(self) -> Journal:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()

@@ -1,0 +1,78 @@
+"""Running analyses through the journal: reuse what is recorded, simulate the rest.
+
+The one way strategies and commands run simulations, so that every analysis is recorded
+and counted the same way.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Hashable, Iterable, Iterator
+from dataclasses import dataclass, field
+
+from .errors import SimulatorError
+from .journal import Journal, analysis_key
+from .pool import WorkerPool
+from .simulator import AnalysisOutput, AnalysisRequest
+
+__all__ = ["Runner"]
+
+
+@dataclass
+class Runner:
+    """Runs analysis requests on a pool, through an optional journal.
+
+    Attributes
+    ----------
+    pool
+        The worker processes.
+    journal
+        Where finished analyses are recorded and looked up (None: no reuse).
+    digests
+        Content hashes of the files the decks read (part of every key).
+    ac_run, ac_reused
+        AC analyses simulated, and AC analyses taken from the journal.
+    """
+
+    pool: WorkerPool
+    journal: Journal | None = None
+    digests: dict[str, str] = field(default_factory=dict)
+    ac_run: int = 0
+    ac_reused: int = 0
+    analyses_run: int = 0
+
+    def run(self, items: Iterable[tuple[Hashable, AnalysisRequest]]
+            ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError, bool]]:
+        """Yield ``(tag, output or error, reused)`` for every item, as each is ready.
+
+        Recorded analyses come first (without simulating); the others run on the pool and
+        are recorded as soon as each finishes. Failed analyses are not recorded, so a
+        rerun tries them again.
+        """
+        by_key: dict[str, list[Hashable]] = {}
+        requests: dict[str, AnalysisRequest] = {}
+        for tag, request in items:
+            key = analysis_key(request, self.digests)
+            if key in by_key:
+                by_key[key].append(tag)
+                continue
+            by_key[key] = [tag]
+            requests[key] = request
+        misses = []
+        for key, request in requests.items():
+            stored = self.journal.get(key) if self.journal is not None else None
+            if stored is None:
+                misses.append((key, request))
+                continue
+            self.ac_reused += request.ac_runs * len(by_key[key])
+            for tag in by_key[key]:
+                yield tag, stored, True
+        for key, output in self.pool.run(misses):
+            request = requests[key]
+            if isinstance(output, AnalysisOutput):
+                self.analyses_run += 1
+                self.ac_run += request.ac_runs
+                self.ac_reused += request.ac_runs * (len(by_key[key]) - 1)
+                if self.journal is not None:
+                    self.journal.put(key, request.label, request, output)
+            for tag in by_key[key]:
+                yield tag, output, False
