@@ -183,3 +183,53 @@ def loop_margins(response: FrequencyResponse) -> Margins:
         phase_crossovers_hz=tuple(c[0] for c in phases),
         gain_margins_db=tuple(c[1] for c in phases),
     )
+
+
+def grid_margins(frequency_hz: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Margins of many loop gains at once, for searching: linear interpolation in log f.
+
+    Parameters
+    ----------
+    frequency_hz
+        Shape (n_f,), Hz.
+    values
+        Complex loop gains, shape (..., n_f).
+
+    Returns
+    -------
+    phase_margin_deg, unity_gain_hz, gain_margin_db
+        Each of shape ``values.shape[:-1]``: the worst phase margin over all 0 dB
+        crossings and the frequency of that crossing, and the worst gain margin. A missing
+        0 dB crossing gives NaN margin and frequency; a missing phase crossover +inf gain
+        margin. About 1e-2° coarser than :func:`loop_margins` at 40 points per decade;
+        use that one for any figure that is reported.
+    """
+    x = np.log10(np.asarray(frequency_hz, dtype=float))
+    with np.errstate(divide="ignore"):
+        m = np.log(np.abs(values))
+    m = np.where(np.isfinite(m), m, -745.0)
+    p = np.degrees(np.unwrap(np.angle(values), axis=-1))
+    m0, m1 = m[..., :-1], m[..., 1:]
+    crossing = (m0 >= 0) != (m1 >= 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(crossing, m0 / (m0 - m1), 0.0)
+    x_c = x[:-1] + t * np.diff(x)
+    pm_c = 180.0 + p[..., :-1] + t * (p[..., 1:] - p[..., :-1])
+    pm_c = np.where(crossing, pm_c, np.inf)
+    worst = np.argmin(pm_c, axis=-1)
+    pm = np.take_along_axis(pm_c, worst[..., None], axis=-1)[..., 0]
+    ugf = 10.0 ** np.take_along_axis(x_c, worst[..., None], axis=-1)[..., 0]
+    none = ~np.isfinite(pm)
+    pm = np.where(none, np.nan, pm)
+    ugf = np.where(none, np.nan, ugf)
+    # phase crossovers: the unwrapped phase passes −180° + k·360°
+    q = (p + 180.0) / 360.0
+    k0, k1 = np.floor(q[..., :-1]), np.floor(q[..., 1:])
+    phase_cross = k0 != k1
+    level = np.maximum(k0, k1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tp = np.where(phase_cross, (level - q[..., :-1]) / (q[..., 1:] - q[..., :-1]), 0.0)
+    m_at = m0 + tp * (m1 - m0)
+    gm_c = np.where(phase_cross, -20.0 / np.log(10.0) * m_at, np.inf)
+    gm = np.min(gm_c, axis=-1)
+    return pm, ugf, gm
