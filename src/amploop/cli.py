@@ -72,6 +72,15 @@ def _parser() -> argparse.ArgumentParser:
 
     commands.add_parser("measure", parents=[common], help="measure loop gain and margins",
                         description="Measure the loop gain and its margins at every corner.")
+    tune = commands.add_parser(
+        "tune", parents=[common], help="choose Cc and Rc for the target margin",
+        description="Choose Cc and Rc so that the worst corner meets the target phase margin "
+        "with the least bandwidth given away.")
+    tune.add_argument("--strategy", default="map", choices=["map", "textbook"],
+                      help="map (default): exact compensation map; textbook: the two-step "
+                      "hand procedure")
+    tune.add_argument("--resume", action="store_true",
+                      help="continue an interrupted run in the same out folder")
     return parser
 
 
@@ -168,6 +177,58 @@ def _run_measure(args) -> ExitCode:
     return ExitCode.OK
 
 
+def _tune_progress(quiet: bool, total_corners: int):
+    if quiet or not sys.stderr.isatty():
+        return None
+    best = {"pm": None}
+
+    def show(entry) -> None:
+        w = entry.worst
+        if w is not None and (best["pm"] is None or w.phase_margin_deg > best["pm"]):
+            best["pm"] = w.phase_margin_deg
+        pm = "–" if best["pm"] is None else f"{best['pm']:.2f}°"
+        sys.stderr.write(f"\r  step {entry.step:3d} ({entry.kind:<13}) {total_corners} corners, "
+                         f"{entry.ac_analyses} AC analyses, best worst-corner PM {pm}   ")
+        sys.stderr.flush()
+
+    return show
+
+
+def _run_tune(args) -> ExitCode:
+    from .job import load_job, parse_overrides
+    from .tune import tune
+
+    job = load_job(args.job)
+    if args.set:
+        raise JobError("tune chooses the compensation itself; --set is for measure",
+                       place="--set")
+    parse_overrides(args.set, job)
+    result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
+                  allow_control=args.allow_control, resume=args.resume,
+                  progress=_tune_progress(args.quiet, len(job.corners)))
+    if not args.quiet and sys.stderr.isatty():
+        sys.stderr.write("\n")
+    data = result.as_json()
+    if args.json:
+        print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
+                                               "limiting_corner", "worst", "ac_analyses")}
+                         | {"message": result.outcome.message, "out": str(result.out)}))
+    elif not args.quiet:
+        values = ", ".join(f"{k} = {engineering(v, 'F' if k == 'cc' else 'Ω', 4)}"
+                           for k, v in result.outcome.values.items())
+        print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
+        print(corner_table(result.corners))
+        print(result.outcome.message)
+        print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, "
+              f"{len(result.history)} points in {result.seconds:.1f} s; results in {result.out}")
+        if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
+            print(f"compensated netlist: {data['compensated_netlist']['path']}")
+    if result.status == "converged":
+        return ExitCode.OK
+    print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)
+    return ExitCode.INFEASIBLE if result.status == "infeasible" else ExitCode.SIMULATOR_FAILURE
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``amploop`` command; returns the exit code."""
     parser = _parser()
@@ -177,6 +238,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "measure":
             return int(_run_measure(args))
+        if args.command == "tune":
+            return int(_run_tune(args))
         parser.error(f"unknown command {args.command}")
     except AmploopError as error:
         print(f"amploop: error: {error}", file=sys.stderr)

@@ -1,0 +1,231 @@
+"""What every tuning strategy shares: simulating points at all corners, worst cases, history.
+
+A *point* is a set of compensation values by role (``{"cc": 1.2e-12, "rc": 900.0}``).
+The :class:`Evaluator` simulates points at every corner through the runner (so every
+analysis is journalled and counted), and records each simulated point in the history.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..amplifier import Amplifier
+from ..errors import SimulatorError
+from ..job import Corner, Knob, Target
+from ..loopgain import FrequencyResponse
+from ..measure import CornerResult, result_from_output
+from ..runner import Runner
+from ..simulator import AnalysisOutput, Step
+from ..testbench import build_testbench
+
+__all__ = ["WorstCase", "PointResult", "HistoryEntry", "Evaluator", "Outcome", "worst_case",
+           "meets_target", "bounds_of"]
+
+
+@dataclass(frozen=True)
+class WorstCase:
+    """The worst corner figures of one point.
+
+    Attributes
+    ----------
+    phase_margin_deg
+        The smallest phase margin over the corners.
+    unity_gain_hz
+        The smallest unity-gain frequency over the corners (the bandwidth that is sure).
+    gain_margin_db
+        The smallest gain margin, None when no corner reaches −180°.
+    limiting_corner
+        The corner with the smallest phase margin.
+    bandwidth_corner
+        The corner with the smallest unity-gain frequency.
+    """
+
+    phase_margin_deg: float
+    unity_gain_hz: float
+    gain_margin_db: float | None
+    limiting_corner: str
+    bandwidth_corner: str
+
+
+def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
+    """The worst figures over corners, or None if any corner did not measure."""
+    if not corners or any(c.status != "ok" or c.margins is None for c in corners):
+        return None
+    by_pm = min(corners, key=lambda c: c.margins.phase_margin_deg)
+    by_ugf = min(corners, key=lambda c: c.margins.unity_gain_hz)
+    gms = [c.margins.gain_margin_db for c in corners if c.margins.gain_margin_db is not None]
+    return WorstCase(
+        phase_margin_deg=float(by_pm.margins.phase_margin_deg),
+        unity_gain_hz=float(by_ugf.margins.unity_gain_hz),
+        gain_margin_db=min(gms) if gms else None,
+        limiting_corner=by_pm.corner.name,
+        bandwidth_corner=by_ugf.corner.name,
+    )
+
+
+def meets_target(worst: WorstCase | None, target: Target) -> bool:
+    """Worst phase margin at or above the target and gain margin at or above its minimum."""
+    if worst is None or worst.phase_margin_deg < target.phase_margin_deg:
+        return False
+    if target.gain_margin_db is not None and worst.gain_margin_db is not None:
+        return worst.gain_margin_db >= target.gain_margin_db
+    return True
+
+
+@dataclass(frozen=True)
+class PointResult:
+    """One point simulated at every corner."""
+
+    values: dict[str, float]
+    corners: tuple[CornerResult, ...]
+
+    @property
+    def worst(self) -> WorstCase | None:
+        return worst_case(self.corners)
+
+    @property
+    def errors(self) -> list[CornerResult]:
+        return [c for c in self.corners if c.status != "ok"]
+
+
+@dataclass(frozen=True)
+class HistoryEntry:
+    """One simulated point in the story of a tuning run."""
+
+    step: int
+    kind: str
+    values: dict[str, float]
+    worst: WorstCase | None
+    ac_analyses: int  # AC analyses (run + reused) so far, this point included
+    note: str = ""
+
+    def as_json(self) -> dict:
+        w = self.worst
+        return {
+            "step": self.step,
+            "kind": self.kind,
+            "values": dict(self.values),
+            "worst_phase_margin_deg": w and w.phase_margin_deg,
+            "worst_unity_gain_hz": w and w.unity_gain_hz,
+            "worst_gain_margin_db": w and w.gain_margin_db,
+            "limiting_corner": w and w.limiting_corner,
+            "ac_analyses": self.ac_analyses,
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What a strategy returns.
+
+    ``status`` is ``"converged"``, ``"infeasible"`` or ``"failed"``; ``final`` is the
+    verified (simulated) point the status is about; ``message`` explains in one sentence.
+    """
+
+    status: str
+    values: dict[str, float]
+    final: PointResult | None
+    message: str
+    extra: dict = field(default_factory=dict)
+
+
+def bounds_of(knob: Knob | None, fallback: float) -> tuple[float, float]:
+    """(min, max) of a knob, SI; a knob without bounds is fixed at ``fallback``."""
+    if knob is None:
+        return fallback, fallback
+    low = knob.minimum if knob.minimum is not None else fallback
+    high = knob.maximum if knob.maximum is not None else fallback
+    return low, high
+
+
+class Evaluator:
+    """Simulates compensation points at every corner, through the journal.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier.
+    corners
+        The corners to simulate at.
+    runner
+        Runs analyses through the journal and the worker pool.
+    time_limit_s
+        Per-analysis time limit.
+    """
+
+    def __init__(self, amplifier: Amplifier, corners: tuple[Corner, ...], runner: Runner,
+                 time_limit_s: float) -> None:
+        self.amplifier = amplifier
+        self.corners = corners
+        self.runner = runner
+        self.time_limit_s = time_limit_s
+        self.history: list[HistoryEntry] = []
+        self.loop_gains: dict[tuple[int, str], FrequencyResponse] = {}
+        self.progress = None  # callable(history_entry) or None
+
+    @property
+    def ac_analyses(self) -> int:
+        return self.runner.ac_run + self.runner.ac_reused
+
+    def full_values(self, values: dict[str, float]) -> dict[str, float]:
+        return self.amplifier.values_in_effect(values)
+
+    def simulate(self, points: list[dict[str, float]], kind: str, note: str = ""
+                 ) -> list[PointResult]:
+        """Simulate every point at every corner in one parallel batch; record history."""
+        points = [self.full_values(p) for p in points]
+        benches = {}
+        for i, values in enumerate(points):
+            for corner in self.corners:
+                label = f"{corner.name} @ " + " ".join(f"{k}={v:.4g}" for k, v in values.items())
+                benches[(i, corner.name)] = build_testbench(self.amplifier, corner, values,
+                                                            label=label)
+        results: dict[tuple[int, str], CornerResult] = {}
+        before = self.ac_analyses
+        requests = [(key, b.request(self.time_limit_s)) for key, b in benches.items()]
+        for key, output, _ in self.runner.run(requests):
+            results[key] = result_from_output(benches[key], output, self.amplifier)
+        out = []
+        per_point = (self.ac_analyses - before) / max(len(points), 1)
+        for i, values in enumerate(points):
+            corners = tuple(results[(i, c.name)] for c in self.corners)
+            point = PointResult(values=values, corners=corners)
+            out.append(point)
+            entry = HistoryEntry(step=len(self.history) + 1, kind=kind, values=values,
+                                 worst=point.worst, ac_analyses=round(before + per_point * (i + 1)),
+                                 note=note)
+            self.history.append(entry)
+            for c in corners:
+                if c.loop_gain is not None:
+                    self.loop_gains[(entry.step, c.corner.name)] = c.loop_gain
+            if self.progress is not None:
+                self.progress(entry)
+        return out
+
+    def device_quantities(self, quantities: dict[str, str], values: dict[str, float]
+                          ) -> dict[str, dict[str, float]]:
+        """Operating-point quantities per corner, e.g. ``{"gm1": "@m.x1.m1[gm]"}``.
+
+        Runs an ``op`` (no AC) per corner; raises SimulatorError naming the corner when a
+        quantity cannot be read.
+        """
+        values = self.full_values(values)
+        names = list(quantities)
+        steps = [Step("op")]
+        for name in names:
+            steps.append(Step(f"let amploop_{name} = {quantities[name]}", (f"amploop_{name}",)))
+        benches = {}
+        for corner in self.corners:
+            bench = build_testbench(self.amplifier, corner, values, label=f"{corner.name} (op)")
+            deck_only = bench.request(self.time_limit_s)
+            benches[corner.name] = type(deck_only)(label=deck_only.label, deck=deck_only.deck,
+                                                   steps=tuple(steps),
+                                                   time_limit_s=self.time_limit_s)
+        found: dict[str, dict[str, float]] = {}
+        for name, output, _ in self.runner.run(list(benches.items())):
+            if isinstance(output, SimulatorError):
+                raise SimulatorError(output.problem, place=name)
+            assert isinstance(output, AnalysisOutput)
+            found[name] = {q: float(output.reads[1 + k][f"amploop_{q}"].real[0])
+                           for k, q in enumerate(names)}
+        return found

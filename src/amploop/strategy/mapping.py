@@ -1,0 +1,144 @@
+"""The ``map`` strategy: characterise each corner three times, solve on the maps, verify.
+
+1. Simulate every corner at three branch impedances that differ in Cc (spread over the Cc
+   bounds, at one Rc): three double-injection analyses per corner.
+2. Build each corner's :class:`~amploop.compmap.CompensationMap` and solve the whole
+   multi-corner problem on them (:func:`~.mapsolve.solve_on_maps`).
+3. Simulate every corner at the chosen point. If a verified margin differs from the
+   prediction by more than a tenth of the tolerance (an operating point that moved, a
+   triode device, a parasitic the map does not hold), characterise again around the point
+   and repeat, up to ``max_rounds``. The reported margins are always the verified ones.
+"""
+
+from __future__ import annotations
+
+import math
+
+from ..compmap import CompensationMap
+from ..job import Target
+from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
+from .mapsolve import MapSolution, solve_on_maps
+
+__all__ = ["tune_by_map", "initial_samples"]
+
+
+def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dict[str, float]]:
+    """Three Cc values spread over the bounds (geometric quarter points) at one Rc."""
+    low, high = cc_bounds
+    if high <= low:
+        centre = low
+        return [{"cc": centre * f, "rc": rc_value} for f in (0.8, 1.0, 1.25)]
+    span = math.log(high / low)
+    return [{"cc": low * math.exp(span * q), "rc": rc_value} for q in (0.15, 0.5, 0.85)]
+
+
+def samples_around(cc: float, rc: float, cc_bounds) -> list[dict[str, float]]:
+    """Three Cc values close around a point (±20 %), kept inside the bounds."""
+    low, high = cc_bounds
+    values = []
+    for factor in (0.8, 1.0, 1.25):
+        values.append(min(max(cc * factor, low), high))
+    if len(set(values)) < 3:  # squeezed against a bound
+        values = [cc, cc * 1.1, cc * 1.21] if cc * 1.21 <= high else [cc / 1.21, cc / 1.1, cc]
+    return [{"cc": v, "rc": rc} for v in values]
+
+
+def _maps(evaluator: Evaluator, results: list[PointResult]) -> dict[str, CompensationMap]:
+    maps = {}
+    for index, corner in enumerate(evaluator.corners):
+        samples = [(p.values["cc"], p.values["rc"]) for p in results]
+        responses = [p.corners[index].loop_gain for p in results]
+        maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
+    return maps
+
+
+def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) -> Outcome:
+    """Run the map strategy; see the module docstring.
+
+    Returns
+    -------
+    Outcome
+        ``converged`` with verified margins meeting the target; ``infeasible`` (verified)
+        when no point within the bounds meets it; ``failed`` when corners do not simulate
+        or verification keeps disagreeing with the maps.
+    """
+    knobs = evaluator.amplifier.job.compensation
+    in_effect = evaluator.full_values({})
+    cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])
+    rc_now = in_effect.get("rc", 0.0)
+    rc_bounds = bounds_of(knobs.get("rc"), rc_now)
+    rc_sample = min(max(rc_now, rc_bounds[0]), rc_bounds[1])
+    aim = target.phase_margin_deg + 0.1 * target.tolerance_deg
+    agreement = target.tolerance_deg / 10.0
+
+    samples = initial_samples(cc_bounds, rc_sample)
+    solution: MapSolution | None = None
+    verified: PointResult | None = None
+    predictions = []
+    for round_number in range(1, max_rounds + 1):
+        characterised = evaluator.simulate(samples, kind="characterise",
+                                           note=f"round {round_number}")
+        failed = [c for p in characterised for c in p.errors]
+        if failed:
+            first = failed[0]
+            return Outcome("failed", in_effect, characterised[0],
+                           f"corner {first.corner.name} did not simulate: {first.error}")
+        maps = _maps(evaluator, characterised)
+        solution = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        # 4 significant digits: what a designer writes into the netlist, and what is verified
+        point = {"cc": _round(solution.cc, cc_bounds)}
+        if "rc" in in_effect:
+            point["rc"] = _round(solution.rc, rc_bounds)
+        verified = evaluator.simulate([point], kind="verify",
+                                      note=f"round {round_number}")[0]
+        predictions.append(solution)
+        worst = verified.worst
+        if worst is None:
+            first = verified.errors[0]
+            return Outcome("failed", verified.values, verified,
+                           f"corner {first.corner.name} did not simulate: {first.error}")
+        if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
+            break
+        samples = samples_around(solution.cc, solution.rc, cc_bounds)
+    assert solution is not None and verified is not None
+    worst = verified.worst
+    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
+    if not solution.feasible:
+        return Outcome(
+            "infeasible", verified.values, verified,
+            f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
+            f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
+            f"(corner {worst.limiting_corner}) at " + _describe(verified.values),
+            extra,
+        )
+    if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
+        return Outcome(
+            "failed", verified.values, verified,
+            f"the maps and the simulation still disagree by "
+            f"{abs(worst.phase_margin_deg - solution.phase_margin_deg):.2f}° after "
+            f"{len(predictions)} rounds (does the operating point depend on Cc or Rc?)", extra,
+        )
+    if not meets_target(worst, target):
+        return Outcome("failed", verified.values, verified,
+                       f"the verified worst-corner phase margin {worst.phase_margin_deg:.2f}° "
+                       f"misses the target {target.phase_margin_deg:g}°", extra)
+    return Outcome("converged", verified.values, verified,
+                   f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
+                   f"(corner {worst.limiting_corner}) at " + _describe(verified.values), extra)
+
+
+def _round(value: float, bounds: tuple[float, float]) -> float:
+    """``value`` to 4 significant digits, kept inside ``bounds``."""
+    rounded = float(f"{value:.4g}")
+    return min(max(rounded, bounds[0]), bounds[1])
+
+
+def _describe(values: dict[str, float]) -> str:
+    from ..units import engineering
+
+    parts = []
+    if "cc" in values:
+        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
+    if "rc" in values:
+        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
+    return ", ".join(parts)

@@ -1,0 +1,156 @@
+"""Solving the multi-corner compensation problem on compensation maps, in numpy.
+
+Given one :class:`~amploop.compmap.CompensationMap` per corner, find the (Cc, Rc) within
+the bounds that maximises the worst-corner unity-gain frequency subject to worst-corner
+phase margin ≥ the aim and gain margin ≥ its minimum. A coarse grid over the bounds
+(log-spaced Cc; Rc log-spaced with 0 added when the lower bound is 0) is searched with
+the vectorised :func:`~amploop.margins.grid_margins`, then three zoom levels refine around
+the best point; the final figures come from the exact :func:`~amploop.margins.loop_margins`.
+When no point is feasible, the same search minimises the shortfall instead.
+Pure functions: no files, no simulator.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..compmap import CompensationMap
+from ..margins import grid_margins, loop_margins
+
+__all__ = ["MapSolution", "solve_on_maps", "cc_grid", "rc_grid", "predicted_worst"]
+
+
+@dataclass(frozen=True)
+class MapSolution:
+    """The best point found on the maps, with its predicted worst-corner figures."""
+
+    cc: float
+    rc: float
+    feasible: bool
+    phase_margin_deg: float
+    unity_gain_hz: float
+    gain_margin_db: float | None
+    limiting_corner: str
+
+
+def cc_grid(low: float, high: float, n: int) -> np.ndarray:
+    """Log-spaced capacitances (F) over [low, high]; one value when the bounds are equal."""
+    if high <= low:
+        return np.array([low])
+    return np.geomspace(low, high, n)
+
+
+def rc_grid(low: float, high: float, n: int) -> np.ndarray:
+    """Resistances (Ω) over [low, high]: log-spaced, with ``low`` itself when it is 0."""
+    if high <= low:
+        return np.array([low])
+    if low <= 0:
+        return np.concatenate([[0.0], np.geomspace(max(high * 1e-4, 1e-3), high, n - 1)])
+    return np.geomspace(low, high, n)
+
+
+def _worst_on_grid(maps: dict[str, CompensationMap], cc: np.ndarray, rc: np.ndarray):
+    """Worst-corner PM (deg), UGF (Hz), GM (dB) on the cc × rc grid, and the PM corner."""
+    shape = (cc.size, rc.size)
+    pm_w = np.full(shape, np.inf)
+    ugf_w = np.full(shape, np.inf)
+    gm_w = np.full(shape, np.inf)
+    limiting = np.zeros(shape, dtype=int)
+    for index, cmap in enumerate(maps.values()):
+        values = cmap.loop_gain_values(cc[:, None], rc[None, :])
+        pm, ugf, gm = grid_margins(cmap.frequency_hz, values)
+        pm = np.where(np.isnan(pm), -np.inf, pm)
+        ugf = np.where(np.isnan(ugf), 0.0, ugf)
+        limiting = np.where(pm < pm_w, index, limiting)
+        pm_w = np.minimum(pm_w, pm)
+        ugf_w = np.minimum(ugf_w, ugf)
+        gm_w = np.minimum(gm_w, gm)
+    return pm_w, ugf_w, gm_w, limiting
+
+
+def _score(pm_w, ugf_w, gm_w, aim_pm: float, gm_min: float | None):
+    """Feasible mask and a score to maximise (UGF where feasible, −shortfall otherwise)."""
+    gm_ok = np.ones_like(pm_w, dtype=bool) if gm_min is None else gm_w >= gm_min
+    feasible = (pm_w >= aim_pm) & gm_ok & (ugf_w > 0)
+    shortfall = np.maximum(aim_pm - pm_w, 0.0)
+    if gm_min is not None:
+        shortfall = np.maximum(shortfall, np.where(np.isfinite(gm_w), gm_min - gm_w, 0.0))
+    return feasible, shortfall
+
+
+def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min):
+    feasible, shortfall = _score(pm_w, ugf_w, gm_w, aim_pm, gm_min)
+    if feasible.any():
+        score = np.where(feasible, ugf_w, -np.inf)
+        return np.unravel_index(np.argmax(score), score.shape), True
+    # nothing feasible: least shortfall, then the largest phase margin
+    score = -shortfall * 1e3 + np.where(np.isfinite(pm_w), pm_w, -1e9) * 1e-3
+    return np.unravel_index(np.argmax(score), score.shape), False
+
+
+def predicted_worst(maps: dict[str, CompensationMap], cc: float, rc: float):
+    """Exact worst-corner (PM deg, UGF Hz, GM dB or None, limiting corner) at one point."""
+    worst_pm, worst_ugf, worst_gm, limiting = np.inf, np.inf, None, ""
+    for name, cmap in maps.items():
+        m = loop_margins(cmap.loop_gain(cc, rc))
+        pm = m.phase_margin_deg if m.phase_margin_deg is not None else -np.inf
+        ugf = m.unity_gain_hz if m.unity_gain_hz is not None else 0.0
+        if pm < worst_pm:
+            worst_pm, limiting = pm, name
+        worst_ugf = min(worst_ugf, ugf)
+        if m.gain_margin_db is not None:
+            worst_gm = m.gain_margin_db if worst_gm is None else min(worst_gm, m.gain_margin_db)
+    return float(worst_pm), float(worst_ugf), worst_gm, limiting
+
+
+def solve_on_maps(
+    maps: dict[str, CompensationMap],
+    cc_bounds: tuple[float, float],
+    rc_bounds: tuple[float, float],
+    aim_pm: float,
+    gm_min: float | None = None,
+    *,
+    points: int = 41,
+    zooms: int = 3,
+) -> MapSolution:
+    """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    cc_bounds, rc_bounds
+        (min, max) in F and Ω; equal bounds fix the value.
+    aim_pm
+        Worst-corner phase margin to reach, degrees.
+    gm_min
+        Worst-corner gain margin to reach, dB (None: no constraint).
+    points
+        Grid points per axis for the coarse search.
+    zooms
+        Refinement levels around the best grid point (11 × 11 each).
+
+    Returns
+    -------
+    MapSolution
+        ``feasible`` False means no grid point met the constraints; the point returned then
+        has the least shortfall (the best worst-corner margin reachable).
+    """
+    cc = cc_grid(*cc_bounds, points)
+    rc = rc_grid(*rc_bounds, points)
+    (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc)[:3], aim_pm, gm_min)
+    best_cc, best_rc = float(cc[i]), float(rc[j])
+    for _ in range(zooms):
+        cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
+        rc_lo, rc_hi = rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)]
+        cc = np.unique(np.concatenate([np.geomspace(cc_lo, cc_hi, 11) if cc_hi > cc_lo
+                                       else [cc_lo], [best_cc]]))
+        rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 11) if rc_hi > rc_lo
+                                       else [rc_lo], [best_rc]]))
+        (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc)[:3], aim_pm, gm_min)
+        best_cc, best_rc = float(cc[i]), float(rc[j])
+    pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc)
+    return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
+                       unity_gain_hz=ugf, gain_margin_db=gm, limiting_corner=limiting)

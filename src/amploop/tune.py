@@ -1,0 +1,199 @@
+"""``amploop tune``: choose Cc and Rc so the worst corner meets the target margin.
+
+Callable from Python as :func:`tune`. Every analysis goes through the out folder's
+journal, so a rerun (or ``--resume``) of the same job repeats none that finished; the
+strategies are deterministic, so the rerun retraces the same steps and lands on the same
+values.
+"""
+
+from __future__ import annotations
+
+import difflib
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+from .amplifier import Amplifier, prepare_amplifier
+from .errors import JobError, JournalError
+from .job import Job
+from .journal import Journal, file_digests
+from .measure import JOURNAL_FILE, SCHEMA, CornerResult, corner_files
+from .outputs import OutFolder
+from .pool import WorkerPool
+from .runner import Runner
+from .strategy import STRATEGIES, Evaluator, Outcome
+from .strategy.common import HistoryEntry
+
+__all__ = ["TuneResult", "tune"]
+
+
+@dataclass(frozen=True)
+class TuneResult:
+    """A finished tuning run."""
+
+    job: Job
+    strategy: str
+    outcome: Outcome
+    history: tuple[HistoryEntry, ...]
+    ac_run: int
+    ac_reused: int
+    out: Path | None
+    seconds: float
+    compensated: dict | None = None
+    loop_gains: dict | None = None
+
+    @property
+    def status(self) -> str:
+        return self.outcome.status
+
+    @property
+    def corners(self) -> tuple[CornerResult, ...]:
+        return self.outcome.final.corners if self.outcome.final else ()
+
+    def as_json(self) -> dict:
+        target = self.job.target
+        worst = self.outcome.final.worst if self.outcome.final else None
+        return {
+            "schema": SCHEMA,
+            "command": "tune",
+            "job": self.job.name,
+            "strategy": self.strategy,
+            "status": self.status,
+            "message": self.outcome.message,
+            "values": dict(self.outcome.values),
+            "target": {
+                "phase_margin_deg": target.phase_margin_deg,
+                "tolerance_deg": target.tolerance_deg,
+                "gain_margin_db": target.gain_margin_db,
+            },
+            "corners": [c.as_json() for c in self.corners],
+            "limiting_corner": worst.limiting_corner if worst else None,
+            "worst": None if worst is None else {
+                "phase_margin_deg": worst.phase_margin_deg,
+                "unity_gain_hz": worst.unity_gain_hz,
+                "gain_margin_db": worst.gain_margin_db,
+                "bandwidth_corner": worst.bandwidth_corner,
+            },
+            "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+            "history": [h.as_json() for h in self.history],
+            "compensated_netlist": self.compensated,
+            "seconds": self.seconds,
+        }
+
+
+def compensated_netlist(amplifier: Amplifier, values: dict[str, float], folder: OutFolder
+                        ) -> dict:
+    """Write copies of the changed netlist files with ``values`` in; return path(s) and diff."""
+    changed = amplifier.compensated_files(values)
+    written = []
+    diffs = []
+    for path, text in changed.items():
+        target = folder.write_text(f"compensated/{path.name}", text)
+        written.append(str(target))
+        original = path.read_text(encoding="utf-8", errors="replace").splitlines(keepends=True)
+        diffs.extend(difflib.unified_diff(original, text.splitlines(keepends=True),
+                                          fromfile=str(path), tofile=str(target)))
+    root_copy = folder.path / "compensated" / amplifier.netlist.root.name
+    return {
+        "path": str(root_copy) if str(root_copy) in written else (written[0] if written else None),
+        "files": written,
+        "diff": "".join(diffs),
+    }
+
+
+def tune(
+    job: Job,
+    *,
+    out: str | Path,
+    strategy: str = "map",
+    workers: int | None = None,
+    pool: WorkerPool | None = None,
+    allow_control: bool = False,
+    resume: bool = False,
+    progress: Callable[[HistoryEntry], None] | None = None,
+) -> TuneResult:
+    """Tune the compensation of ``job`` at all its corners.
+
+    Parameters
+    ----------
+    job
+        A loaded job with a ``[target]`` table and bounds on its compensation.
+    out
+        The out folder (results.json, journal, compensated netlist, decks).
+    strategy
+        ``"map"`` (default) or ``"textbook"``.
+    workers, pool
+        Worker processes (default: the CPU count), or an existing pool.
+    allow_control
+        Accept ``.control`` blocks in the user's files.
+    resume
+        Require an existing journal in ``out`` (a rerun without it reuses one too).
+    progress
+        Called after every simulated point with its history entry.
+
+    Returns
+    -------
+    TuneResult
+        Its ``status`` is "converged", "infeasible" or "failed"; the figures are from the
+        final verifying simulation.
+    """
+    if job.target is None:
+        raise JobError("tuning needs a [target] table (phase_margin, tolerance, gain_margin)",
+                       file=job.path, place="[target]")
+    if "cc" not in job.compensation or job.compensation["cc"].minimum is None or \
+            job.compensation["cc"].maximum is None:
+        raise JobError("tuning needs bounds on Cc: cc = { ..., min = \"0.1p\", max = \"20p\" }",
+                       file=job.path, place="[compensation].cc")
+    rc_knob = job.compensation.get("rc")
+    if rc_knob is not None and (rc_knob.minimum is None or rc_knob.maximum is None):
+        raise JobError("tuning needs bounds on Rc: rc = { ..., min = \"0\", max = \"50k\" }",
+                       file=job.path, place="[compensation].rc")
+    if strategy not in STRATEGIES:
+        from .errors import did_you_mean
+
+        raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
+    started = time.perf_counter()
+    amplifier = prepare_amplifier(job, allow_control=allow_control)
+    folder = OutFolder(out)
+    journal_path = folder.path / JOURNAL_FILE
+    if resume and not journal_path.exists():
+        raise JournalError("nothing to resume: this out folder has no journal", file=folder.path,
+                           hint="run without --resume to start")
+    with folder.lock(), Journal(journal_path) as journal:
+        own_pool = pool is None
+        pool = pool or WorkerPool(workers)
+        runner = Runner(pool, journal, file_digests(amplifier.files))
+        evaluator = Evaluator(amplifier, job.corners, runner, job.analysis.time_limit_s)
+        evaluator.progress = progress
+        try:
+            outcome = STRATEGIES[strategy](evaluator, job.target)
+        finally:
+            if own_pool:
+                pool.close()
+        compensated = None
+        if outcome.final is not None:
+            compensated = compensated_netlist(amplifier, outcome.values, folder)
+            _write_final_files(folder, amplifier, outcome)
+        result = TuneResult(job=job, strategy=strategy, outcome=outcome,
+                            history=tuple(evaluator.history), ac_run=runner.ac_run,
+                            ac_reused=runner.ac_reused, out=folder.path,
+                            seconds=time.perf_counter() - started, compensated=compensated,
+                            loop_gains=dict(evaluator.loop_gains))
+        folder.write_json("results.json", result.as_json())
+    return result
+
+
+def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> None:
+    """Per-corner loop-gain CSVs and rerunnable decks at the final values."""
+    from .testbench import build_testbench
+
+    stems = corner_files(amplifier.job.corners)
+    for corner_result in outcome.final.corners:
+        name = corner_result.corner.name
+        bench = build_testbench(amplifier, corner_result.corner, outcome.values)
+        folder.write_text(f"decks/{stems[name]}.cir",
+                          bench.hand_deck(data_file=f"{stems[name]}-loop_gain.txt"))
+        if corner_result.loop_gain is not None:
+            folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", corner_result.loop_gain)
+
