@@ -13,9 +13,15 @@ from .units import SCALE_SUFFIXES
 
 __all__ = ["evaluate"]
 
+
+def _pwr(base: float, exponent: float) -> float:
+    """ngspice 39's ``pwr(x, y)`` and ``x^y`` / ``x**y`` in expressions: ``|x|**y``."""
+    return math.pow(abs(base), exponent)
+
+
 _FUNCTIONS = {
     "sqrt": math.sqrt, "exp": math.exp, "log": math.log, "ln": math.log, "log10": math.log10,
-    "abs": abs, "min": min, "max": max, "pow": math.pow, "pwr": math.pow,
+    "abs": abs, "min": min, "max": max, "pow": math.pow, "pwr": _pwr,
 }
 _CONSTANTS = {"pi": math.pi, "e": math.e}
 
@@ -41,19 +47,29 @@ def evaluate(expression: str, params: dict[str, str] | None = None, _depth: int 
     ----------
     expression
         A SPICE number or arithmetic expression: ``+ - * / ^ **``, parentheses, the
-        functions sqrt exp log ln log10 abs min max pow, and parameter names.
+        functions sqrt exp log ln log10 abs min max pow pwr, and parameter names.
+        Operators follow ngspice 39: ``^`` and ``**`` bind tighter than a sign
+        (``-2^2 == -4``), group from the left (``2^3^2 == 64``) and take the magnitude of
+        the base, like ``pwr`` (``(-2)^3 == 8``); ``pow`` is the plain power.
     params
         Parameter name (case-insensitive) -> expression text, looked up recursively.
 
     Raises
     ------
     ValueError
-        On anything else (unknown name, syntax error, a loop in the definitions).
+        On anything else (unknown name, syntax error, a loop in the definitions, a
+        result out of range).
     """
-    if _depth > 50:
-        raise ValueError("parameters defined in terms of each other in a loop")
     lowered = {k.lower(): v for k, v in (params or {}).items()}
-    text = expression.strip()
+    return _evaluate(expression, lowered, _depth, ())
+
+
+def _evaluate(expression: str, lowered: dict[str, str], depth: int,
+              chain: tuple[str, ...]) -> float:
+    """:func:`evaluate` with lower-case ``params`` and the names being evaluated (``chain``)."""
+    if depth > 50:
+        raise ValueError("parameters nested too deeply (more than 50 levels)")
+    text = str(expression).strip()
     if len(text) >= 2 and (text[0], text[-1]) in {("{", "}"), ("'", "'"), ('"', '"')}:
         text = text[1:-1]
     tokens: list[tuple[str, str]] = []
@@ -67,18 +83,24 @@ def evaluate(expression: str, params: dict[str, str] | None = None, _depth: int 
         kind = match.lastgroup
         tokens.append((kind, match.group(kind)))
         position = match.end()
-    parser = _Parser(tokens, lowered, _depth)
-    value = parser.expression()
+    parser = _Parser(tokens, lowered, depth, chain)
+    try:
+        value = parser.expression()
+    except OverflowError:
+        raise ValueError(f"{text!r} is out of range") from None
     if parser.position != len(tokens):
         raise ValueError(f"unexpected {tokens[parser.position][1]!r}")
+    if not math.isfinite(value):
+        raise ValueError(f"{text!r} is not a finite number")
     return value
 
 
 class _Parser:
-    def __init__(self, tokens, params, depth):
+    def __init__(self, tokens, params, depth, chain=()):
         self.tokens = tokens
         self.params = params
         self.depth = depth
+        self.chain = chain
         self.position = 0
 
     def peek(self) -> str | None:
@@ -116,11 +138,19 @@ class _Parser:
         return self.power()
 
     def power(self) -> float:
-        base = self.atom()
-        if self.peek() in ("**", "^"):
+        value = self.atom()
+        while self.peek() in ("**", "^"):  # left to right, as ngspice 39 groups them
             self.take()
-            return math.pow(base, self.unary())
-        return base
+            value = _pwr(value, self.signed_atom())
+        return value
+
+    def signed_atom(self) -> float:
+        """An exponent: ``2^-1`` is 0.5."""
+        if self.peek() in ("+", "-"):
+            op = self.take()[1]
+            value = self.signed_atom()
+            return -value if op == "-" else value
+        return self.atom()
 
     def atom(self) -> float:
         kind, text = self.take()
@@ -143,9 +173,18 @@ class _Parser:
                     args.append(self.expression())
                 if self.take()[1] != ")":
                     raise ValueError("missing ')'")
-                return float(_FUNCTIONS[name](*args))
+                try:
+                    return float(_FUNCTIONS[name](*args))
+                except TypeError:
+                    raise ValueError(f"{text}() does not take {len(args)} argument(s)") from None
+                except ValueError:
+                    raise ValueError(f"{text}({', '.join(map(repr, args))}) is undefined") from None
             if name in self.params:
-                return evaluate(self.params[name], self.params, self.depth + 1)
+                if name in self.chain:
+                    loop = " -> ".join((*self.chain[self.chain.index(name):], name))
+                    raise ValueError(f"parameters defined in terms of each other in a loop: {loop}")
+                return _evaluate(self.params[name], self.params, self.depth + 1,
+                                 (*self.chain, name))
             if name in _CONSTANTS:
                 return _CONSTANTS[name]
             raise ValueError(f"unknown parameter {text!r}")

@@ -73,7 +73,11 @@ class LogicalLine:
 
 
 def _strip_inline_comment(line: str) -> str:
-    """Drop an end-of-line comment: ``;`` anywhere, ``$`` or ``//`` after blank space."""
+    """Drop an end-of-line comment as ngspice 39 does outside ``.control``.
+
+    ``;`` and ``//`` start a comment anywhere, ``$`` when it starts the line or follows a
+    blank or a comma (``1k$x`` is not a comment). Quoted text and ``{...}`` are skipped.
+    """
     depth = 0
     quote = ""
     for i, ch in enumerate(line):
@@ -90,10 +94,9 @@ def _strip_inline_comment(line: str) -> str:
         elif depth == 0:
             if ch == ";":
                 return line[:i]
-            before_blank = i == 0 or line[i - 1] in " \t"
-            if ch == "$" and before_blank:
+            if ch == "$" and (i == 0 or line[i - 1] in " \t,"):
                 return line[:i]
-            if ch == "/" and line[i : i + 2] == "//" and before_blank:
+            if ch == "/" and line[i : i + 2] == "//":
                 return line[:i]
     return line
 
@@ -167,6 +170,8 @@ def tokenize(text: str) -> list[str]:
     ``name = value`` is normalised to ``name=value`` so parameters read the same however
     they were spaced. Parentheses around a ``.model`` parameter list become blank space.
     """
+    if text.lstrip()[:6].lower() == ".model":
+        text = _unwrap_model_parentheses(text)
     tokens: list[str] = []
     current = ""
     stack: list[str] = []
@@ -208,6 +213,48 @@ def tokenize(text: str) -> list[str]:
         joined.append(token)
         i += 1
     return joined
+
+
+def _unwrap_model_parentheses(text: str) -> str:
+    """``.model n nmos (level=1 ...)`` -> ``.model n nmos  level=1 ... ``: the outer group only."""
+    quote = ""
+    braces = 0
+    parens = 0
+    opened = -1
+    for i, ch in enumerate(text):
+        if quote:
+            if ch == quote:
+                quote = ""
+        elif ch in "'\"":
+            quote = ch
+        elif ch == "{":
+            braces += 1
+        elif ch == "}":
+            braces = max(0, braces - 1)
+        elif braces == 0 and ch == "(":
+            if parens == 0:
+                opened = i
+            parens += 1
+        elif braces == 0 and ch == ")" and parens > 0:
+            parens -= 1
+            if parens == 0:
+                return text[:opened] + " " + text[opened + 1 : i] + " " + text[i + 1 :]
+    return text
+
+
+def _is_assignment(token: str) -> bool:
+    """``name=value`` (not an expression such as ``{a>=b?1p:2p}`` that holds an ``=``)."""
+    return _ASSIGNMENT.match(token) is not None
+
+
+_ASSIGNMENT = re.compile(r"^[A-Za-z_][\w.]*=(?!=)")
+
+
+def _split_params_prefix(token: str) -> tuple[str, str]:
+    """``params:cc=1p`` -> (``params:``, ``cc=1p``); ngspice accepts the glued form."""
+    if token.lower().startswith("params:"):
+        return token[: len("params:")], token[len("params:") :]
+    return "", token
 
 
 @dataclass(frozen=True)
@@ -339,11 +386,19 @@ def _resolve(statement: Statement, name: str) -> Path:
 def read_source(path: Path, text: str | None = None) -> SourceFile:
     """Parse one file into logical lines and statements (no includes followed).
 
+    The file is read as an included file: ngspice 39 ignores ``.end`` in included files
+    and reads on, so statements after a ``.end`` are parsed too (the netlist file itself
+    is read up to its ``.end`` by :func:`read_netlist`).
+
     Raises
     ------
     NetlistError
         If the file cannot be read or a ``.subckt`` / ``.lib`` block is not closed.
     """
+    return _parse_source(path, text, stop_at_end=False)
+
+
+def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceFile:
     path = Path(path).resolve()
     if text is None:
         try:
@@ -393,7 +448,7 @@ def read_source(path: Path, text: str | None = None) -> SourceFile:
         elif keyword == ".endl":
             section = None
         statements.append(statement)
-        if keyword == ".end" and not subckt_stack:
+        if keyword == ".end" and stop_at_end and not subckt_stack:
             break
     if subckt_stack:
         name, number = subckt_stack[-1]
@@ -409,12 +464,21 @@ def read_source(path: Path, text: str | None = None) -> SourceFile:
 
 def lib_sections(path: Path) -> dict[str, Statement]:
     """The ``.lib name`` sections a library file defines: lower-case name -> its statement."""
-    source = read_source(path)
+    return _sections(read_source(path))
+
+
+def _sections(source: SourceFile) -> dict[str, Statement]:
     return {
         s.tokens[1].lower(): s
         for s in source.statements
-        if s.keyword == ".lib" and len(s.tokens) == 2 and s.subckt is None
+        if _is_section_header(s)
     }
+
+
+def _is_section_header(statement: Statement) -> bool:
+    """``.lib name`` opening a library section (``.lib file name`` reads one instead)."""
+    return (statement.keyword == ".lib" and len(statement.tokens) == 2
+            and statement.subckt is None)
 
 
 @dataclass
@@ -473,6 +537,7 @@ def read_netlist(path: str | Path) -> Netlist:
     """
     root = Path(path).resolve()
     netlist = Netlist(root=root)
+    netlist.files[root] = _parse_source(root, None, stop_at_end=True)
     _read_into(netlist, root, section=None, seen=set())
     return netlist
 
@@ -491,17 +556,18 @@ def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> 
         target = _include_target(statement)
         if target is not None:
             target_path, target_section = target
-            if not target_path.exists():
+            if not target_path.is_file():
                 raise NetlistError(
                     f"{statement.tokens[0]} {statement.tokens[1]}: file not found ({target_path})",
                     file=statement.file,
                     place=statement.line,
                 )
             _read_into(netlist, target_path, target_section, seen)
-            if target_section is not None and target_section not in lib_sections(target_path):
+            sections = _sections(netlist.files[target_path])
+            if target_section is not None and target_section not in sections:
                 raise NetlistError(
                     f".lib section {target_section!r} not found in {target_path}"
-                    + did_you_mean(target_section, lib_sections(target_path)),
+                    + did_you_mean(target_section, sections),
                     file=statement.file,
                     place=statement.line,
                 )
@@ -526,6 +592,7 @@ def _collect_subckts(netlist: Netlist, source: SourceFile, section: str | None) 
         for token in statement.tokens[2:]:
             if token.lower() == "params:":
                 continue
+            token = _split_params_prefix(token)[1]
             if "=" in token:
                 key, _, expr = token.partition("=")
                 params[key.lower()] = expr
@@ -552,10 +619,11 @@ def _collect_subckts(netlist: Netlist, source: SourceFile, section: str | None) 
 def replace_param(statement: Statement, name: str, value: str) -> str:
     """The text of a ``.param`` (or ``.subckt``) statement with parameter ``name`` set to ``value``."""
     tokens = list(statement.tokens)
-    for i, token in enumerate(tokens):
-        key, eq, _ = token.partition("=")
-        if eq and key.lower() == name.lower() and i > 0:
-            tokens[i] = f"{key}={value}"
+    for i, token in enumerate(tokens[1:], start=1):
+        prefix, body = _split_params_prefix(token)
+        key = body.partition("=")[0]
+        if _is_assignment(body) and key.lower() == name.lower():
+            tokens[i] = f"{prefix}{key}={value}"
             return " ".join(tokens)
     raise NetlistError(f"parameter {name!r} not set here", file=statement.file, place=statement.line)
 
@@ -575,10 +643,9 @@ def element_value_index(statement: Statement) -> int:
             place=statement.line,
         )
     for i, token in enumerate(tokens[3:], start=3):
-        key, eq, _ = token.partition("=")
-        if eq and key.lower() in keys:
+        if _is_assignment(token) and token.partition("=")[0].lower() in keys:
             return i
-    if len(tokens) >= 4 and "=" not in tokens[3]:
+    if len(tokens) >= 4 and not _is_assignment(tokens[3]):
         return 3
     raise NetlistError(
         f"element {tokens[0]} has no value to set", file=statement.file, place=statement.line
@@ -588,15 +655,15 @@ def element_value_index(statement: Statement) -> int:
 def element_value(statement: Statement) -> str:
     """The value expression of an R, C or L element, as written."""
     token = statement.tokens[element_value_index(statement)]
-    return token.partition("=")[2] if "=" in token else token
+    return token.partition("=")[2] if _is_assignment(token) else token
 
 
 def replace_element_value(statement: Statement, value: str) -> str:
     """The text of an R, C or L element line with its value replaced."""
     tokens = list(statement.tokens)
     i = element_value_index(statement)
-    key, eq, _ = tokens[i].partition("=")
-    tokens[i] = f"{key}={value}" if eq else value
+    key = tokens[i].partition("=")[0]
+    tokens[i] = f"{key}={value}" if _is_assignment(tokens[i]) else value
     return " ".join(tokens)
 
 
@@ -604,8 +671,8 @@ def replace_instance_param(statement: Statement, name: str, value: str) -> str:
     """The text of a device line with ``name=value`` set (added when absent), e.g. ``w=2u``."""
     tokens = list(statement.tokens)
     for i, token in enumerate(tokens[1:], start=1):
-        key, eq, _ = token.partition("=")
-        if eq and key.lower() == name.lower():
+        key = token.partition("=")[0]
+        if _is_assignment(token) and key.lower() == name.lower():
             tokens[i] = f"{key}={value}"
             return " ".join(tokens)
     tokens.append(f"{name}={value}")
@@ -631,22 +698,76 @@ def render_file(
         ``(file, logical-line index) -> new statement text``.
     top_level
         True for the user's netlist file itself: its top-level element lines and analysis
-        commands are left out (as comments), since the testbench supplies its own.
+        commands are left out (as comments), since the testbench supplies its own, and
+        the text stops at its ``.end``.
 
     Returns
     -------
     text, notes
         The rendered text and one note per line that was left out.
 
-    Included files that hold an edit are inlined (rendered recursively); the others stay
-    as ``.include`` / ``.lib`` lines with absolute paths.
+    Included files (and ``.lib file section`` sections) that hold an edit, or read a file
+    that does, are inlined (rendered recursively; a ``.end`` in them is commented out, as
+    ngspice ignores it there); the others stay as ``.include`` / ``.lib`` lines with
+    absolute paths.
     """
+    inline = _units_to_inline(netlist, edits)
+    return _render(netlist, Path(path), None, edits, top_level=top_level, inline=inline,
+                   active=frozenset({(Path(path), None)}))
+
+
+def _units_to_inline(netlist: Netlist, edits: dict[tuple[Path, int], str]) -> set:
+    """``(file, section)`` units whose text changes: they hold an edit or read one that does."""
+    needed: set[tuple[Path, str | None]] = set()
+    for file, index in edits:
+        source = netlist.files.get(file)
+        if source is None:
+            continue
+        section = next((s.section for s in source.statements if s.index == index), None)
+        needed.add((file, section))
+    units = [
+        (path, section)
+        for path, source in netlist.files.items()
+        for section in (None, *_sections(source))
+    ]
+    changed = True
+    while changed:
+        changed = False
+        for path, section in units:
+            if (path, section) in needed:
+                continue
+            for statement in _active_statements(netlist.files[path], section):
+                if _include_target(statement) in needed:
+                    needed.add((path, section))
+                    changed = True
+                    break
+    return needed
+
+
+def _render(
+    netlist: Netlist,
+    path: Path,
+    section: str | None,
+    edits: dict[tuple[Path, int], str],
+    *,
+    top_level: bool,
+    inline: set,
+    active: frozenset,
+) -> tuple[str, list[str]]:
+    """:func:`render_file` of one file, or of one ``.lib`` section of it (``section``)."""
     source = netlist.files[path]
     by_index = {s.index: s for s in source.statements}
+    indices = range(len(source.lines))
+    if section is not None:
+        header = _sections(source)[section]
+        end = next((s.index for s in source.statements
+                    if s.keyword == ".endl" and s.section == section and s.index > header.index),
+                   len(source.lines))
+        indices = range(header.index + 1, end)
     out: list[str] = []
     notes: list[str] = []
-    edited_files = {file for file, _ in edits}
-    for index, logical in enumerate(source.lines):
+    for index in indices:
+        logical = source.lines[index]
         statement = by_index.get(index)
         if statement is None:
             out.extend(logical.raw)
@@ -656,23 +777,30 @@ def render_file(
             continue
         keyword = statement.keyword
         target = _include_target(statement)
-        if target is not None and statement.section is None:
+        if target is not None:
             target_path, target_section = target
-            if target_section is None and target_path in edited_files:
-                text, inner_notes = render_file(netlist, target_path, edits, top_level=False)
-                out.append(f"* ---- begin {target_path} (inlined: amploop set values in it)")
+            if target in inline and target not in active:
+                text, inner_notes = _render(netlist, target_path, target_section, edits,
+                                            top_level=False, inline=inline,
+                                            active=active | {target})
+                what = f"{target_path}" + (f" section {target_section}" if target_section else "")
+                out.append(f"* ---- begin {what} (inlined: amploop set values in it)")
                 out.append(text)
-                out.append(f"* ---- end {target_path}")
+                out.append(f"* ---- end {what}")
                 notes.extend(inner_notes)
             elif target_section is None:
                 out.append(f'{statement.tokens[0]} "{target_path}"')
             else:
-                out.append(f'.lib "{target_path}" {statement.tokens[2]}')
+                out.append(f'{statement.tokens[0]} "{target_path}" {statement.tokens[2]}')
             continue
-        if top_level and statement.subckt is None and statement.section is None:
-            if keyword == ".end":
+        if keyword == ".end" and statement.subckt is None:
+            if top_level:
                 out.append(f"* amploop: the rest of {path.name} follows .end and is left out")
                 break
+            out.extend(f"* amploop: ngspice ignores .end in an included file: {raw}"
+                       for raw in logical.raw)
+            continue
+        if top_level and statement.subckt is None and statement.section is None:
             if keyword in ANALYSIS_COMMANDS or not keyword.startswith("."):
                 out.extend(f"* amploop left out: {raw}" for raw in logical.raw)
                 notes.append(
