@@ -8,14 +8,13 @@ and an interrupted run loses at most the analyses that were in flight.
 Only the coordinating process writes (WAL mode, ``synchronous=NORMAL``: survives a crash
 of the application; explicit ``BEGIN IMMEDIATE`` transactions; the connection is opened
 in the coordinator after the workers' fork server exists and is never shared with them).
-Result arrays are stored as a numpy ``.npz`` without pickles, so opening a journal from
-elsewhere can never execute code.
+Result arrays are stored as raw bytes behind a JSON header, never as pickles, so opening a
+journal from elsewhere can never execute code.
 """
 
 from __future__ import annotations
 
 import hashlib
-import io
 import json
 import sqlite3
 import time
@@ -60,25 +59,32 @@ def analysis_key(request: AnalysisRequest, digests: dict[str, str]) -> str:
 
 
 def _pack(output: AnalysisOutput) -> bytes:
-    arrays = {}
-    for i, reads in enumerate(output.reads):
+    """Vectors as raw little-endian bytes behind a JSON header (no pickles, no zip)."""
+    header = []
+    chunks = []
+    for step, reads in enumerate(output.reads):
         for name, values in reads.items():
-            arrays[f"{i}|{name}"] = np.asarray(values)
-    arrays["__steps__"] = np.array(len(output.reads))
-    buffer = io.BytesIO()
-    np.savez(buffer, **arrays)
-    return buffer.getvalue()
+            array = np.ascontiguousarray(values)
+            kind = "c16" if np.iscomplexobj(array) else "f8"
+            array = array.astype("<" + kind, copy=False)
+            header.append([step, name, kind, int(array.size)])
+            chunks.append(array.tobytes())
+    head = json.dumps({"steps": len(output.reads), "vectors": header}).encode()
+    return len(head).to_bytes(4, "little") + head + b"".join(chunks)
 
 
 def _unpack(blob: bytes, warnings: str, transient_op: int, seconds: float) -> AnalysisOutput:
-    with np.load(io.BytesIO(blob), allow_pickle=False) as data:
-        steps = int(data["__steps__"])
-        reads: list[dict[str, np.ndarray]] = [{} for _ in range(steps)]
-        for key in data.files:
-            if key == "__steps__":
-                continue
-            index, _, name = key.partition("|")
-            reads[int(index)][name] = data[key]
+    size = int.from_bytes(blob[:4], "little")
+    head = json.loads(blob[4 : 4 + size])
+    reads: list[dict[str, np.ndarray]] = [{} for _ in range(head["steps"])]
+    offset = 4 + size
+    for step, name, kind, count in head["vectors"]:
+        dtype = np.dtype("<" + kind)
+        end = offset + count * dtype.itemsize
+        if end > len(blob):
+            raise ValueError("truncated record")
+        reads[step][name] = np.frombuffer(blob[offset:end], dtype=dtype).copy()
+        offset = end
     return AnalysisOutput(reads=tuple(reads), warnings=tuple(json.loads(warnings)),
                           transient_op=bool(transient_op), seconds=seconds)
 
@@ -151,7 +157,7 @@ class Journal:
             return None
         try:
             return _unpack(*row)
-        except (ValueError, OSError, KeyError) as exc:
+        except (ValueError, OSError, KeyError, IndexError, TypeError) as exc:
             raise JournalError(f"a stored analysis is unreadable ({exc})", file=self.path,
                                hint="move the journal away to start afresh") from None
 

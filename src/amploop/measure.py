@@ -211,8 +211,8 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
     stems = corner_files(job.corners)
     if folder is not None:
         for name, bench in benches.items():
-            folder.write_text(f"decks/{stems[name]}.cir",
-                              bench.hand_deck(data_file=f"{stems[name]}-loop_gain.txt"))
+            folder.later(f"decks/{stems[name]}.cir",
+                         lambda b=bench, n=name: b.hand_deck(data_file=f"{stems[n]}-loop_gain.txt"))
     results: dict[str, CornerResult] = {}
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
@@ -224,7 +224,8 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             result = result_from_output(bench, output, amplifier)
             results[name] = result
             if folder is not None and result.loop_gain is not None:
-                folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", result.loop_gain)
+                folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", result.loop_gain,
+                                           background=True)
             if progress is not None:
                 progress(len(results), len(benches), result)
     finally:
@@ -239,6 +240,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             data = result.as_json()
             if len(ordered) < len(job.corners):
                 data["status"] = "interrupted"
+            folder.close()
             folder.write_json("results.json", data)
     return result
 

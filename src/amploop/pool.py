@@ -16,7 +16,7 @@ import signal
 import time
 from collections import deque
 from collections.abc import Hashable, Iterable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from multiprocessing.connection import wait
 
 from .errors import SimulatorError
@@ -65,11 +65,19 @@ def _worker_main(conn) -> None:
 
 
 @dataclass
+class _Task:
+    task_id: int
+    key: Hashable
+    request: AnalysisRequest
+    attempt: int
+
+
+@dataclass
 class _Worker:
     process: mp.process.BaseProcess
     conn: object
-    task: tuple | None = None  # (task_id, key, request, attempt)
-    started: float = 0.0
+    queue: deque = field(default_factory=deque)  # tasks sent, in the order it runs them
+    head_since: float = 0.0  # when the first task in the queue became the running one
     ready: bool = False
 
 
@@ -82,13 +90,17 @@ class WorkerPool:
         How many processes (default: the CPU count).
     retries
         How many times an analysis is tried again after its worker died under it.
+    depth
+        Analyses queued per worker, so that a worker starts the next one while the
+        coordinator is still recording the last.
 
     Use as a context manager; :meth:`run` may be called many times on the same workers.
     """
 
-    def __init__(self, workers: int | None = None, *, retries: int = 2) -> None:
+    def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2) -> None:
         self.size = workers or default_workers()
         self.retries = retries
+        self.depth = depth
         self._context = mp.get_context("forkserver")
         self._context.set_forkserver_preload(["amploop.simulator", "numpy"])
         self._workers: list[_Worker] = []
@@ -118,109 +130,141 @@ class WorkerPool:
             worker.conn.close()
         except OSError:
             pass
-        self._workers.remove(worker)
+        if worker in self._workers:
+            self._workers.remove(worker)
 
     def close(self) -> None:
         """Stop every worker."""
         for worker in list(self._workers):
             try:
                 worker.conn.send(None)
-            except (OSError, BrokenPipeError):
+            except OSError:
                 pass
         deadline = time.monotonic() + 2
         for worker in list(self._workers):
             worker.process.join(timeout=max(0.0, deadline - time.monotonic()))
             self._retire(worker, kill=True)
 
+    def _in_flight(self) -> int:
+        return sum(len(w.queue) for w in self._workers)
+
+    def _feed(self, pending: deque) -> None:
+        """Top up every ready worker's queue from ``pending``."""
+        for worker in self._workers:
+            while worker.ready and pending and len(worker.queue) < self.depth:
+                key, request, attempt = pending.popleft()
+                self._next_id += 1
+                task = _Task(self._next_id, key, request, attempt)
+                try:
+                    worker.conn.send((task.task_id, request))
+                except OSError:  # it died between two looks; its sentinel will tell
+                    pending.appendleft((key, request, attempt))
+                    break
+                if not worker.queue:
+                    worker.head_since = time.monotonic()
+                worker.queue.append(task)
+
     def run(
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
     ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError]]:
         """Run every request; yield ``(key, output or SimulatorError)`` as each finishes."""
         pending: deque = deque((key, request, 0) for key, request in requests)
-        while pending or any(w.task for w in self._workers):
-            while len(self._workers) < min(self.size, len(pending) + self._busy()):
+        while pending or self._in_flight():
+            wanted = min(self.size, len(pending) + self._in_flight())
+            while len(self._workers) < wanted:
                 self._workers.append(self._spawn())
-            for worker in self._workers:
-                if worker.ready and worker.task is None and pending:
-                    key, request, attempt = pending.popleft()
-                    self._next_id += 1
-                    worker.task = (self._next_id, key, request, attempt)
-                    worker.started = time.monotonic()
-                    try:
-                        worker.conn.send((self._next_id, request))
-                    except OSError:  # it died between two looks; the sentinel will tell
-                        pass
+            self._feed(pending)
             yield from self._collect(pending)
 
-    def _busy(self) -> int:
-        return sum(1 for w in self._workers if w.task is not None)
+    def _requeue(self, worker: _Worker, pending: deque, *, crashed: bool = True
+                 ) -> Iterator[tuple[Hashable, object]]:
+        """A worker is gone: retry its running task (bounded) if it crashed under it, and
+        put the tasks that never started back in line."""
+        code = worker.process.exitcode
+        tasks = list(worker.queue)
+        worker.queue.clear()
+        self._retire(worker, kill=True)
+        for task in reversed(tasks[1:] if crashed else tasks):
+            pending.appendleft((task.key, task.request, task.attempt))
+        if tasks and crashed:
+            head = tasks[0]
+            if head.attempt < self.retries:
+                pending.appendleft((head.key, head.request, head.attempt + 1))
+            else:
+                how = f"signal {-code}" if code is not None and code < 0 else f"code {code}"
+                yield head.key, SimulatorError(
+                    f"ngspice crashed: its worker process ended with {how} "
+                    f"({head.attempt + 1} attempts)", place=head.request.label)
 
     def _collect(self, pending: deque) -> Iterator[tuple[Hashable, object]]:
         now = time.monotonic()
-        timeouts = [w.started + w.task[2].time_limit_s - now for w in self._workers if w.task]
-        timeout = max(0.0, min(timeouts)) if timeouts else None
+        limits = [w.head_since + w.queue[0].request.time_limit_s - now
+                  for w in self._workers if w.queue]
+        timeout = max(0.0, min(limits)) if limits else None
         waitables = {}
         for worker in self._workers:
             waitables[worker.conn] = worker
             waitables[worker.process.sentinel] = worker
         ready = wait(list(waitables), timeout=timeout)
         handled: set[int] = set()
+        finished = []
         for item in ready:
             worker = waitables[item]
             if id(worker) in handled or worker not in self._workers:
                 continue
             handled.add(id(worker))
-            message = None
-            if worker.conn.poll():
+            died = exited = False
+            while worker.conn.poll():
                 try:
                     message = worker.conn.recv()
                 except (EOFError, OSError):
-                    message = None
-            if message is not None and message[0] == "ready":
-                worker.ready = True
+                    died = True
+                    break
+                if message[0] == "ready":
+                    worker.ready = True
+                    self._failed_starts = 0
+                elif message[0] == "fatal":
+                    self._retire(worker, kill=True)
+                    raise SimulatorError(message[1])
+                elif worker.queue and message[0] == worker.queue[0].task_id:
+                    task = worker.queue.popleft()
+                    worker.head_since = time.monotonic()
+                    _, status, payload, exiting = message
+                    finished.append((task, status, payload))
+                    if exiting:  # its ngspice cannot go on; it ends itself
+                        exited = True
+                        break
+            if exited:
+                yield from self._requeue(worker, pending, crashed=False)
                 continue
-            if message is not None and message[0] == "fatal":
-                self._retire(worker, kill=True)
-                raise SimulatorError(message[1])
-            if message is not None and worker.task and message[0] == worker.task[0]:
-                _, key, request, _ = worker.task
-                worker.task = None
-                _, status, payload, exiting = message
-                if exiting:  # its ngspice cannot go on; it ends itself
-                    self._retire(worker, kill=False)
-                if status == "ok":
-                    yield key, payload
-                else:
-                    yield key, SimulatorError(payload, place=request.label)
+            if not died and worker.process.is_alive():
+                self._feed(pending)  # keep the worker busy before recording results
                 continue
-            if not worker.process.is_alive():
-                code = worker.process.exitcode
-                task = worker.task
-                if not worker.ready:
-                    self._failed_starts += 1
-                    if self._failed_starts >= 3:
-                        self._retire(worker, kill=True)
-                        raise SimulatorError(
-                            f"ngspice worker processes keep dying at start (exit code {code})",
-                            hint="check that ngspice's shared library is installed; a script "
-                            "that calls amploop needs the `if __name__ == \"__main__\":` guard",
-                        )
-                self._retire(worker, kill=True)
-                if task is not None:
-                    _, key, request, attempt = task
-                    if attempt < self.retries:
-                        pending.appendleft((key, request, attempt + 1))
-                    else:
-                        how = f"signal {-code}" if code is not None and code < 0 else f"code {code}"
-                        yield key, SimulatorError(
-                            f"ngspice crashed: its worker process ended with {how} "
-                            f"({attempt + 1} attempts)", place=request.label)
-        # time limits
+            if not worker.ready:
+                self._failed_starts += 1
+                if self._failed_starts >= 3:
+                    code = worker.process.exitcode
+                    self._retire(worker, kill=True)
+                    raise SimulatorError(
+                        f"ngspice worker processes keep dying at start (exit code {code})",
+                        hint="check that ngspice's shared library is installed; a script "
+                        "that calls amploop needs the `if __name__ == \"__main__\":` guard",
+                    )
+            yield from self._requeue(worker, pending)
+        for task, status, payload in finished:
+            if status == "ok":
+                yield task.key, payload
+            else:
+                yield task.key, SimulatorError(payload, place=task.request.label)
+        # time limits: the running (head) task of each worker
         now = time.monotonic()
         for worker in list(self._workers):
-            if worker.task and now - worker.started > worker.task[2].time_limit_s:
-                _, key, request, _ = worker.task
+            if worker.queue and now - worker.head_since > worker.queue[0].request.time_limit_s:
+                head = worker.queue.popleft()
+                for task in reversed(worker.queue):
+                    pending.appendleft((task.key, task.request, task.attempt))
+                worker.queue.clear()
                 self._retire(worker, kill=True)
-                yield key, SimulatorError(
-                    f"time-out: the analysis ran longer than {request.time_limit_s:g} s "
-                    "([analysis].time_limit)", place=request.label)
+                yield head.key, SimulatorError(
+                    f"time-out: the analysis ran longer than {head.request.time_limit_s:g} s "
+                    "([analysis].time_limit)", place=head.request.label)

@@ -1,0 +1,236 @@
+"""Benchmarks of `amploop measure` on the demo job: overhead, parallel speed-up, memory.
+
+Run:  .venv/bin/python scripts/bench_measure.py [--reps N]
+
+1. Overhead: amploop's wall time per corner measurement (warm pool of one worker, the
+   whole measure() call: testbenches, analyses, margins, CSVs, results.json, journal)
+   divided by the same two AC analyses run straight through PySpice's shared library on
+   the saved decks, in this process (load_circuit, the four commands, reading the three
+   vectors, freeing). Medians over repetitions, same run. Target: <= 1.3.
+2. Parallel: a 12-corner measurement with 2 workers vs 1 worker. Reported two ways:
+   (a) the measurement with the workers already started, (b) the whole `amploop measure`
+   command as a user runs it (Python start-up, imports and worker start-up included).
+   Target: >= 1.7x.
+3. Memory: peak RSS (coordinator + worker + fork server, summed over the process tree) of
+   a 200-corner measurement with one worker vs a 2-corner one, each in a fresh process.
+   Target: <= 1.5x.
+
+The machine is noisy: quote ratios from one run and the analysis counts.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+DEMO = REPO / "netlists" / "demo" / "job.toml"
+
+
+def job_with_corners(folder: Path, grid: str, job_file: Path = DEMO) -> Path:
+    """A copy of a job (same netlist and models) with its corners replaced by a grid."""
+    text = job_file.read_text()
+    text = text[: text.index("[[corners]]")]
+    for key in ("netlist", "models"):
+        match = re.search(rf'^{key} = "([^"]+)"', text, re.MULTILINE)
+        if match:
+            absolute = (job_file.parent / match.group(1)).resolve()
+            text = text.replace(match.group(0), f'{key} = "{absolute}"')
+    path = folder / "job.toml"
+    path.write_text(text + grid)
+    return path
+
+
+GRID_12 = '[corner_grid]\nlib = ["tt", "ss", "ff"]\ntemp = [-40, 125]\nparams = { vdd = [1.71, 1.89], cl = ["2p"] }\n'
+GRID_2 = '[corner_grid]\nlib = ["tt"]\ntemp = [-40, 125]\nparams = { vdd = [1.8], cl = ["2p"] }\n'
+GRID_200 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
+            'params = { vdd = [1.71, 1.8, 1.89, 1.98], cl = ["1p", "1.5p", "2p", "2.5p", "3p"] }\n')
+
+
+def raw_pyspice(decks: list[str], steps, reps: int) -> float:
+    """Median seconds per deck for load + 2 AC through PySpice's NgSpiceShared."""
+    import logging
+
+    logging.getLogger("PySpice").setLevel(logging.CRITICAL)
+    from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
+
+    ngspice = NgSpiceShared.new_instance()
+    lib = ngspice._ngspice_shared
+    lib.ngSpice_Command(b"set num_threads=1")
+    times = []
+    for _ in range(reps):
+        for deck in decks:
+            start = time.perf_counter()
+            ngspice.load_circuit(deck)
+            for command in steps:
+                lib.ngSpice_Command(command.encode())
+            for name in ("ac1.v(tb_out)", "ac1.v(tb_fb)", "ac2.i(vprobe)"):
+                info = lib.ngGet_Vec_Info(name.encode())
+                bytes(ffi.buffer(info.v_compdata, info.v_length * 16))
+            lib.ngSpice_Command(b"destroy all")
+            lib.ngSpice_Command(b"remcirc")
+            times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
+    """Per-corner cost: the slope between a small and a large job, so that the fixed cost
+    of a run (reading files, opening the journal, results.json) is reported apart."""
+    from amploop.amplifier import prepare_amplifier
+    from amploop.job import load_job
+    from amploop.measure import measure
+    from amploop.pool import WorkerPool
+    from amploop.testbench import build_testbench
+
+    timings = {}
+    with WorkerPool(1) as pool, tempfile.TemporaryDirectory() as tmp:
+        jobs = {}
+        for grid in grids:
+            folder = Path(tmp) / str(len(jobs))
+            folder.mkdir()
+            jobs[grid] = load_job(job_with_corners(folder, grid, job_file))
+        measure(jobs[grids[0]], out=Path(tmp) / "warm", pool=pool)  # start the worker
+        for grid, job in jobs.items():
+            times = []
+            for rep in range(reps):
+                start = time.perf_counter()
+                measure(job, out=Path(tmp) / f"{len(job.corners)}-{rep}", pool=pool)
+                times.append(time.perf_counter() - start)
+            timings[len(job.corners)] = statistics.median(times)
+        small_job = jobs[grids[0]]
+        amplifier = prepare_amplifier(small_job)
+        benches = [build_testbench(amplifier, c, {}) for c in small_job.corners]
+    raw = raw_pyspice([b.deck for b in benches], [s.command for s in benches[0].steps], reps)
+    (n1, t1), (n2, t2) = sorted(timings.items())
+    per_corner = (t2 - t1) / (n2 - n1)
+    fixed = t1 - n1 * per_corner
+    print(f"overhead ({job_file.parent.name}): {n1} and {n2} corners x {reps} reps, 2 AC analyses per corner")
+    print(f"  amploop measure, per corner (slope of medians): {per_corner * 1e3:7.2f} ms"
+          f"   (+ {fixed * 1e3:.0f} ms per run: files, journal, results.json)")
+    print(f"  PySpice straight, per deck  (median):           {raw * 1e3:7.2f} ms")
+    print(f"  ratio: {per_corner / raw:.2f}   (target <= 1.3)")
+
+
+def parallel(reps: int, job_file: Path, grid: str) -> None:
+    from amploop.job import load_job
+    from amploop.measure import measure
+    from amploop.pool import WorkerPool
+
+    with tempfile.TemporaryDirectory() as tmp:
+        job_path = job_with_corners(Path(tmp), grid, job_file)
+        job = load_job(job_path)
+        warm = {}
+        for workers in (1, 2):
+            with WorkerPool(workers) as pool:
+                measure(job, out=Path(tmp) / f"warm{workers}", pool=pool)
+                times = []
+                for rep in range(reps):
+                    start = time.perf_counter()
+                    result = measure(job, out=Path(tmp) / f"w{workers}r{rep}", pool=pool)
+                    times.append(time.perf_counter() - start)
+                warm[workers] = statistics.median(times)
+        cold = {}
+        for workers in (1, 2):
+            times = []
+            for rep in range(reps):
+                start = time.perf_counter()
+                subprocess.run([sys.executable, "-m", "amploop.cli", "measure", str(job_path),
+                                "--out", str(Path(tmp) / f"c{workers}r{rep}"), "--workers",
+                                str(workers), "--quiet"], check=True)
+                times.append(time.perf_counter() - start)
+            cold[workers] = statistics.median(times)
+    print(f"parallel ({job_file.parent.name}): {len(job.corners)} corners, "
+          f"{result.ac_run} AC analyses per measurement")
+    print(f"  (a) workers started: 1 worker {warm[1] * 1e3:.0f} ms, 2 workers {warm[2] * 1e3:.0f} ms,"
+          f" speed-up {warm[1] / warm[2]:.2f}x   (target >= 1.7)")
+    print(f"  (b) whole command:   1 worker {cold[1] * 1e3:.0f} ms, 2 workers {cold[2] * 1e3:.0f} ms,"
+          f" speed-up {cold[1] / cold[2]:.2f}x")
+
+
+def _tree_peak_kb(root_pid: int, stop: threading.Event, peaks: dict[int, int]) -> None:
+    """Poll VmHWM (peak RSS) of every process in the tree under ``root_pid``."""
+    while not stop.is_set():
+        pids = [root_pid]
+        i = 0
+        while i < len(pids):
+            try:
+                children = Path(f"/proc/{pids[i]}/task/{pids[i]}/children").read_text().split()
+            except OSError:
+                children = []
+            pids.extend(int(c) for c in children)
+            i += 1
+        for pid in pids:
+            try:
+                status = Path(f"/proc/{pid}/status").read_text()
+            except OSError:
+                continue
+            match = re.search(r"VmHWM:\s+(\d+) kB", status)
+            if match:
+                peaks[pid] = max(peaks.get(pid, 0), int(match.group(1)))
+        time.sleep(0.01)
+
+
+def memory() -> None:
+    results = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for label, grid in (("2", GRID_2), ("200", GRID_200)):
+            folder = Path(tmp) / label
+            folder.mkdir()
+            job_path = job_with_corners(folder, grid)
+            code = ("import sys\nfrom amploop.job import load_job\nfrom amploop.measure import measure\n"
+                    "if __name__ == '__main__':\n"
+                    f"    r = measure(load_job({str(job_path)!r}), out={str(folder / 'out')!r}, workers=1)\n"
+                    "    print(len(r.corners), r.ac_run)\n"
+                    "    import time; time.sleep(0.3)\n")
+            script = folder / "run.py"
+            script.write_text(code)
+            process = subprocess.Popen([sys.executable, str(script)], stdout=subprocess.PIPE, text=True)
+            stop, peaks = threading.Event(), {}
+            watcher = threading.Thread(target=_tree_peak_kb, args=(process.pid, stop, peaks))
+            watcher.start()
+            out, _ = process.communicate()
+            stop.set()
+            watcher.join()
+            corners, analyses = out.split()
+            results[label] = (sum(peaks.values()), int(corners), int(analyses), len(peaks))
+    (small, c2, a2, n2), (large, c200, a200, n200) = results["2"], results["200"]
+    print("memory: peak RSS summed over the process tree (coordinator, fork server, worker)")
+    print(f"  {c2:3d} corners ({a2:3d} AC analyses): {small / 1024:6.1f} MiB in {n2} processes")
+    print(f"  {c200:3d} corners ({a200:3d} AC analyses): {large / 1024:6.1f} MiB in {n200} processes")
+    print(f"  ratio: {large / small:.2f}   (target <= 1.5)")
+
+
+PTM45 = REPO / "netlists" / "ptm45" / "job.toml"
+GRID_PTM_20 = '[corner_grid]\ntemp = [-40, 27, 125, 85]\nparams = { vdd = [1.0, 1.1, 1.2, 1.05, 1.15], cl = ["1p"] }\n'
+GRID_PTM_12 = '[corner_grid]\ntemp = [-40, 27, 125]\nparams = { vdd = [1.0, 1.1, 1.2, 1.05], cl = ["1p"] }\n'
+GRID_PTM_100 = ('[corner_grid]\ntemp = [-40, 0, 27, 85, 125]\n'
+                'params = { vdd = [1.0, 1.05, 1.1, 1.15, 1.2], cl = ["0.5p", "1p", "1.5p", "2p"] }\n')
+GRID_20 = '[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 27, 125, 85, 0]\nparams = { vdd = [1.71, 1.89], cl = ["2p"] }\n'
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--reps", type=int, default=7)
+    args = parser.parse_args()
+    print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
+    overhead(args.reps, DEMO, (GRID_20, GRID_200))
+    parallel(args.reps, DEMO, GRID_12)
+    ptm = PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir()
+    if ptm:  # BSIM4 cards: analyses that cost what real ones do
+        overhead(args.reps, PTM45, (GRID_PTM_20, GRID_PTM_100))
+        parallel(args.reps, PTM45, GRID_PTM_12)
+    else:
+        print("(the 45 nm BSIM4 runs need ../shared/models/ptm45 and netlists/ptm45: skipped)")
+    memory()
+
+
+if __name__ == "__main__":
+    main()
