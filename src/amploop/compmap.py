@@ -100,17 +100,47 @@ class CompensationMap:
     def _sample_impedances(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         return tuple(branch_impedance(self.frequency_hz, cc, rc) for cc, rc in self.samples)
 
-    def loop_gain_values(self, cc_f, rc_ohm) -> np.ndarray:
+    def coefficients(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(a, b, c, d) per frequency with T(Z) = (a·Z + b)/(c·Z + d).
+
+        The cross-ratio numerator and denominator of u = 1/(1+T) are linear in the query:
+        N = c·Z + d and D = (a + c)·Z + (b + d); T = D/N − 1 = (a·Z + b)/(c·Z + d).
+        """
+        cached = self.__dict__.get("_coefficients")
+        if cached is not None:
+            return cached
+        z1, z2, z3 = self._sample_impedances()
+        w1, w2, w3 = self.inverse_return
+        p = w1 * (w2 - w3) * (z2 - z1)
+        q = w3 * (w2 - w1) * (z2 - z3)
+        r = (w2 - w3) * (z2 - z1)
+        t = (w2 - w1) * (z2 - z3)
+        c, d = p - q, -(p * z3 - q * z1)       # N = c·Z + d
+        e, f = r - t, -(r * z3 - t * z1)       # D = e·Z + f
+        result = (e - c, f - d, c, d)
+        object.__setattr__(self, "_coefficients", result)
+        return result
+
+    def loop_gain_values(self, cc_f, rc_ohm, frequency_index=None) -> np.ndarray:
         """Complex T at every frequency for each (Cc, Rc); shape ``broadcast(cc, rc) + (n_f,)``.
 
         ``cc_f`` and ``rc_ohm`` broadcast against each other (e.g. a column and a row give
-        a grid).
+        a grid). ``frequency_index`` picks a subset of the frequencies (for fast searches).
         """
+        a, b, c, d = self.coefficients()
+        frequency = self.frequency_hz
+        if frequency_index is not None:
+            a, b, c, d = a[frequency_index], b[frequency_index], c[frequency_index], d[frequency_index]
+            frequency = frequency[frequency_index]
         cc = np.asarray(cc_f, dtype=float)[..., None]
         rc = np.asarray(rc_ohm, dtype=float)[..., None]
-        z_query = branch_impedance(self.frequency_hz, cc, rc)
-        u = mobius_through_three(self._sample_impedances(), tuple(self.inverse_return), z_query)
-        return 1.0 / u - 1.0
+        s = 2j * np.pi * frequency
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # multiply through by s·Cc so that Cc = 0 (an open branch) needs no infinity:
+            # T = (a·(s·Cc·Rc + 1) + b·s·Cc) / (c·(s·Cc·Rc + 1) + d·s·Cc)
+            scc = s * cc
+            z_scaled = scc * rc + 1.0
+            return (a * z_scaled + b * scc) / (c * z_scaled + d * scc)
 
     def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
         """The predicted loop gain at one (Cc, Rc)."""

@@ -39,6 +39,7 @@ class Runner:
     ac_run: int = 0
     ac_reused: int = 0
     analyses_run: int = 0
+    simulator_seconds: float = 0.0  # wall time the workers spent inside ngspice
 
     def run(self, items: Iterable[tuple[Hashable, AnalysisRequest]]
             ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError, bool]]:
@@ -70,6 +71,7 @@ class Runner:
             request = requests[key]
             if isinstance(output, AnalysisOutput):
                 self.analyses_run += 1
+                self.simulator_seconds += output.seconds
                 self.ac_run += request.ac_runs
                 self.ac_reused += request.ac_runs * (len(by_key[key]) - 1)
                 if self.journal is not None:

@@ -42,6 +42,7 @@ class TuneResult:
     seconds: float
     compensated: dict | None = None
     loop_gains: dict | None = None
+    simulator_seconds: float = 0.0
 
     @property
     def status(self) -> str:
@@ -179,7 +180,8 @@ def tune(
                             history=tuple(evaluator.history), ac_run=runner.ac_run,
                             ac_reused=runner.ac_reused, out=folder.path,
                             seconds=time.perf_counter() - started, compensated=compensated,
-                            loop_gains=dict(evaluator.loop_gains))
+                            loop_gains=dict(evaluator.loop_gains),
+                            simulator_seconds=runner.simulator_seconds)
         folder.write_json("results.json", result.as_json())
     return result
 

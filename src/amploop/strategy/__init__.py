@@ -3,8 +3,10 @@
 
 from .common import Evaluator, Outcome
 from .mapping import tune_by_map
+from .optimizer import tune_by_optimizer
 from .textbook import tune_by_textbook
 
-STRATEGIES = {"map": tune_by_map, "textbook": tune_by_textbook}
+#: Strategies by name. "optimizer" is for the benchmark only (not on the command line).
+STRATEGIES = {"map": tune_by_map, "textbook": tune_by_textbook, "optimizer": tune_by_optimizer}
 
 __all__ = ["Evaluator", "Outcome", "STRATEGIES", "tune_by_map", "tune_by_textbook"]

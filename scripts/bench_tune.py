@@ -1,0 +1,69 @@
+"""Benchmarks of `amploop tune` on the demo job: analyses to converge, bandwidth, wall time.
+
+Run:  .venv/bin/python scripts/bench_tune.py
+
+- AC analyses to converge (counts are the same on any machine): the map strategy
+  (characterisation plus verification; target <= 10 per corner), the textbook procedure
+  and scipy's COBYLA optimiser driving simulations, side by side on the same job.
+- Bandwidth at the chosen point: worst-corner unity-gain frequency and phase margin of each.
+- Wall time of the map strategy with all cores vs one worker, and the share of the wall
+  time the workers spent inside ngspice.
+Every run uses a fresh out folder (nothing reused).
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+DEMO = REPO / "netlists" / "demo" / "job.toml"
+
+
+def main() -> None:
+    from amploop.job import load_job
+    from amploop.pool import default_workers
+    from amploop.tune import tune
+    from amploop.units import engineering
+
+    job = load_job(DEMO)
+    corners = len(job.corners)
+    print(f"machine: {os.cpu_count()} CPUs; demo job: {corners} corners, target "
+          f"{job.target.phase_margin_deg:g}° ± {job.target.tolerance_deg:g}°, GM ≥ {job.target.gain_margin_db:g} dB")
+    print(f"{'strategy':<10} {'status':<10} {'AC':>5} {'AC/corner':>9} {'points':>6} "
+          f"{'worst PM':>9} {'worst UGF':>10}  values")
+    with tempfile.TemporaryDirectory() as tmp:
+        for strategy in ("map", "textbook", "optimizer"):
+            result = tune(job, out=Path(tmp) / strategy, strategy=strategy, workers=default_workers())
+            worst = result.outcome.final.worst
+            total = result.ac_run + result.ac_reused
+            values = ", ".join(f"{k}={engineering(v, 'F' if k == 'cc' else 'Ω', 4)}"
+                               for k, v in result.outcome.values.items())
+            print(f"{strategy:<10} {result.status:<10} {total:>5} {total / corners:>9.1f} "
+                  f"{len(result.history):>6} {worst.phase_margin_deg:>8.2f}° "
+                  f"{engineering(worst.unity_gain_hz, 'Hz'):>10}  {values}")
+        walls = {}
+        shares = {}
+        for workers in (default_workers(), 1):
+            times, inside = [], []
+            for rep in range(5):
+                start = time.perf_counter()
+                result = tune(job, out=Path(tmp) / f"w{workers}r{rep}", workers=workers)
+                wall = time.perf_counter() - start
+                times.append(wall)
+                inside.append(result.simulator_seconds / (wall * workers))
+            walls[workers] = statistics.median(times)
+            shares[workers] = statistics.median(inside)
+    n = default_workers()
+    print(f"map wall time (median of 5): {n} workers {walls[n]:.2f} s, 1 worker {walls[1]:.2f} s, "
+          f"speed-up {walls[1] / walls[n]:.2f}x")
+    print(f"share of wall time inside ngspice (per worker): {n} workers {shares[n]:.0%}, "
+          f"1 worker {shares[1]:.0%}")
+
+
+if __name__ == "__main__":
+    main()
