@@ -124,7 +124,24 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
                        f"misses the target {target.phase_margin_deg:g}°", extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                   f"(corner {worst.limiting_corner}) at " + _describe(verified.values), extra)
+                   f"(corner {worst.limiting_corner}) at " + _describe(verified.values)
+                   + _at_bounds(verified.values, {"cc": cc_bounds, "rc": rc_bounds}), extra)
+
+
+def _at_bounds(values: dict[str, float], bounds: dict[str, tuple[float, float]]) -> str:
+    """A note for values that sit on a bound: a wider bound might give more bandwidth."""
+    from ..units import engineering
+
+    notes = []
+    for role, value in values.items():
+        low, high = bounds.get(role, (None, None))
+        unit = "F" if role == "cc" else "Ω"
+        name = "Cc" if role == "cc" else "Rc"
+        if high is not None and high > low and value >= high * (1 - 1e-9):
+            notes.append(f"{name} is at its upper bound {engineering(high, unit, 4)}")
+        elif low is not None and high > low and value <= low * (1 + 1e-9) and low > 0:
+            notes.append(f"{name} is at its lower bound {engineering(low, unit, 4)}")
+    return f" ({'; '.join(notes)}: a wider bound may give more bandwidth)" if notes else ""
 
 
 def _round(value: float, bounds: tuple[float, float]) -> float:
