@@ -29,6 +29,7 @@ __all__ = [
     "Analysis",
     "Corner",
     "Target",
+    "Transient",
     "load_job",
     "parse_overrides",
     "referenced_params",
@@ -156,6 +157,25 @@ class Target:
 
 
 @dataclass(frozen=True)
+class Transient:
+    """``[transient]``: the closed-loop small-step check of the report.
+
+    Attributes
+    ----------
+    step_v
+        Input step at the signal source, volts (small, so the loop stays linear).
+    band
+        Settling band relative to the output step (0.001 = 0.1 %).
+    stop_s
+        Length of the run, seconds; None: 40/(2π·f_u) of the slowest corner.
+    """
+
+    step_v: float = 5e-3
+    band: float = 1e-3
+    stop_s: float | None = None
+
+
+@dataclass(frozen=True)
 class Job:
     """A loaded, checked job file. Paths are absolute; values SI."""
 
@@ -168,6 +188,7 @@ class Job:
     analysis: Analysis
     corners: tuple[Corner, ...]
     target: Target | None = None
+    transient: Transient = field(default_factory=Transient)
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -179,7 +200,7 @@ class Job:
 
 _TOP_KEYS = {
     "name", "amplifier", "bias", "feedback", "compensation", "analysis", "corners",
-    "corner_grid", "target", "params",
+    "corner_grid", "target", "params", "transient",
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
@@ -191,6 +212,7 @@ _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
 _CORNER_KEYS = {"name", "lib", "temp", "params"}
 _GRID_KEYS = {"lib", "temp", "params"}
 _TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
+_TRANSIENT_KEYS = {"step", "band", "stop"}
 _ROLES = ("cc", "rc")
 
 
@@ -346,6 +368,7 @@ def _build_job(path: Path, data: dict) -> Job:
     compensation = _compensation(r, r.table(data, "compensation", "[compensation]"))
     analysis = _analysis(r, r.table(data, "analysis", "[analysis]", required=False))
     target = _target(r, r.table(data, "target", "[target]", required=False))
+    transient = _transient(r, r.table(data, "transient", "[transient]", required=False))
     defaults = _params(r, data.get("params", {}), "[params]")
     corners = _corners(r, data, defaults)
 
@@ -359,6 +382,7 @@ def _build_job(path: Path, data: dict) -> Job:
         analysis=analysis,
         corners=corners,
         target=target,
+        transient=transient,
         raw=data,
     )
     _check_corner_libs(r, job)
@@ -497,6 +521,21 @@ def _target(r: _Reader, data: dict) -> Target | None:
     gm = data.get("gain_margin")
     gm = None if gm is None else r.number(gm, "[target].gain_margin")
     return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm)
+
+
+def _transient(r: _Reader, data: dict) -> Transient:
+    r.known(data, _TRANSIENT_KEYS, "[transient]")
+    step = r.number(data.get("step", 5e-3), "[transient].step")
+    if step == 0:
+        raise r.fail("[transient].step", "must not be 0 V")
+    band = r.number(data.get("band", 1e-3), "[transient].band")
+    if not 0 < band < 0.5:
+        raise r.fail("[transient].band", f"expected a fraction such as 0.001, got {band:g}")
+    stop = data.get("stop")
+    stop_s = None if stop is None else r.number(stop, "[transient].stop")
+    if stop_s is not None and stop_s <= 0:
+        raise r.fail("[transient].stop", "must be above 0 s")
+    return Transient(step_v=step, band=band, stop_s=stop_s)
 
 
 def _params(r: _Reader, data: Any, place: str) -> dict[str, float]:

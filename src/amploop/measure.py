@@ -75,20 +75,35 @@ class MeasureResult:
     ac_reused: int
     out: Path | None
     seconds: float = 0.0
+    keys: dict = field(default_factory=dict)  # corner -> journal key of its analysis
+    step_checks: dict = field(default_factory=dict)
+    transient_run: int = 0
+    transient_reused: int = 0
 
     @property
     def status(self) -> str:
         return "ok" if all(c.status == "ok" for c in self.corners) else "failed"
 
     def as_json(self) -> dict:
+        from .stepcheck import with_step
+
+        corners = []
+        for c in self.corners:
+            data = with_step(c.as_json(), self.step_checks.get(c.corner.name))
+            data["analysis"] = self.keys.get(c.corner.name)
+            corners.append(data)
         return {
             "schema": SCHEMA,
             "command": "measure",
             "job": self.job.name,
             "status": self.status,
             "values": dict(self.values),
-            "corners": [c.as_json() for c in self.corners],
+            "corners": corners,
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+            "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
+            "probe": self.job.analysis.probe,
+            "job_file": str(self.job.path),
+            "seconds": self.seconds,
         }
 
 
@@ -166,6 +181,7 @@ def measure(
     pool: WorkerPool | None = None,
     allow_control: bool = False,
     progress: Callable[[int, int, CornerResult], None] | None = None,
+    time_domain: bool = True,
 ) -> MeasureResult:
     """Measure the loop gain and margins at every corner of ``job``.
 
@@ -185,6 +201,9 @@ def measure(
         Accept ``.control`` blocks in the user's files.
     progress
         Called after each corner with (done, total, result).
+    time_domain
+        Also run the closed-loop step check per corner (for the report; one transient
+        each, journalled like the AC analyses).
 
     Returns
     -------
@@ -198,16 +217,18 @@ def measure(
     benches = {c.name: build_testbench(amplifier, c, values) for c in job.corners}
     if out is None:
         return _measure_into(job, amplifier, values, benches, None, None, pool, workers,
-                             progress, started)
+                             progress, started, time_domain)
     folder = OutFolder(out)
     with folder.lock():
         with Journal(folder.path / JOURNAL_FILE) as journal:
             return _measure_into(job, amplifier, values, benches, folder, journal, pool,
-                                 workers, progress, started)
+                                 workers, progress, started, time_domain)
 
 
 def _measure_into(job, amplifier, values, benches, folder, journal, pool, workers, progress,
-                  started) -> MeasureResult:
+                  started, time_domain) -> MeasureResult:
+    from .stepcheck import run_step_checks, step_stop_s
+
     stems = corner_files(job.corners)
     if folder is not None:
         for name, bench in benches.items():
@@ -217,8 +238,9 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
     runner = Runner(pool, journal, file_digests(amplifier.files))
+    requests = [(name, b.request(job.analysis.time_limit_s)) for name, b in benches.items()]
+    checks = {}
     try:
-        requests = [(name, b.request(job.analysis.time_limit_s)) for name, b in benches.items()]
         for name, output, _reused in runner.run(requests):
             bench = benches[name]
             result = result_from_output(bench, output, amplifier)
@@ -228,14 +250,26 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                            background=True)
             if progress is not None:
                 progress(len(results), len(benches), result)
+        if time_domain:
+            ok = tuple(results[c.name].corner for c in job.corners
+                       if c.name in results and results[c.name].status == "ok")
+            stop_s = step_stop_s(amplifier, [results[c.name].margins.unity_gain_hz for c in
+                                             job.corners if c.name in results and
+                                             results[c.name].margins is not None])
+            checks = run_step_checks(amplifier, ok, values, runner, stop_s,
+                                     job.analysis.time_limit_s)
     finally:
         if own_pool:
             pool.close()
         ordered = tuple(results[c.name] for c in job.corners if c.name in results)
+        keys = {name: runner.key_of(r) for name, r in requests}
         result = MeasureResult(job=job, values=values, corners=ordered, ac_run=runner.ac_run,
                                ac_reused=runner.ac_reused,
                                out=folder.path if folder else None,
-                               seconds=time.perf_counter() - started)
+                               seconds=time.perf_counter() - started, keys=keys,
+                               step_checks=checks,
+                               transient_run=runner.transient_run,
+                               transient_reused=runner.transient_reused)
         if folder is not None:
             data = result.as_json()
             if len(ordered) < len(job.corners):

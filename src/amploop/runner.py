@@ -17,6 +17,10 @@ from .simulator import AnalysisOutput, AnalysisRequest
 __all__ = ["Runner"]
 
 
+def _transients(request: AnalysisRequest) -> int:
+    return sum(step.command.split()[0].lower() == "tran" for step in request.steps)
+
+
 @dataclass
 class Runner:
     """Runs analysis requests on a pool, through an optional journal.
@@ -40,6 +44,12 @@ class Runner:
     ac_reused: int = 0
     analyses_run: int = 0
     simulator_seconds: float = 0.0  # wall time the workers spent inside ngspice
+    transient_run: int = 0
+    transient_reused: int = 0
+
+    def key_of(self, request: AnalysisRequest) -> str:
+        """The journal key of a request."""
+        return analysis_key(request, self.digests)
 
     def run(self, items: Iterable[tuple[Hashable, AnalysisRequest]]
             ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError, bool]]:
@@ -65,6 +75,7 @@ class Runner:
                 misses.append((key, request))
                 continue
             self.ac_reused += request.ac_runs * len(by_key[key])
+            self.transient_reused += _transients(request) * len(by_key[key])
             for tag in by_key[key]:
                 yield tag, stored, True
         for key, output in self.pool.run(misses):
@@ -73,6 +84,7 @@ class Runner:
                 self.analyses_run += 1
                 self.simulator_seconds += output.seconds
                 self.ac_run += request.ac_runs
+                self.transient_run += _transients(request)
                 self.ac_reused += request.ac_runs * (len(by_key[key]) - 1)
                 if self.journal is not None:
                     self.journal.put(key, request.label, request, output)

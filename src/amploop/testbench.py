@@ -27,7 +27,8 @@ from .probe import Probe, make_probe
 from .simulator import AnalysisOutput, AnalysisRequest, Step
 from .units import parse_value, spice_number
 
-__all__ = ["Testbench", "build_testbench", "NODE_AMP", "NODE_FEEDBACK", "port_node"]
+__all__ = ["Testbench", "StepBench", "build_testbench", "build_step_testbench", "NODE_AMP",
+           "NODE_FEEDBACK", "port_node"]
 
 #: Amplifier side of the probe: the subckt's output with the load.
 NODE_AMP = "tb_out"
@@ -163,6 +164,76 @@ def build_testbench(
     steps = tuple(extra_steps) + probe.steps(ac_command, NODE_AMP, NODE_FEEDBACK)
     return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, probe=probe,
                      files=amplifier.files, notes=tuple(notes), label=label or corner.name)
+
+
+@dataclass(frozen=True)
+class StepBench:
+    """A closed-loop small-step transient for one corner (probe replaced by a short).
+
+    The signal source steps by ``step_v`` at ``step_at_s``; the output moves by the
+    closed-loop gain times that (−Z2/Z1 for the inverting configuration).
+    """
+
+    corner: Corner
+    values: dict[str, float]
+    deck: str
+    steps: tuple[Step, ...]
+    step_v: float
+    step_at_s: float
+    stop_s: float
+    label: str = ""
+
+    def request(self, time_limit_s: float) -> AnalysisRequest:
+        return AnalysisRequest(label=self.label or self.corner.name, deck=self.deck,
+                               steps=self.steps, time_limit_s=time_limit_s)
+
+
+def build_step_testbench(
+    amplifier: Amplifier,
+    corner: Corner,
+    values: dict[str, float],
+    *,
+    step_v: float,
+    stop_s: float,
+    label: str | None = None,
+) -> StepBench:
+    """Write the closed-loop step-response deck for one corner.
+
+    Parameters
+    ----------
+    step_v
+        Size of the input step at the signal source, volts (small: the loop stays linear).
+    stop_s
+        Length of the transient, seconds; the step comes at 2 % of it.
+
+    The deck tightens ngspice's tolerances (reltol 1e-6, vntol 1 nV) so that a 0.1 %
+    settling band of a few-millivolt step is resolved; the loop-gain decks are left alone.
+    """
+    from .expressions import evaluate
+
+    job = amplifier.job
+    full_values = amplifier.values_in_effect(values)
+    try:
+        start = evaluate(job.bias.common_mode, {k: repr(v) for k, v in corner.params.items()})
+        low, high = spice_number(start), spice_number(start + step_v)
+    except ValueError:
+        low, high = _quote(job.bias.common_mode), "{" + f"{job.bias.common_mode}+{step_v!r}" + "}"
+    step_at = 0.02 * stop_s
+    rise = 1e-4 * stop_s
+    signal = (f"pulse({low} {high} {spice_number(step_at)} {spice_number(rise)} "
+              f"{spice_number(rise)} {spice_number(10 * stop_s)} {spice_number(20 * stop_s)})")
+    deck, _ = closed_loop_deck(
+        amplifier, corner, full_values,
+        loop_elements=[f"Vprobe {NODE_FEEDBACK} {NODE_AMP} dc 0",
+                       ".options reltol=1e-6 vntol=1e-9 abstol=1e-15"],
+        title=f"amploop step response: job {job.name}, corner {corner.name}",
+        signal=signal,
+    )
+    tmax = stop_s / 4000
+    command = f"tran {spice_number(tmax)} {spice_number(stop_s)} 0 {spice_number(tmax)}"
+    return StepBench(corner=corner, values=full_values, deck=deck,
+                     steps=(Step(command, ("time", f"v({NODE_AMP})")),), step_v=step_v,
+                     step_at_s=step_at, stop_s=stop_s, label=label or f"{corner.name} (step)")
 
 
 def closed_loop_deck(

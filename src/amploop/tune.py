@@ -11,7 +11,7 @@ from __future__ import annotations
 import difflib
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .amplifier import Amplifier, prepare_amplifier
@@ -23,7 +23,10 @@ from .outputs import OutFolder
 from .pool import WorkerPool
 from .runner import Runner
 from .strategy import STRATEGIES, Evaluator, Outcome
-from .strategy.common import HistoryEntry
+from .stepcheck import run_step_checks, step_stop_s, with_step
+from .strategy.common import Evaluator as _Evaluator
+from .strategy.common import HistoryEntry, bounds_of
+from .strategy.mapping import initial_samples
 
 __all__ = ["TuneResult", "tune"]
 
@@ -43,6 +46,9 @@ class TuneResult:
     compensated: dict | None = None
     loop_gains: dict | None = None
     simulator_seconds: float = 0.0
+    step_checks: dict = field(default_factory=dict)
+    transient_run: int = 0
+    transient_reused: int = 0
 
     @property
     def status(self) -> str:
@@ -68,7 +74,8 @@ class TuneResult:
                 "tolerance_deg": target.tolerance_deg,
                 "gain_margin_db": target.gain_margin_db,
             },
-            "corners": [c.as_json() for c in self.corners],
+            "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
+                        for c in self.corners],
             "limiting_corner": worst.limiting_corner if worst else None,
             "worst": None if worst is None else {
                 "phase_margin_deg": worst.phase_margin_deg,
@@ -77,10 +84,24 @@ class TuneResult:
                 "bandwidth_corner": worst.bandwidth_corner,
             },
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+            "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
+            "probe": self.job.analysis.probe,
+            "job_file": str(self.job.path),
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "seconds": self.seconds,
         }
+
+
+def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
+    knobs = evaluator.amplifier.job.compensation
+    in_effect = evaluator.full_values({})
+    rc_bounds = bounds_of(knobs.get("rc"), in_effect.get("rc", 0.0))
+    rc = min(max(in_effect.get("rc", 0.0), rc_bounds[0]), rc_bounds[1])
+    samples = initial_samples(bounds_of(knobs["cc"], in_effect["cc"]), rc)
+    if "rc" not in in_effect:
+        samples = [{"cc": p["cc"]} for p in samples]
+    return samples
 
 
 def compensated_netlist(amplifier: Amplifier, values: dict[str, float], folder: OutFolder
@@ -169,6 +190,19 @@ def tune(
         evaluator.progress = progress
         try:
             outcome = STRATEGIES[strategy](evaluator, job.target)
+            if outcome.final is not None and not any(h.kind == "characterise"
+                                                     for h in evaluator.history):
+                # the report's map page needs three samples per corner; journalled like the
+                # rest, kept apart in the history
+                evaluator.simulate(_report_samples(evaluator), kind="report-map",
+                                   note="samples for the report's compensation map")
+            checks = {}
+            if outcome.final is not None:
+                stop_s = step_stop_s(amplifier, [c.margins and c.margins.unity_gain_hz
+                                                 for c in outcome.final.corners])
+                ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
+                checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
+                                         job.analysis.time_limit_s)
         finally:
             if own_pool:
                 pool.close()
@@ -181,7 +215,9 @@ def tune(
                             ac_reused=runner.ac_reused, out=folder.path,
                             seconds=time.perf_counter() - started, compensated=compensated,
                             loop_gains=dict(evaluator.loop_gains),
-                            simulator_seconds=runner.simulator_seconds)
+                            simulator_seconds=runner.simulator_seconds, step_checks=checks,
+                            transient_run=runner.transient_run,
+                            transient_reused=runner.transient_reused)
         folder.write_json("results.json", result.as_json())
     return result
 

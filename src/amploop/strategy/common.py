@@ -98,6 +98,7 @@ class HistoryEntry:
     worst: WorstCase | None
     ac_analyses: int  # AC analyses (run + reused) so far, this point included
     note: str = ""
+    analyses: dict[str, str] = field(default_factory=dict)  # corner -> journal key
 
     def as_json(self) -> dict:
         w = self.worst
@@ -111,6 +112,7 @@ class HistoryEntry:
             "limiting_corner": w and w.limiting_corner,
             "ac_analyses": self.ac_analyses,
             "note": self.note,
+            "analyses": dict(self.analyses),
         }
 
 
@@ -183,6 +185,7 @@ class Evaluator:
         results: dict[tuple[int, str], CornerResult] = {}
         before = self.ac_analyses
         requests = [(key, b.request(self.time_limit_s)) for key, b in benches.items()]
+        requests_by_key = dict(requests)
         for key, output, _ in self.runner.run(requests):
             results[key] = result_from_output(benches[key], output, self.amplifier)
         out = []
@@ -191,9 +194,11 @@ class Evaluator:
             corners = tuple(results[(i, c.name)] for c in self.corners)
             point = PointResult(values=values, corners=corners)
             out.append(point)
+            keys = {c.name: self.runner.key_of(requests_by_key[(i, c.name)])
+                    for c in self.corners}
             entry = HistoryEntry(step=len(self.history) + 1, kind=kind, values=values,
                                  worst=point.worst, ac_analyses=round(before + per_point * (i + 1)),
-                                 note=note)
+                                 note=note, analyses=keys)
             self.history.append(entry)
             for c in corners:
                 if c.loop_gain is not None:
