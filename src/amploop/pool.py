@@ -36,7 +36,14 @@ def default_workers() -> int:
 def _worker_main(conn) -> None:
     """Body of a worker process: run requests until told to stop or ngspice breaks."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the coordinator's business
+    import tempfile
+
     from .simulator import NgspiceSession
+
+    # some model cards make ngspice write files into the working directory (BSIM4's
+    # parameter check writes bsim4v5.out): keep them out of the user's folder
+    scratch = tempfile.TemporaryDirectory(prefix="amploop-worker-")
+    os.chdir(scratch.name)
 
     try:
         session = NgspiceSession()
