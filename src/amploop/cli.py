@@ -69,6 +69,8 @@ def _parser() -> argparse.ArgumentParser:
     common.add_argument("--quiet", action="store_true", help="print only errors")
     common.add_argument("--json", action="store_true",
                         help="print one JSON summary line instead of the table")
+    common.add_argument("--no-report", action="store_true",
+                        help="skip report.pdf (build it later with: amploop report OUTDIR)")
 
     commands.add_parser("measure", parents=[common], help="measure loop gain and margins",
                         description="Measure the loop gain and its margins at every corner.")
@@ -81,7 +83,30 @@ def _parser() -> argparse.ArgumentParser:
                       "hand procedure")
     tune.add_argument("--resume", action="store_true",
                       help="continue an interrupted run in the same out folder")
+    report = commands.add_parser(
+        "report", help="rebuild report.pdf of an out folder (no simulation)",
+        description="Draw report.pdf and its PNG pages from an out folder's results.json and "
+        "journal, without simulating.")
+    report.add_argument("out", metavar="OUTDIR", help="an out folder of measure or tune")
+    report.add_argument("--no-png", action="store_true", help="write the PDF only")
     return parser
+
+
+def _write_report(out, *, quiet: bool, pngs: bool = True) -> None:
+    from .report import build_report
+
+    outcome = build_report(out, pngs=pngs)
+    if not quiet:
+        print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
+
+
+def _run_report(args) -> ExitCode:
+    from pathlib import Path
+
+    if not Path(args.out).is_dir():
+        raise OutputError("not a folder", file=args.out)
+    _write_report(args.out, quiet=False, pngs=not args.no_png)
+    return ExitCode.OK
 
 
 def _table(rows: list[list[str]], header: list[str]) -> str:
@@ -170,6 +195,8 @@ def _run_measure(args) -> ExitCode:
             for warning in c.warnings:
                 print(f"amploop: warning: corner {c.corner.name}: {warning}", file=sys.stderr)
     _print_corner_errors(failed, len(result.corners))
+    if not args.no_report and any(c.status == "ok" for c in result.corners):
+        _write_report(result.out, quiet=args.quiet or args.json)
     if failed:
         if all(c.error and "parse error" in c.error for c in failed):
             return ExitCode.BAD_INPUT
@@ -223,6 +250,8 @@ def _run_tune(args) -> ExitCode:
               f"{len(result.history)} points in {result.seconds:.1f} s; results in {result.out}")
         if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
             print(f"compensated netlist: {data['compensated_netlist']['path']}")
+    if not args.no_report and result.outcome.final is not None:
+        _write_report(result.out, quiet=args.quiet or args.json)
     if result.status == "converged":
         return ExitCode.OK
     print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)
@@ -240,6 +269,8 @@ def main(argv: list[str] | None = None) -> int:
             return int(_run_measure(args))
         if args.command == "tune":
             return int(_run_tune(args))
+        if args.command == "report":
+            return int(_run_report(args))
         parser.error(f"unknown command {args.command}")
     except AmploopError as error:
         print(f"amploop: error: {error}", file=sys.stderr)

@@ -95,7 +95,9 @@ class Journal:
     Parameters
     ----------
     path
-        The database file (created when missing).
+        The database file (created when missing, unless ``readonly``).
+    readonly
+        Open for reading only (the report); never creates or changes the file.
 
     Raises
     ------
@@ -103,13 +105,20 @@ class Journal:
         If the file is not an amploop journal, is corrupt, or comes from another schema.
     """
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, readonly: bool = False) -> None:
         self.path = Path(path)
-        fresh = not self.path.exists() or self.path.stat().st_size == 0
+        if readonly and not self.path.is_file():
+            raise JournalError("no journal here", file=self.path,
+                               hint="run measure or tune into this out folder first")
+        fresh = not readonly and (not self.path.exists() or self.path.stat().st_size == 0)
         try:
-            self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
-            self._db.execute("PRAGMA journal_mode=WAL")
-            self._db.execute("PRAGMA synchronous=NORMAL")
+            if readonly:
+                self._db = sqlite3.connect(f"file:{self.path}?mode=ro", uri=True,
+                                           isolation_level=None, timeout=5.0)
+            else:
+                self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
+                self._db.execute("PRAGMA journal_mode=WAL")
+                self._db.execute("PRAGMA synchronous=NORMAL")
             if fresh:
                 self._create()
             self._check()

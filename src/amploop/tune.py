@@ -49,6 +49,7 @@ class TuneResult:
     step_checks: dict = field(default_factory=dict)
     transient_run: int = 0
     transient_reused: int = 0
+    values_in_netlist: dict = field(default_factory=dict)
 
     @property
     def status(self) -> str:
@@ -87,6 +88,8 @@ class TuneResult:
             "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
             "probe": self.job.analysis.probe,
             "job_file": str(self.job.path),
+            "values_in_netlist": dict(self.values_in_netlist),
+            "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "seconds": self.seconds,
@@ -217,7 +220,8 @@ def tune(
                             loop_gains=dict(evaluator.loop_gains),
                             simulator_seconds=runner.simulator_seconds, step_checks=checks,
                             transient_run=runner.transient_run,
-                            transient_reused=runner.transient_reused)
+                            transient_reused=runner.transient_reused,
+                            values_in_netlist=amplifier.values_in_effect({}))
         folder.write_json("results.json", result.as_json())
     return result
 

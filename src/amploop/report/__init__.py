@@ -1,0 +1,89 @@
+"""The review: a PDF of Bode plots and evidence per run, rebuilt from the out folder alone.
+
+:func:`build_report` reads results.json and the journal (never the simulator), draws the
+pages and writes ``report.pdf`` plus PNG copies of the plot pages in ``report/``.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import time
+from pathlib import Path
+
+import matplotlib.pyplot as plt
+from matplotlib.backends.backend_pdf import PdfPages
+
+from ..errors import OutputError
+from ..job import safe_filename
+from . import style
+from .data import ReportData, load_report_data
+from .pages import convergence_page, corner_page, map_page, summary_pages, time_domain_page
+
+__all__ = ["build_report", "ReportOutcome"]
+
+
+class ReportOutcome:
+    """Where the report went and what it took."""
+
+    def __init__(self, pdf: Path, pngs: list[Path], pages: int, seconds: float,
+                 analyses_read: int) -> None:
+        self.pdf, self.pngs, self.pages = pdf, pngs, pages
+        self.seconds, self.analyses_read = seconds, analyses_read
+
+
+def build_report(out: str | Path, *, pngs: bool = True) -> ReportOutcome:
+    """Write ``report.pdf`` (and ``report/page-NN-*.png``) for an out folder.
+
+    Pages: summary and corner table (continued over pages for long corner lists); one
+    page per corner in the job's order; the compensation map of the limiting corner; how
+    the tuning converged; the closed-loop step responses.
+
+    Raises
+    ------
+    OutputError, JournalError
+        When the out folder lacks results.json or the journal entries it names.
+    """
+    started = time.perf_counter()
+    data = load_report_data(out)
+    target = data.results.get("target", {}).get("phase_margin_deg")
+    date = _dt.datetime.now().strftime("%Y-%m-%d %H:%M")
+    pages: list[tuple[str, object, bool]] = []  # (name, figure, is a plot page)
+    with plt.rc_context(style.RC):
+        for i, fig in enumerate(summary_pages(data, date)):
+            pages.append((f"summary-{i + 1}" if i else "summary", fig, False))
+        for name in data.corner_names:
+            pages.append((f"corner-{safe_filename(name)}", corner_page(data, name, target), True))
+        if data.maps:
+            pages.append(("map", map_page(data), True))
+        if data.command == "tune":
+            pages.append(("convergence", convergence_page(data, target), True))
+        if data.steps:
+            pages.append(("step-response", time_domain_page(data), True))
+        pdf_path = data.out / "report.pdf"
+        png_dir = data.out / "report"
+        written: list[Path] = []
+        try:
+            if pngs:
+                png_dir.mkdir(exist_ok=True)
+                for old in png_dir.glob("page-*.png"):
+                    old.unlink()
+            temporary = pdf_path.with_name(".report.pdf.tmp")
+            with PdfPages(temporary, metadata={"Title": f"amploop report: {data.results['job']}",
+                                               "Creator": "amploop"}) as pdf:
+                for number, (name, fig, is_plot) in enumerate(pages, start=1):
+                    pdf.savefig(fig)
+                    if pngs and (is_plot or number == 1):
+                        png = png_dir / f"page-{number:02d}-{name}.png"
+                        fig.savefig(png)
+                        written.append(png)
+                    plt.close(fig)
+            temporary.replace(pdf_path)
+        except OSError as exc:
+            raise OutputError(f"cannot write the report: {exc.strerror or exc}", file=data.out) from None
+    return ReportOutcome(pdf_path, written, len(pages), time.perf_counter() - started,
+                         data.analyses_read)
+
+
+def report_data(out: str | Path) -> ReportData:
+    """The report's data without drawing (for tests and notebooks)."""
+    return load_report_data(out)

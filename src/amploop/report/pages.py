@@ -1,0 +1,433 @@
+"""The report's pages, one function each, drawn from :class:`~.data.ReportData`."""
+
+from __future__ import annotations
+
+import math
+import textwrap
+
+import matplotlib.pyplot as plt
+import numpy as np
+
+from ..margins import grid_margins, loop_margins
+from ..strategy.mapsolve import cc_grid, rc_grid
+from ..units import engineering
+from . import style
+from .data import ReportData
+
+__all__ = ["summary_pages", "corner_page", "map_page", "convergence_page", "time_domain_page"]
+
+CAUTIONS = (
+    "Results are only as good as the device models and netlist they were simulated with. "
+    "A small-signal loop gain says nothing about slewing or large-signal settling. "
+    "Sign-off stays with the designer's own models, simulator, flow and foundry rules."
+)
+
+ROWS_FIRST, ROWS_MORE = 18, 34
+
+
+def _figure():
+    return plt.figure(figsize=style.PAGE)
+
+
+def _fmt(value, spec: str, unit: str = "") -> str:
+    if value is None:
+        return "–"
+    if unit:
+        return engineering(value, unit)
+    return format(value, spec)
+
+
+def _values_text(values: dict) -> str:
+    parts = []
+    if "cc" in values:
+        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
+    if "rc" in values:
+        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
+    return ",  ".join(parts)
+
+
+def _corner_rows(data: ReportData) -> list[list[str]]:
+    limiting = data.limiting_corner
+    rows = []
+    for c in data.results["corners"]:
+        mark = " ◀ limiting" if c["name"] == limiting else ""
+        rows.append([
+            c["name"] + mark,
+            _fmt(c.get("dc_loop_gain_db"), ".1f"),
+            _fmt(c.get("unity_gain_hz"), "", "Hz"),
+            _fmt(c.get("phase_margin_deg"), ".2f"),
+            _fmt(c.get("gain_margin_db"), ".1f"),
+            _fmt(c.get("overshoot_pct"), ".2f"),
+            _fmt(c.get("settling_time_s"), "", "s"),
+            "ok" if c.get("status") == "ok" else "ERROR",
+        ])
+    return rows
+
+
+_HEADER = ["corner", "DC loop gain\n(dB)", "unity-gain\nfrequency", "phase margin\n(°)",
+           "gain margin\n(dB)", "step overshoot\n(%)", "settling\ntime", "status"]
+
+
+def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:
+    ax.axis("off")
+    table = ax.table(cellText=rows, colLabels=_HEADER, loc="upper center", cellLoc="right",
+                     colLoc="right", colWidths=[0.26, 0.1, 0.1, 0.1, 0.1, 0.1, 0.1, 0.07])
+    table.auto_set_font_size(False)
+    table.set_fontsize(8)
+    table.scale(1, 1.25)
+    for (row, col), cell in table.get_celld().items():
+        if row == 0:
+            cell.set_height(cell.get_height() * 1.9)
+        cell.set_edgecolor("#cccccc")
+        cell.set_linewidth(0.4)
+        if col == 0:
+            cell.set_text_props(ha="left")
+            cell._loc = "left"
+        if row == 0:
+            cell.set_text_props(weight="bold", color="#333333")
+            cell.set_facecolor("#f0f0f0")
+        elif row - 1 in limiting_rows:
+            cell.set_text_props(color=style.LIMIT, weight="bold")
+        elif rows[row - 1][-1] == "ERROR":
+            cell.set_text_props(color=style.LIMIT)
+
+
+def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") -> list:
+    """Page 1 (and continuation pages of the corner table for long corner lists)."""
+    r = data.results
+    rows = _corner_rows(data)
+    limiting = {i for i, c in enumerate(r["corners"]) if c["name"] == data.limiting_corner}
+    figures = []
+    fig = _figure()
+    fig.text(0.05, 0.94, f"amploop report — {r['job']}", fontsize=17, weight="bold")
+    status = r.get("status", "?")
+    colour = style.FINAL if status in ("ok", "converged") else style.LIMIT
+    what = ("tuned with the " + r.get("strategy", "map") + " strategy") if data.command == "tune" \
+        else "measured at the netlist's values"
+    fig.text(0.05, 0.905, f"{date}   ·   {len(rows)} corners {what}", fontsize=10,
+             color=style.MUTED)
+    fig.text(0.95, 0.94, status.upper(), fontsize=15, color="white", weight="bold", ha="right",
+             bbox=dict(boxstyle="round,pad=0.4", facecolor=colour, edgecolor="none"))
+    lines = []
+    if data.command == "tune":
+        t = r["target"]
+        gm = f", gain margin ≥ {t['gain_margin_db']:g} dB" if t.get("gain_margin_db") is not None else ""
+        lines.append(f"Target: worst-corner phase margin ≥ {t['phase_margin_deg']:g}° "
+                     f"(within +{t['tolerance_deg']:g}°){gm}")
+        lines.append(f"Chosen: {_values_text(r['values'])}")
+        if r.get("message"):
+            lines.append(r["message"])
+    else:
+        lines.append(f"Values in effect: {_values_text(r['values'])}")
+    first_step = next((c.get("step") for c in r["corners"] if c.get("step")), None)
+    if first_step:
+        lines.append(f"Step response: {engineering(first_step['step_v'], 'V')} input step at the "
+                     f"signal source; settling time to ±{first_step['band']:.1%} of the output step")
+    ac = r.get("ac_analyses", {})
+    tr = r.get("transient_analyses", {})
+    lines.append(f"AC analyses: {ac.get('run', 0)} run, {ac.get('reused', 0)} reused;  "
+                 f"step transients: {tr.get('run', 0)} run, {tr.get('reused', 0)} reused;  "
+                 f"wall time {r.get('seconds', 0):.1f} s")
+    y = 0.86
+    for line in lines:
+        for part in textwrap.wrap(line, 150):
+            fig.text(0.05, y, part, fontsize=9.5)
+            y -= 0.028
+    first = rows[:ROWS_FIRST]
+    ax = fig.add_axes((0.05, 0.12, 0.9, y - 0.14))
+    _table(ax, first, {i for i in limiting if i < ROWS_FIRST})
+    if len(rows) > ROWS_FIRST:
+        fig.text(0.05, 0.1, f"… table continues: {len(rows) - ROWS_FIRST} more corners on the "
+                 "next page(s)", fontsize=8, color=style.MUTED)
+    _footer(fig, render_seconds_hint)
+    figures.append(fig)
+    for start in range(ROWS_FIRST, len(rows), ROWS_MORE):
+        fig = _figure()
+        fig.text(0.05, 0.94, f"Corners {start + 1}–{min(start + ROWS_MORE, len(rows))} of "
+                 f"{len(rows)}", fontsize=13, weight="bold")
+        ax = fig.add_axes((0.05, 0.1, 0.9, 0.8))
+        chunk = rows[start:start + ROWS_MORE]
+        _table(ax, chunk, {i - start for i in limiting if start <= i < start + ROWS_MORE})
+        _footer(fig)
+        figures.append(fig)
+    return figures
+
+
+def _footer(fig, extra: str = "") -> None:
+    text = "Cautions: " + CAUTIONS + (f"  {extra}" if extra else "")
+    for i, part in enumerate(textwrap.wrap(text, 190)):
+        fig.text(0.05, 0.045 - 0.018 * i, part, fontsize=7, color=style.MUTED)
+
+
+def corner_page(data: ReportData, name: str, target_pm: float | None):
+    """Magnitude and phase of one corner's loop gain, with the tuning's story."""
+    corner = data.corner(name)
+    fig = _figure()
+    limiting = name == data.limiting_corner
+    title = f"Corner {name}" + ("  — limiting corner" if limiting else "")
+    fig.text(0.06, 0.95, title, fontsize=13, weight="bold",
+             color=style.LIMIT if limiting else "black")
+    params = ", ".join(f"{k} = {engineering(v)}" for k, v in corner.get("params", {}).items())
+    lib = f"lib {corner['lib']}, " if corner.get("lib") else ""
+    fig.text(0.06, 0.922, f"{lib}{corner.get('temp', 27):g} °C" + (f", {params}" if params else ""),
+             fontsize=9, color=style.MUTED)
+    mag = fig.add_axes((0.07, 0.52, 0.6, 0.36))
+    phase = fig.add_axes((0.07, 0.1, 0.6, 0.36), sharex=mag)
+    curves = data.curves.get(name, [])
+    steps = [c for c in curves if c.kind == "step"]
+    for curve in curves:
+        if curve.kind == "final":
+            kw = dict(color=style.FINAL, lw=2.0, zorder=5)
+        elif curve.kind == "start":
+            kw = dict(color=style.START, lw=1.2, ls="--", zorder=3)
+        else:
+            kw = dict(color=style.step_colour(steps.index(curve), len(steps)), lw=0.9, zorder=2)
+        f = curve.response.frequency_hz
+        mag.semilogx(f, curve.response.magnitude_db, label=curve.label, **kw)
+        phase.semilogx(f, curve.response.phase_deg, **kw)
+    mag.axhline(0, color=style.MUTED, lw=0.8)
+    phase.axhline(-180, color=style.MUTED, lw=0.8)
+    mag.set_ylabel("loop gain |T| (dB)")
+    phase.set_ylabel("phase ∠T (°)")
+    phase.set_xlabel("frequency")
+    phase.xaxis.set_major_formatter(style.hertz)
+    plt.setp(mag.get_xticklabels(), visible=False)
+    final = data.finals.get(name)
+    notes = []
+    if final is not None:
+        m = loop_margins(final)
+        low = max(-270.0, float(np.nanmin(final.phase_deg)) - 10)
+        phase.set_ylim(low, max(20.0, float(np.nanmax(final.phase_deg)) + 10))
+        mag.set_ylim(max(-80.0, float(np.nanmin(final.magnitude_db)) - 5),
+                     float(np.nanmax(final.magnitude_db)) + 8)
+        if m.unity_gain_hz is not None:
+            fu, pm = m.unity_gain_hz, m.phase_margin_deg
+            for ax in (mag, phase):
+                ax.axvline(fu, color=style.FINAL, lw=0.8, ls=":")
+            phase.annotate("", xy=(fu, pm - 180), xytext=(fu, -180),
+                           arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+            phase.text(fu * 1.25, -180 + pm / 2, f"phase\nmargin\n{pm:.2f}°", color=style.LIMIT,
+                       fontsize=8.5, va="center", ha="left",
+                       bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+            mag.text(fu * 1.15, 2, f"crossover {engineering(fu, 'Hz')}", color=style.FINAL,
+                     fontsize=9, va="bottom")
+            notes += [f"unity gain {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
+            if target_pm is not None:
+                phase.axhline(target_pm - 180, color=style.LIMIT, lw=0.7, ls="--")
+                phase.text(final.frequency_hz[0] * 1.3, target_pm - 180 + 2,
+                           f"target {target_pm:g}° of margin", color=style.LIMIT, fontsize=7.5)
+        if m.gain_margin_db is not None:
+            fx, gm = m.phase_crossover_hz, m.gain_margin_db
+            mag.annotate("", xy=(fx, -gm), xytext=(fx, 0),
+                         arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+            mag.text(fx * 1.25, -gm / 2, f"gain margin\n{gm:.1f} dB", color=style.LIMIT,
+                     fontsize=8.5, va="center",
+                     bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+            phase.axvline(fx, color=style.LIMIT, lw=0.6, ls=":")
+            notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
+        notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
+    else:
+        mag.text(0.5, 0.5, f"not measured: {corner.get('error')}", transform=mag.transAxes,
+                 ha="center", color=style.LIMIT, wrap=True)
+    handles, labels = mag.get_legend_handles_labels()
+    if handles:
+        fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(0.69, 0.89),
+                   title="loop gain at", title_fontsize=8, alignment="left")
+    y = 0.4
+    fig.text(0.695, y + 0.035, "final values", fontsize=9, weight="bold", color=style.FINAL)
+    for note in notes:
+        fig.text(0.695, y, note, fontsize=9)
+        y -= 0.03
+    step = data.steps.get(name)
+    if step is not None and step.metrics is not None:
+        settle = _fmt(step.metrics.settling_s, "", "s")
+        fig.text(0.695, y - 0.01, f"step response: overshoot {step.metrics.overshoot_pct:.2f} %,\n"
+                 f"settles to ±{step.metrics.band:.1%} in {settle}", fontsize=9, va="top")
+    return fig
+
+
+def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray):
+    pm_w = np.full((cc.size, rc.size), np.inf)
+    gm_w = np.full((cc.size, rc.size), np.inf)
+    for cmap in data.maps.values():
+        pick = slice(None, None, 2)
+        values = cmap.loop_gain_values(cc[:, None], rc[None, :], frequency_index=pick)
+        pm, _, gm = grid_margins(cmap.frequency_hz[pick], values)
+        pm_w = np.fmin(pm_w, np.where(np.isnan(pm), -np.inf, pm))
+        gm_w = np.fmin(gm_w, gm)
+    return pm_w, gm_w
+
+
+def map_page(data: ReportData):
+    """Phase margin and unity-gain frequency of the limiting corner over (Cc, Rc)."""
+    name = data.limiting_corner
+    cmap = data.maps.get(name) if name else None
+    fig = _figure()
+    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name})", fontsize=13,
+             weight="bold")
+    fig.text(0.06, 0.922, "Every point computed from three analyses of the corner (the loop gain "
+             "is bilinear in the branch impedance Rc + 1/sCc); shaded: all corners meet the target.",
+             fontsize=8.5, color=style.MUTED)
+    ax = fig.add_axes((0.08, 0.1, 0.62, 0.78))
+    if cmap is None:
+        ax.text(0.5, 0.5, "no compensation map in this out folder", ha="center",
+                transform=ax.transAxes)
+        return fig
+    r = data.results
+    knobs = r.get("bounds") or {}
+    cc_lo, cc_hi = knobs.get("cc", [min(s[0] for s in cmap.samples) / 3, max(s[0] for s in cmap.samples) * 3])
+    rc_lo, rc_hi = knobs.get("rc", [0.0, max(max(s[1] for s in cmap.samples) * 3, 1.0)])
+    cc = cc_grid(cc_lo, cc_hi, 60)
+    rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
+    values = cmap.loop_gain_values(cc[:, None], rc[None, :])
+    pm, ugf, _ = grid_margins(cmap.frequency_hz, values)
+    if rc.size > 1:
+        target = r.get("target", {})
+        if target:
+            pm_w, gm_w = _worst_grid(data, cc, rc)
+            ok = pm_w >= target["phase_margin_deg"]
+            if target.get("gain_margin_db") is not None:
+                ok &= gm_w >= target["gain_margin_db"]
+            ax.contourf(cc, rc, ok.T.astype(float), levels=[0.5, 1.5], colors=[style.FEASIBLE])
+        levels = [lv for lv in (30, 40, 50, 55, 60, 65, 70, 75, 80, 90) if np.nanmin(pm) < lv < np.nanmax(pm)]
+        cs = ax.contour(cc, rc, pm.T, levels=levels, colors=[style.FINAL], linewidths=0.9)
+        ax.clabel(cs, fmt=lambda v: f"{v:g}°", fontsize=7.5)
+        finite = ugf[np.isfinite(ugf)]
+        if finite.size:
+            ulevels = np.geomspace(finite.min(), finite.max(), 7)[1:-1]
+            ulevels = sorted({float(f"{u:.2g}") for u in ulevels})
+            cu = ax.contour(cc, rc, ugf.T, levels=ulevels, colors=[style.MUTED], linewidths=0.7,
+                            linestyles="--")
+            ax.clabel(cu, fmt=lambda v: engineering(v, "Hz", 2), fontsize=7)
+    ax.set_xscale("log")
+    ax.xaxis.set_major_formatter(style.farads)
+    ax.yaxis.set_major_formatter(style.ohms)
+    ax.set_xlabel("Cc")
+    ax.set_ylabel("Rc")
+    history = [h for h in r.get("history", []) if h["kind"] not in ("report-map",)]
+    textbook = [h for h in history if h["kind"] in ("start", "dominant-pole", "lead", "adjust-cc")]
+    if textbook:
+        xs = [h["values"]["cc"] for h in textbook]
+        ys = [h["values"].get("rc", 0.0) for h in textbook]
+        ax.plot(xs, ys, "-o", color=style.TEXTBOOK, ms=4, lw=1.2, label="textbook procedure, step by step")
+    samples = [h for h in r.get("history", []) if h["kind"] in ("characterise", "report-map")][-3:]
+    ax.plot([h["values"]["cc"] for h in samples], [h["values"].get("rc", 0.0) for h in samples],
+            "s", color=style.START, ms=6, label="the three simulated samples the map is built on")
+    chosen = r.get("values", {})
+    if "cc" in chosen:
+        ax.plot([chosen["cc"]], [chosen.get("rc", 0.0)], "*", color=style.FINAL, ms=16,
+                markeredgecolor="white", label=f"chosen: {_values_text(chosen)}", zorder=6)
+    if rc.size > 1:
+        pad = 0.03 * (rc[-1] - rc[0])
+        ax.set_ylim(rc[0] - pad, rc[-1] + pad)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
+    fig.text(0.72, 0.55, "solid lines: phase margin of this corner\n"
+             "dashed lines: its unity-gain frequency\n"
+             "green: every corner meets the target", fontsize=8.5, color=style.MUTED, va="top")
+    return fig
+
+
+_POINT_WORDS = {
+    "characterise": "sample for the map",
+    "verify": "check at the chosen values",
+    "start": "textbook: starting Cc",
+    "dominant-pole": "textbook: dominant-pole step",
+    "lead": "textbook: lead resistor",
+    "adjust-cc": "textbook: Cc adjusted",
+    "evaluate": "optimiser evaluation",
+}
+
+
+def convergence_page(data: ReportData, target_pm: float | None):
+    """Worst-corner phase margin and unity-gain frequency against the analyses spent."""
+    history = [h for h in data.results.get("history", [])
+               if h["kind"] != "report-map" and h.get("worst_phase_margin_deg") is not None]
+    fig = _figure()
+    fig.text(0.06, 0.95, "How the tuning got there", fontsize=13, weight="bold")
+    fig.text(0.06, 0.922, "Worst corner of every simulated point against the AC analyses spent "
+             "so far (all corners counted).", fontsize=8.5, color=style.MUTED)
+    top = fig.add_axes((0.08, 0.54, 0.84, 0.34))
+    bottom = fig.add_axes((0.08, 0.1, 0.84, 0.34), sharex=top)
+    if not history:
+        top.text(0.5, 0.5, "no tuning history (a measurement)", ha="center", transform=top.transAxes)
+        return fig
+    x = [h["ac_analyses"] for h in history]
+    pm = [h["worst_phase_margin_deg"] for h in history]
+    ugf = [h["worst_unity_gain_hz"] for h in history]
+    kinds = [h["kind"] for h in history]
+    for kind in dict.fromkeys(kinds):
+        sel = [i for i, k in enumerate(kinds) if k == kind]
+        colour = style.FINAL if kind == "verify" else (style.TEXTBOOK if kind in
+                                                       ("start", "dominant-pole", "lead", "adjust-cc")
+                                                       else style.START)
+        top.plot([x[i] for i in sel], [pm[i] for i in sel], "o", color=colour,
+                 label=_POINT_WORDS.get(kind, kind))
+        bottom.plot([x[i] for i in sel], [ugf[i] for i in sel], "o", color=colour)
+    top.plot(x, pm, "-", color="#bbbbbb", lw=0.8, zorder=0)
+    bottom.plot(x, ugf, "-", color="#bbbbbb", lw=0.8, zorder=0)
+    if target_pm is not None:
+        tol = data.results["target"]["tolerance_deg"]
+        top.axhspan(target_pm, target_pm + tol, color=style.FEASIBLE, zorder=0)
+        top.axhline(target_pm, color=style.LIMIT, lw=0.8, ls="--")
+        top.text(x[0], target_pm + tol, f" target {target_pm:g}° (+{tol:g}°)", color=style.LIMIT,
+                 fontsize=8, va="bottom")
+    top.set_ylabel("worst-corner phase margin (°)")
+    bottom.set_ylabel("worst-corner unity gain")
+    bottom.set_yscale("log")
+    bottom.yaxis.set_major_formatter(style.hertz)
+    bottom.yaxis.set_minor_formatter(plt.NullFormatter())
+    bottom.set_xlabel("AC analyses so far")
+    top.legend(loc="lower right", title="point", title_fontsize=8)
+    plt.setp(top.get_xticklabels(), visible=False)
+    return fig
+
+
+def time_domain_page(data: ReportData):
+    """The closed-loop small-step response of every corner at the final values."""
+    fig = _figure()
+    fig.text(0.06, 0.95, "Closed-loop step response at the final values", fontsize=13,
+             weight="bold")
+    any_step = next(iter(data.steps.values()), None)
+    if any_step is None:
+        fig.text(0.06, 0.5, "no step responses in this out folder")
+        return fig
+    fig.text(0.06, 0.922, f"Input step {engineering(any_step.step_v, 'V')} at the signal source; "
+             f"output normalised to its step. Settling band ±{any_step.metrics.band:.1%}.",
+             fontsize=8.5, color=style.MUTED)
+    full = fig.add_axes((0.08, 0.54, 0.64, 0.34))
+    zoom = fig.add_axes((0.08, 0.1, 0.64, 0.34), sharex=full)
+    names = [n for n in data.corner_names if n in data.steps]
+    limiting = data.limiting_corner
+    for index, name in enumerate(names):
+        check = data.steps[name]
+        m = check.metrics
+        change = m.final_v - m.initial_v
+        t = check.time_s - check.step_at_s
+        y = (check.output_v - m.initial_v) / change
+        is_limiting = name == limiting
+        colour = style.LIMIT if is_limiting else style.corner_colour(index)
+        lw = 1.8 if is_limiting else 0.8
+        label = name + (" (limiting)" if is_limiting else "") if len(names) <= 24 else None
+        full.plot(t, y, color=colour, lw=lw, label=label, zorder=5 if is_limiting else 2)
+        zoom.plot(t, (y - 1) * 100, color=colour, lw=lw, zorder=5 if is_limiting else 2)
+    band = any_step.metrics.band * 100
+    zoom.axhspan(-band, band, color=style.FEASIBLE, zorder=0)
+    zoom.set_ylim(-20 * band, 20 * band)
+    full.set_ylabel("output / output step")
+    zoom.set_ylabel("error (% of the step)")
+    zoom.set_xlabel("time after the step")
+    zoom.xaxis.set_major_formatter(style.seconds)
+    settled = [data.steps[n].metrics.settling_s for n in names]
+    if all(v is not None for v in settled) and settled:
+        full.set_xlim(-0.02 * any_step.stop_s, min(any_step.stop_s, 2.5 * max(settled)))
+    else:
+        full.set_xlim(left=-0.02 * any_step.stop_s)
+    plt.setp(full.get_xticklabels(), visible=False)
+    if len(names) <= 24:
+        full.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), ncol=1)
+    worst = max(names, key=lambda n: data.steps[n].metrics.settling_s or math.inf)
+    wm = data.steps[worst].metrics
+    fig.text(0.74, 0.3, f"slowest to settle: {worst}\n"
+             f"  {_fmt(wm.settling_s, '', 's')} to ±{wm.band:.1%}, overshoot {wm.overshoot_pct:.2f} %",
+             fontsize=9)
+    return fig
