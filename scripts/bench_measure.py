@@ -10,6 +10,8 @@ Run:  .venv/bin/python scripts/bench_measure.py [--reps N]
 2. Parallel: a 12-corner measurement with 2 workers vs 1 worker. Reported two ways:
    (a) the measurement with the workers already started, (b) the whole `amploop measure`
    command as a user runs it (Python start-up, imports and worker start-up included).
+   Loop-gain measurement only: the report's step checks and PDF are left out
+   (`time_domain=False`, `--no-report`).
    Target: >= 1.7x.
 3. Memory: peak RSS (coordinator + worker + fork server, summed over the process tree) of
    a 200-corner measurement with one worker vs a 2-corner one, each in a fresh process.
@@ -97,12 +99,12 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
             folder = Path(tmp) / str(len(jobs))
             folder.mkdir()
             jobs[grid] = load_job(job_with_corners(folder, grid, job_file))
-        measure(jobs[grids[0]], out=Path(tmp) / "warm", pool=pool)  # start the worker
+        measure(jobs[grids[0]], out=Path(tmp) / "warm", pool=pool, time_domain=False)
         for grid, job in jobs.items():
             times = []
             for rep in range(reps):
                 start = time.perf_counter()
-                measure(job, out=Path(tmp) / f"{len(job.corners)}-{rep}", pool=pool)
+                measure(job, out=Path(tmp) / f"{len(job.corners)}-{rep}", pool=pool, time_domain=False)
                 times.append(time.perf_counter() - start)
             timings[len(job.corners)] = statistics.median(times)
         small_job = jobs[grids[0]]
@@ -130,11 +132,11 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
         warm = {}
         for workers in (1, 2):
             with WorkerPool(workers) as pool:
-                measure(job, out=Path(tmp) / f"warm{workers}", pool=pool)
+                measure(job, out=Path(tmp) / f"warm{workers}", pool=pool, time_domain=False)
                 times = []
                 for rep in range(reps):
                     start = time.perf_counter()
-                    result = measure(job, out=Path(tmp) / f"w{workers}r{rep}", pool=pool)
+                    result = measure(job, out=Path(tmp) / f"w{workers}r{rep}", pool=pool, time_domain=False)
                     times.append(time.perf_counter() - start)
                 warm[workers] = statistics.median(times)
         cold = {}
@@ -144,7 +146,7 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
                 start = time.perf_counter()
                 subprocess.run([sys.executable, "-m", "amploop.cli", "measure", str(job_path),
                                 "--out", str(Path(tmp) / f"c{workers}r{rep}"), "--workers",
-                                str(workers), "--quiet"], check=True)
+                                str(workers), "--quiet", "--no-report"], check=True)
                 times.append(time.perf_counter() - start)
             cold[workers] = statistics.median(times)
     print(f"parallel ({job_file.parent.name}): {len(job.corners)} corners, "
@@ -187,7 +189,7 @@ def memory() -> None:
             job_path = job_with_corners(folder, grid)
             code = ("import sys\nfrom amploop.job import load_job\nfrom amploop.measure import measure\n"
                     "if __name__ == '__main__':\n"
-                    f"    r = measure(load_job({str(job_path)!r}), out={str(folder / 'out')!r}, workers=1)\n"
+                    f"    r = measure(load_job({str(job_path)!r}), out={str(folder / 'out')!r}, workers=1, time_domain=False)\n"
                     "    print(len(r.corners), r.ac_run)\n"
                     "    import time; time.sleep(0.3)\n")
             script = folder / "run.py"

@@ -70,7 +70,7 @@ def _parser() -> argparse.ArgumentParser:
     common.add_argument("--json", action="store_true",
                         help="print one JSON summary line instead of the table")
     common.add_argument("--no-report", action="store_true",
-                        help="skip report.pdf (build it later with: amploop report OUTDIR)")
+                        help="skip report.pdf and the step checks it shows")
 
     commands.add_parser("measure", parents=[common], help="measure loop gain and margins",
                         description="Measure the loop gain and its margins at every corner.")
@@ -176,7 +176,8 @@ def _run_measure(args) -> ExitCode:
     job = load_job(args.job)
     overrides = parse_overrides(args.set, job)
     result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
-                     allow_control=args.allow_control, progress=_progress_printer(args.quiet))
+                     allow_control=args.allow_control, progress=_progress_printer(args.quiet),
+                     time_domain=not args.no_report)
     failed = [c for c in result.corners if c.status != "ok"]
     if args.json:
         summary = result.as_json()
@@ -232,7 +233,8 @@ def _run_tune(args) -> ExitCode:
     parse_overrides(args.set, job)
     result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
                   allow_control=args.allow_control, resume=args.resume,
-                  progress=_tune_progress(args.quiet, len(job.corners)))
+                  progress=_tune_progress(args.quiet, len(job.corners)),
+                  time_domain=not args.no_report)
     if not args.quiet and sys.stderr.isatty():
         sys.stderr.write("\n")
     data = result.as_json()

@@ -137,6 +137,7 @@ def tune(
     allow_control: bool = False,
     resume: bool = False,
     progress: Callable[[HistoryEntry], None] | None = None,
+    time_domain: bool = True,
 ) -> TuneResult:
     """Tune the compensation of ``job`` at all its corners.
 
@@ -156,6 +157,8 @@ def tune(
         Require an existing journal in ``out`` (a rerun without it reuses one too).
     progress
         Called after every simulated point with its history entry.
+    time_domain
+        Run the closed-loop step check per corner at the final values (for the report).
 
     Returns
     -------
@@ -193,14 +196,14 @@ def tune(
         evaluator.progress = progress
         try:
             outcome = STRATEGIES[strategy](evaluator, job.target)
-            if outcome.final is not None and not any(h.kind == "characterise"
-                                                     for h in evaluator.history):
+            if outcome.final is not None and time_domain and not any(
+                    h.kind == "characterise" for h in evaluator.history):
                 # the report's map page needs three samples per corner; journalled like the
                 # rest, kept apart in the history
                 evaluator.simulate(_report_samples(evaluator), kind="report-map",
                                    note="samples for the report's compensation map")
             checks = {}
-            if outcome.final is not None:
+            if outcome.final is not None and time_domain:
                 stop_s = step_stop_s(amplifier, [c.margins and c.margins.unity_gain_hz
                                                  for c in outcome.final.corners])
                 ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")

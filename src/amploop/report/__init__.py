@@ -19,7 +19,11 @@ from . import style
 from .data import ReportData, load_report_data
 from .pages import convergence_page, corner_page, map_page, summary_pages, time_domain_page
 
-__all__ = ["build_report", "ReportOutcome"]
+__all__ = ["build_report", "ReportOutcome", "PNG_CORNER_PAGES"]
+
+#: Above this many corners, only the limiting corner's page gets a PNG copy (the PDF has
+#: every page); drawing a PNG costs about as much as drawing the page itself.
+PNG_CORNER_PAGES = 30
 
 
 class ReportOutcome:
@@ -47,21 +51,27 @@ def build_report(out: str | Path, *, pngs: bool = True) -> ReportOutcome:
     data = load_report_data(out)
     target = data.results.get("target", {}).get("phase_margin_deg")
     date = _dt.datetime.now().strftime("%Y-%m-%d %H:%M")
-    pages: list[tuple[str, object, bool]] = []  # (name, figure, is a plot page)
-    with plt.rc_context(style.RC):
+    # pages are drawn, saved and closed one at a time: a 100-corner report never holds
+    # more than one figure
+    def pages():
         for i, fig in enumerate(summary_pages(data, date)):
-            pages.append((f"summary-{i + 1}" if i else "summary", fig, False))
+            yield (f"summary-{i + 1}" if i else "summary"), fig, False
+        many = len(data.corner_names) > PNG_CORNER_PAGES
         for name in data.corner_names:
-            pages.append((f"corner-{safe_filename(name)}", corner_page(data, name, target), True))
+            quick_look = not many or name == data.limiting_corner
+            yield f"corner-{safe_filename(name)}", corner_page(data, name, target), quick_look
         if data.maps:
-            pages.append(("map", map_page(data), True))
+            yield "map", map_page(data), True
         if data.command == "tune":
-            pages.append(("convergence", convergence_page(data, target), True))
+            yield "convergence", convergence_page(data, target), True
         if data.steps:
-            pages.append(("step-response", time_domain_page(data), True))
-        pdf_path = data.out / "report.pdf"
-        png_dir = data.out / "report"
-        written: list[Path] = []
+            yield "step-response", time_domain_page(data), True
+
+    pdf_path = data.out / "report.pdf"
+    png_dir = data.out / "report"
+    written: list[Path] = []
+    count = 0
+    with plt.rc_context(style.RC):
         try:
             if pngs:
                 png_dir.mkdir(exist_ok=True)
@@ -70,17 +80,18 @@ def build_report(out: str | Path, *, pngs: bool = True) -> ReportOutcome:
             temporary = pdf_path.with_name(".report.pdf.tmp")
             with PdfPages(temporary, metadata={"Title": f"amploop report: {data.results['job']}",
                                                "Creator": "amploop"}) as pdf:
-                for number, (name, fig, is_plot) in enumerate(pages, start=1):
+                for number, (name, fig, is_plot) in enumerate(pages(), start=1):
                     pdf.savefig(fig)
                     if pngs and (is_plot or number == 1):
                         png = png_dir / f"page-{number:02d}-{name}.png"
                         fig.savefig(png)
                         written.append(png)
                     plt.close(fig)
+                    count = number
             temporary.replace(pdf_path)
         except OSError as exc:
             raise OutputError(f"cannot write the report: {exc.strerror or exc}", file=data.out) from None
-    return ReportOutcome(pdf_path, written, len(pages), time.perf_counter() - started,
+    return ReportOutcome(pdf_path, written, count, time.perf_counter() - started,
                          data.analyses_read)
 
 
