@@ -8,7 +8,8 @@ Run:  .venv/bin/python scripts/bench_tune.py
 - Bandwidth at the chosen point: worst-corner unity-gain frequency and phase margin of each.
 - Wall time of the map strategy with all cores vs one worker, and the share of the wall
   time the workers spent inside ngspice.
-Every run uses a fresh out folder (nothing reused).
+Every run uses a fresh out folder (nothing reused) and tunes only (no step check, no
+report, whose extra analyses would blur the counts).
 """
 
 from __future__ import annotations
@@ -38,7 +39,8 @@ def main() -> None:
           f"{'worst PM':>9} {'worst UGF':>10}  values")
     with tempfile.TemporaryDirectory() as tmp:
         for strategy in ("map", "textbook", "optimizer"):
-            result = tune(job, out=Path(tmp) / strategy, strategy=strategy, workers=default_workers())
+            result = tune(job, out=Path(tmp) / strategy, strategy=strategy,
+                          workers=default_workers(), time_domain=False)
             worst = result.outcome.final.worst
             total = result.ac_run + result.ac_reused
             values = ", ".join(f"{k}={engineering(v, 'F' if k == 'cc' else 'Ω', 4)}"
@@ -52,7 +54,8 @@ def main() -> None:
             times, inside = [], []
             for rep in range(5):
                 start = time.perf_counter()
-                result = tune(job, out=Path(tmp) / f"w{workers}r{rep}", workers=workers)
+                result = tune(job, out=Path(tmp) / f"w{workers}r{rep}", workers=workers,
+                              time_domain=False)
                 wall = time.perf_counter() - start
                 times.append(wall)
                 inside.append(result.simulator_seconds / (wall * workers))
