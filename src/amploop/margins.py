@@ -104,13 +104,17 @@ def _roots(x: np.ndarray, y: np.ndarray, level: float) -> list[tuple[int, float]
     return found
 
 
-def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
-    """Every 0 dB crossing as (frequency Hz, phase margin degrees)."""
+def _log_axes(response: FrequencyResponse) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """log10 f, ln|T| (finite) and the unwrapped phase in degrees: what is interpolated."""
     x = np.log10(response.frequency_hz)
     with np.errstate(divide="ignore"):
         m = np.log(np.abs(response.values))
-    m = np.where(np.isfinite(m), m, -745.0)
-    p = response.phase_deg
+    return x, np.where(np.isfinite(m), m, -745.0), response.phase_deg
+
+
+def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
+    """Every 0 dB crossing as (frequency Hz, phase margin degrees)."""
+    x, m, p = _log_axes(response)
     result = []
     for i, xr in _roots(x, m, 0.0):
         result.append((float(10.0**xr), 180.0 + _cubic_at(x, p, i, xr)))
@@ -119,11 +123,7 @@ def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
 
 def phase_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
     """Every phase crossover (∠T = −180° + k·360°) as (frequency Hz, gain margin dB)."""
-    x = np.log10(response.frequency_hz)
-    with np.errstate(divide="ignore"):
-        m = np.log(np.abs(response.values))
-    m = np.where(np.isfinite(m), m, -745.0)
-    p = response.phase_deg
+    x, m, p = _log_axes(response)
     turns = np.floor((p + 180.0) / 360.0)
     levels = {-180.0 + 360.0 * k for k in range(int(turns.min()), int(turns.max()) + 2)}
     found = []

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["parse_value", "spice_number", "engineering", "SCALE_SUFFIXES"]
+__all__ = ["parse_value", "spice_number", "engineering", "describe_values", "SCALE_SUFFIXES"]
 
 #: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
 SCALE_SUFFIXES: dict[str, float] = {
@@ -110,3 +110,13 @@ def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
         text = f"{mantissa * scale:.{digits}g}"
         prefix = ""
     return f"{text} {prefix}{unit}".strip()
+
+
+def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: str = ", ") -> str:
+    """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits)."""
+    parts = []
+    if "cc" in values:
+        parts.append(f"Cc{equals}{engineering(values['cc'], 'F', 4)}")
+    if "rc" in values:
+        parts.append(f"Rc{equals}{engineering(values['rc'], 'Ω', 4)}")
+    return joiner.join(parts)

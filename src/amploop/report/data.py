@@ -20,6 +20,7 @@ from ..loopgain import FrequencyResponse
 from ..probe import make_probe
 from ..stepcheck import StepCheck, check_from_output
 from ..testbench import NODE_AMP, NODE_FEEDBACK
+from ..units import describe_values
 
 __all__ = ["Curve", "ReportData", "load_report_data"]
 
@@ -62,14 +63,7 @@ class ReportData:
 
 
 def _values_label(values: dict) -> str:
-    from ..units import engineering
-
-    parts = []
-    if "cc" in values:
-        parts.append(f"Cc {engineering(values['cc'], 'F', 4)}")
-    if "rc" in values:
-        parts.append(f"Rc {engineering(values['rc'], 'Ω', 4)}")
-    return ", ".join(parts)
+    return describe_values(values, equals=" ")
 
 
 _KIND_WORDS = {

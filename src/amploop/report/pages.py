@@ -10,7 +10,7 @@ import numpy as np
 
 from ..margins import grid_margins, loop_margins
 from ..strategy.mapsolve import cc_grid, rc_grid
-from ..units import engineering
+from ..units import describe_values, engineering
 from . import style
 from .data import ReportData
 
@@ -38,12 +38,7 @@ def _fmt(value, spec: str, unit: str = "") -> str:
 
 
 def _values_text(values: dict) -> str:
-    parts = []
-    if "cc" in values:
-        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
-    if "rc" in values:
-        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
-    return ",  ".join(parts)
+    return describe_values(values, joiner=",  ")
 
 
 def _corner_rows(data: ReportData) -> list[list[str]]:

@@ -16,6 +16,7 @@ import math
 
 from ..compmap import CompensationMap
 from ..job import Target
+from ..units import describe_values, engineering
 from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
 from .mapsolve import MapSolution, solve_on_maps
 
@@ -108,7 +109,7 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             "infeasible", verified.values, verified,
             f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
             f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
-            f"(corner {worst.limiting_corner}) at " + _describe(verified.values),
+            f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
             extra,
         )
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
@@ -124,14 +125,12 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
                        f"misses the target {target.phase_margin_deg:g}°", extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                   f"(corner {worst.limiting_corner}) at " + _describe(verified.values)
+                   f"(corner {worst.limiting_corner}) at " + describe_values(verified.values)
                    + _at_bounds(verified.values, {"cc": cc_bounds, "rc": rc_bounds}), extra)
 
 
 def _at_bounds(values: dict[str, float], bounds: dict[str, tuple[float, float]]) -> str:
     """A note for values that sit on a bound: a wider bound might give more bandwidth."""
-    from ..units import engineering
-
     notes = []
     for role, value in values.items():
         low, high = bounds.get(role, (None, None))
@@ -148,14 +147,3 @@ def _round(value: float, bounds: tuple[float, float]) -> float:
     """``value`` to 4 significant digits, kept inside ``bounds``."""
     rounded = float(f"{value:.4g}")
     return min(max(rounded, bounds[0]), bounds[1])
-
-
-def _describe(values: dict[str, float]) -> str:
-    from ..units import engineering
-
-    parts = []
-    if "cc" in values:
-        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
-    if "rc" in values:
-        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
-    return ", ".join(parts)

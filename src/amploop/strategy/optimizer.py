@@ -79,4 +79,4 @@ def tune_by_optimizer(evaluator: Evaluator, target: Target, *, max_evaluations: 
     best = max(feasible, key=lambda p: p.worst.unity_gain_hz)
     return Outcome("converged", best.values, best,
                    f"worst-corner phase margin {best.worst.phase_margin_deg:.2f}° at "
-                   + _describe(best.values))
+                   + describe_values(best.values))

@@ -154,12 +154,12 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
     if meets_target(worst, target):
         return Outcome("converged", current.values, current,
                        f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                       f"(corner {worst.limiting_corner}) at " + _describe(current.values))
+                       f"(corner {worst.limiting_corner}) at " + describe_values(current.values))
     # the procedure cannot prove that nothing works, so this is a failure, not "infeasible"
     return Outcome("failed", current.values, current,
                    f"the textbook procedure ends at worst-corner phase margin "
                    f"{worst.phase_margin_deg:.2f}° (corner {worst.limiting_corner}) at "
-                   + _describe(current.values))
+                   + describe_values(current.values))
 
 
 def _failure(point: PointResult) -> Outcome | None:
