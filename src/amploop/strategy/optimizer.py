@@ -16,7 +16,7 @@ from scipy.optimize import minimize
 
 from ..job import Target
 from .common import Evaluator, Outcome, bounds_of, meets_target
-from .mapping import _describe
+from ..units import describe_values
 
 __all__ = ["tune_by_optimizer"]
 

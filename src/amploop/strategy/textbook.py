@@ -22,7 +22,7 @@ from ..errors import TuningError
 from ..job import Target
 from ..units import parse_value
 from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
-from .mapping import _describe
+from ..units import describe_values
 from .twostage import (
     effective_load,
     feedback_factor,
