@@ -59,6 +59,24 @@ class KnobSite:
 
 
 @dataclass(frozen=True)
+class Device:
+    """A MOSFET that stands in for Rc: its terminals (subckt nodes), model and tuned size."""
+
+    name: str
+    drain: str
+    gate: str
+    source: str
+    bulk: str
+    model: str
+    size: str  # "w", "l" or "m"
+    length: float | None  # L in metres when given (for the square law)
+
+    def quantity(self, name: str) -> str:
+        """ngspice's name of an operating-point quantity of this device inside X1."""
+        return f"@m.x1.{self.name.lower()}[{name}]"
+
+
+@dataclass(frozen=True)
 class Amplifier:
     """A job's amplifier netlist, checked against the job and ready for testbenches."""
 
@@ -67,6 +85,26 @@ class Amplifier:
     subckt: Subckt
     sites: dict[str, KnobSite]
     control_blocks: tuple[tuple[Path, int], ...] = ()
+    device: Device | None = None
+    warnings: tuple[str, ...] = ()
+
+    def node_vector(self, node: str) -> str:
+        """ngspice's vector name of a subckt node's voltage in the testbench (``v(x1.nz)``)."""
+        from .testbench import NODE_AMP, port_node
+
+        index = self.subckt.port_index(node)
+        if node == "0":
+            return "0"
+        if index is None:
+            return f"v(x1.{node.lower()})"
+        port = self.subckt.ports[index]
+        if port.lower() == self.job.amplifier.out.lower():
+            return f"v({NODE_AMP})"
+        if port.lower() == self.job.amplifier.in_p.lower():
+            return "v(tb_inp)"
+        if port.lower() == self.job.amplifier.in_n.lower():
+            return "v(tb_inn)"
+        return f"v({port_node(port)})"
 
     @property
     def files(self) -> tuple[Path, ...]:
@@ -238,8 +276,41 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
     sites = {}
     for role, knob in job.compensation.items():
         sites[role] = _locate(job, netlist, subckt, knob, global_exprs, params, local)
+    device, warnings = None, []
+    rc_site = sites.get("rc")
+    if rc_site is not None and rc_site.kind == "device":
+        device, warning = _device(job, subckt, rc_site, {**global_exprs, **params})
+        if warning:
+            warnings.append(warning)
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
-                     control_blocks=control)
+                     control_blocks=control, device=device, warnings=tuple(warnings))
+
+
+def _device(job: Job, subckt: Subckt, site: KnobSite, scope: dict) -> tuple[Device, str | None]:
+    """The MOSFET's terminals and model, and a warning when it sits on the output side."""
+    statement = site.statement
+    positional = [t for t in statement.tokens[1:] if "=" not in t]
+    if len(positional) < 5:
+        raise NetlistError(f"{statement.tokens[0]}: expected drain, gate, source, bulk and model",
+                           file=statement.file, place=statement.line)
+    drain, gate, source, bulk, model = positional[:5]
+    length = None
+    for token in statement.tokens[1:]:
+        key, eq, expr = token.partition("=")
+        if eq and key.lower() == "l":
+            length = value_of(expr, scope, where=statement.where)
+    device = Device(name=statement.tokens[0], drain=drain, gate=gate, source=source, bulk=bulk,
+                    model=model, size=site.knob.size or "w", length=length)
+    out = job.amplifier.out.lower()
+    warning = None
+    if out in (drain.lower(), source.lower()):
+        warning = (
+            f"{statement.file}:{statement.line}: {device.name} touches the amplifier output "
+            f"{job.amplifier.out}: the output swings the second stage's gain times more than "
+            "the first-stage side of Cc, so its channel resistance would be modulated by the "
+            "signal; put it between the first-stage output and Cc"
+        )
+    return device, warning
 
 
 def _check_ports(job: Job, subckt: Subckt) -> None:

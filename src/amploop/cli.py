@@ -154,6 +154,19 @@ def _progress_printer(quiet: bool):
     return show
 
 
+def _values_line(job, values: dict) -> str:
+    """``cc = 292.8 fF, rc = 20 kΩ``, or the device's size when one stands in for Rc."""
+    parts = []
+    for role, value in values.items():
+        knob = job.compensation.get(role)
+        if knob is not None and knob.where == "device":
+            unit = "" if knob.size == "m" else "m"
+            parts.append(f"{knob.name} {knob.size} = {engineering(value, unit, 4)}")
+        else:
+            parts.append(f"{role} = {engineering(value, 'F' if role == 'cc' else 'Ω', 4)}")
+    return ", ".join(parts)
+
+
 def _print_corner_errors(failed, total: int) -> None:
     """One line per distinct problem, naming the corners it hit."""
     by_problem: dict[str, list[str]] = {}
@@ -185,13 +198,14 @@ def _run_measure(args) -> ExitCode:
                          | {"failed_corners": [c.corner.name for c in failed],
                             "out": str(result.out)}))
     elif not args.quiet:
-        values = ", ".join(f"{k} = {engineering(v, 'F' if k == 'cc' else 'Ω')}"
-                           for k, v in result.values.items())
+        values = _values_line(job, result.values)
         print(f"job {job.name}: {len(result.corners)} corners at {values}")
         print(corner_table(result.corners))
         print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
               f"{result.seconds:.1f} s; results in {result.out}")
     if not args.quiet:
+        for warning in result.warnings:
+            print(f"amploop: warning: {warning}", file=sys.stderr)
         for c in result.corners:
             for warning in c.warnings:
                 print(f"amploop: warning: corner {c.corner.name}: {warning}", file=sys.stderr)
@@ -243,8 +257,7 @@ def _run_tune(args) -> ExitCode:
                                                "limiting_corner", "worst", "ac_analyses")}
                          | {"message": result.outcome.message, "out": str(result.out)}))
     elif not args.quiet:
-        values = ", ".join(f"{k} = {engineering(v, 'F' if k == 'cc' else 'Ω', 4)}"
-                           for k, v in result.outcome.values.items())
+        values = _values_line(job, result.outcome.values)
         print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
         print(corner_table(result.corners))
         print(result.outcome.message)
@@ -254,6 +267,17 @@ def _run_tune(args) -> ExitCode:
             print(f"compensated netlist: {data['compensated_netlist']['path']}")
     if not args.no_report and result.outcome.final is not None:
         _write_report(result.out, quiet=args.quiet or args.json)
+    if not args.quiet:
+        for warning in data.get("warnings", []):
+            print(f"amploop: warning: {warning}", file=sys.stderr)
+        device = data.get("device")
+        if device and not args.json:
+            print(f"{device['name']} at {device['size']} = {engineering(device['value'], 'm', 4)}:"
+                  " resistance per corner (simulator / square law / wanted by that corner alone)")
+            for name, info in device["corners"].items():
+                print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
+                      f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
+                      f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
     if result.status == "converged":
         return ExitCode.OK
     print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)

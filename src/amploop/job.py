@@ -168,11 +168,15 @@ class Transient:
         Settling band relative to the output step (0.001 = 0.1 %).
     stop_s
         Length of the run, seconds; None: 40/(2π·f_u) of the slowest corner.
+    resistance_share
+        With a MOSFET standing in for Rc: warn when its channel resistance moves by more
+        than this share during the step.
     """
 
     step_v: float = 5e-3
     band: float = 1e-3
     stop_s: float | None = None
+    resistance_share: float = 0.1
 
 
 @dataclass(frozen=True)
@@ -212,7 +216,7 @@ _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
 _CORNER_KEYS = {"name", "lib", "temp", "params"}
 _GRID_KEYS = {"lib", "temp", "params"}
 _TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
-_TRANSIENT_KEYS = {"step", "band", "stop"}
+_TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}
 _ROLES = ("cc", "rc")
 
 
@@ -535,7 +539,10 @@ def _transient(r: _Reader, data: dict) -> Transient:
     stop_s = None if stop is None else r.number(stop, "[transient].stop")
     if stop_s is not None and stop_s <= 0:
         raise r.fail("[transient].stop", "must be above 0 s")
-    return Transient(step_v=step, band=band, stop_s=stop_s)
+    share = r.number(data.get("resistance_share", 0.1), "[transient].resistance_share")
+    if not 0 < share < 10:
+        raise r.fail("[transient].resistance_share", f"expected a share such as 0.1, got {share:g}")
+    return Transient(step_v=step, band=band, stop_s=stop_s, resistance_share=share)
 
 
 def _params(r: _Reader, data: Any, place: str) -> dict[str, float]:

@@ -79,6 +79,7 @@ class MeasureResult:
     step_checks: dict = field(default_factory=dict)
     transient_run: int = 0
     transient_reused: int = 0
+    warnings: tuple[str, ...] = ()
 
     @property
     def status(self) -> str:
@@ -104,6 +105,7 @@ class MeasureResult:
             "probe": self.job.analysis.probe,
             "job_file": str(self.job.path),
             "seconds": self.seconds,
+            "warnings": list(self.warnings),
         }
 
 
@@ -269,7 +271,8 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                seconds=time.perf_counter() - started, keys=keys,
                                step_checks=checks,
                                transient_run=runner.transient_run,
-                               transient_reused=runner.transient_reused)
+                               transient_reused=runner.transient_reused,
+                               warnings=amplifier.warnings)
         if folder is not None:
             data = result.as_json()
             if len(ordered) < len(job.corners):

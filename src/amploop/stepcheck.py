@@ -33,6 +33,8 @@ class StepCheck:
     error: str | None = None
     time_s: np.ndarray | None = None
     output_v: np.ndarray | None = None
+    resistance_share: float | None = None  # triode device: largest relative change
+    warning: str | None = None
 
     def as_json(self) -> dict:
         m = self.metrics
@@ -45,6 +47,7 @@ class StepCheck:
             "overshoot_pct": None if m is None else m.overshoot_pct,
             "settling_time_s": None if m is None else m.settling_s,
             "error": self.error,
+            "device_resistance_share": self.resistance_share,
         }
 
 
@@ -57,8 +60,13 @@ def step_stop_s(amplifier: Amplifier, unity_gain_hz: list[float | None]) -> floa
 
 
 def run_step_checks(amplifier: Amplifier, corners: tuple[Corner, ...], values: dict[str, float],
-                    runner: Runner, stop_s: float, time_limit_s: float) -> dict[str, StepCheck]:
-    """Simulate the step response of every corner at ``values``; figures per corner."""
+                    runner: Runner, stop_s: float, time_limit_s: float,
+                    device_vt: dict[str, float] | None = None) -> dict[str, StepCheck]:
+    """Simulate the step response of every corner at ``values``; figures per corner.
+
+    With a MOSFET standing in for Rc and its threshold per corner in ``device_vt``, the
+    change of its channel resistance during the step is computed (square law) and a
+    warning set when it exceeds ``[transient].resistance_share``."""
     spec = amplifier.job.transient
     benches = {c.name: build_step_testbench(amplifier, c, values, step_v=spec.step_v,
                                             stop_s=stop_s) for c in corners}
@@ -71,9 +79,36 @@ def run_step_checks(amplifier: Amplifier, corners: tuple[Corner, ...], values: d
             checks[name] = StepCheck(name, keys[name], bench.step_v, bench.step_at_s,
                                      bench.stop_s, None, output.problem)
             continue
-        checks[name] = check_from_output(name, keys[name], bench.step_v, bench.step_at_s,
-                                         bench.stop_s, output.reads, spec.band)
+        check = check_from_output(name, keys[name], bench.step_v, bench.step_at_s,
+                                  bench.stop_s, output.reads, spec.band)
+        if amplifier.device is not None and device_vt and name in device_vt:
+            check = _with_linearity(amplifier, check, output.reads[0], device_vt[name],
+                                    spec.resistance_share)
+        checks[name] = check
     return checks
+
+
+def _with_linearity(amplifier: Amplifier, check: StepCheck, reads: dict, vt: float,
+                    limit: float) -> StepCheck:
+    from dataclasses import replace
+
+    from .strategy.triode import resistance_share_during
+
+    device = amplifier.device
+
+    def node(name: str) -> np.ndarray:
+        vector = amplifier.node_vector(name)
+        return np.zeros_like(check.time_s) if vector == "0" else np.real(reads[vector])
+
+    vg, vd, vs = node(device.gate), node(device.drain), node(device.source)
+    share = resistance_share_during(vg - vs, vd - vs, vt)
+    warning = None
+    if share > limit:
+        warning = (f"corner {check.corner}: {device.name}'s channel resistance moves by "
+                   f"{share:.0%} during the step (VGS {np.ptp(vg - vs) * 1e3:.1f} mV and VDS "
+                   f"{np.ptp(vd - vs) * 1e3:.1f} mV of excursion); more than "
+                   f"[transient].resistance_share = {limit:g}")
+    return replace(check, resistance_share=share, warning=warning)
 
 
 def check_from_output(name: str, key: str, step_v: float, step_at_s: float, stop_s: float,

@@ -231,8 +231,14 @@ def build_step_testbench(
     )
     tmax = stop_s / 4000
     command = f"tran {spice_number(tmax)} {spice_number(stop_s)} 0 {spice_number(tmax)}"
+    reads = ["time", f"v({NODE_AMP})"]
+    device = amplifier.device
+    if device is not None:  # the triode device's terminals, for the linearity check
+        reads += [v for v in dict.fromkeys(amplifier.node_vector(n) for n in
+                                           (device.drain, device.gate, device.source))
+                  if v != "0" and v not in reads]
     return StepBench(corner=corner, values=full_values, deck=deck,
-                     steps=(Step(command, ("time", f"v({NODE_AMP})")),), step_v=step_v,
+                     steps=(Step(command, tuple(reads)),), step_v=step_v,
                      step_at_s=step_at, stop_s=stop_s, label=label or f"{corner.name} (step)")
 
 

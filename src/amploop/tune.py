@@ -50,6 +50,7 @@ class TuneResult:
     transient_run: int = 0
     transient_reused: int = 0
     values_in_netlist: dict = field(default_factory=dict)
+    warnings: tuple = ()
 
     @property
     def status(self) -> str:
@@ -92,8 +93,14 @@ class TuneResult:
             "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
+            "device": self.outcome.extra.get("device"),
+            "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
+
+
+def _step_warnings(checks: dict) -> tuple[str, ...]:
+    return tuple(c.warning for c in checks.values() if getattr(c, "warning", None))
 
 
 def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
@@ -207,8 +214,10 @@ def tune(
                 stop_s = step_stop_s(amplifier, [c.margins and c.margins.unity_gain_hz
                                                  for c in outcome.final.corners])
                 ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
+                device = outcome.extra.get("device")
+                vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
                 checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
-                                         job.analysis.time_limit_s)
+                                         job.analysis.time_limit_s, device_vt=vt)
         finally:
             if own_pool:
                 pool.close()
@@ -224,7 +233,8 @@ def tune(
                             simulator_seconds=runner.simulator_seconds, step_checks=checks,
                             transient_run=runner.transient_run,
                             transient_reused=runner.transient_reused,
-                            values_in_netlist=amplifier.values_in_effect({}))
+                            values_in_netlist=amplifier.values_in_effect({}),
+                            warnings=amplifier.warnings + _step_warnings(checks))
         folder.write_json("results.json", result.as_json())
     return result
 

@@ -112,11 +112,18 @@ def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
     return f"{text} {prefix}{unit}".strip()
 
 
-def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: str = ", ") -> str:
-    """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits)."""
+def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: str = ", ",
+                    device: tuple[str, str] | None = None) -> str:
+    """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits).
+
+    ``device`` = (name, size key) when a MOSFET stands in for Rc: ``"Mz w = 2.1 µm"``.
+    """
     parts = []
     if "cc" in values:
         parts.append(f"Cc{equals}{engineering(values['cc'], 'F', 4)}")
-    if "rc" in values:
+    if "rc" in values and device is not None:
+        name, size = device
+        parts.append(f"{name} {size}{equals}{engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
+    elif "rc" in values:
         parts.append(f"Rc{equals}{engineering(values['rc'], 'Ω', 4)}")
     return joiner.join(parts)

@@ -62,8 +62,8 @@ class ReportData:
         return next(c for c in self.results["corners"] if c["name"] == name)
 
 
-def _values_label(values: dict) -> str:
-    return describe_values(values, equals=" ")
+def _values_label(values: dict, device: tuple[str, str] | None = None) -> str:
+    return describe_values(values, equals=" ", device=device)
 
 
 _KIND_WORDS = {
@@ -95,6 +95,8 @@ def load_report_data(out: str | Path) -> ReportData:
     except (OSError, ValueError) as exc:
         raise OutputError(f"cannot read results.json: {exc}", file=out) from None
     probe = make_probe(results.get("probe", "double-injection"))
+    device = results.get("device")
+    device_key = (device["name"], device["size"]) if device else None
     names = [c["name"] for c in results.get("corners", [])]
     data = ReportData(out=out, results=results, corner_names=names)
     with Journal(out / "journal.sqlite", readonly=True) as journal:
@@ -121,7 +123,7 @@ def load_report_data(out: str | Path) -> ReportData:
                 if key is None or entry["step"] == final_step:
                     continue
                 words = _KIND_WORDS.get(entry["kind"], entry["kind"])
-                curves.append(Curve(f"{entry['step']}. {words}: {_values_label(entry['values'])}",
+                curves.append(Curve(f"{entry['step']}. {words}: {_values_label(entry['values'], device_key)}",
                                     "step", loop_gain(key)))
             corner = data.corner(name)
             final_key = corner.get("analysis")
@@ -131,7 +133,8 @@ def load_report_data(out: str | Path) -> ReportData:
                 final = loop_gain(final_key)
                 data.finals[name] = final
                 label = "final" if data.command == "tune" else "as in the netlist"
-                curves.append(Curve(f"{label}: {_values_label(final_values)}", "final", final))
+                curves.append(Curve(f"{label}: {_values_label(final_values, device_key)}", "final",
+                                    final))
             data.curves[name] = curves
             step = corner.get("step")
             if step and step.get("analysis") and step.get("error") is None:
@@ -141,19 +144,25 @@ def load_report_data(out: str | Path) -> ReportData:
         # the maps: the last three characterisation samples of each corner
         samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
         if len(samples) == 3:
-            points = [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
             for name in names:
+                if device is not None:  # the samples' resistance as this corner saw it
+                    r = device.get("sample_resistance_ohm", {}).get(name)
+                    if r is None:
+                        continue
+                    points = [(h["values"]["cc"], r) for h in samples]
+                else:
+                    points = [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
                 keys = [h["analyses"].get(name) for h in samples]
                 if all(keys):
                     data.maps[name] = CompensationMap.from_loop_gains(
                         points, [loop_gain(k) for k in keys])
         # the netlist's own values, predicted from the map (no simulation)
         start = results.get("values_in_netlist")
-        if start and data.maps and data.command == "tune":
+        if start and data.maps and data.command == "tune" and device is None:
             for name, cmap in data.maps.items():
                 response = cmap.loop_gain(start["cc"], start.get("rc", 0.0))
                 if np.all(np.isfinite(response.values)):
                     data.curves[name].insert(0, Curve(
-                        f"netlist values (from the map): {_values_label(start)}", "start",
+                        f"netlist values (from the map): {_values_label(start, device_key)}", "start",
                         response))
     return data

@@ -37,8 +37,10 @@ def _fmt(value, spec: str, unit: str = "") -> str:
     return format(value, spec)
 
 
-def _values_text(values: dict) -> str:
-    return describe_values(values, joiner=",  ")
+def _values_text(values: dict, results: dict | None = None) -> str:
+    device = (results or {}).get("device")
+    return describe_values(values, joiner=",  ",
+                           device=(device["name"], device["size"]) if device else None)
 
 
 def _corner_rows(data: ReportData) -> list[list[str]]:
@@ -109,11 +111,11 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
         gm = f", gain margin ≥ {t['gain_margin_db']:g} dB" if t.get("gain_margin_db") is not None else ""
         lines.append(f"Target: worst-corner phase margin ≥ {t['phase_margin_deg']:g}° "
                      f"(within +{t['tolerance_deg']:g}°){gm}")
-        lines.append(f"Chosen: {_values_text(r['values'])}")
+        lines.append(f"Chosen: {_values_text(r['values'], r)}")
         if r.get("message"):
             lines.append(r["message"])
     else:
-        lines.append(f"Values in effect: {_values_text(r['values'])}")
+        lines.append(f"Values in effect: {_values_text(r['values'], r)}")
     first_step = next((c.get("step") for c in r["corners"] if c.get("step")), None)
     if first_step:
         lines.append(f"Step response: {engineering(first_step['step_v'], 'V')} input step at the "
@@ -221,6 +223,12 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
             phase.axvline(fx, color=style.LIMIT, lw=0.6, ls=":")
             notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
         notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
+        device = data.results.get("device")
+        if device and name in device.get("corners", {}):
+            info = device["corners"][name]
+            notes.append(f"{device['name']}: {engineering(info['resistance_ohm'], 'Ω', 4)} "
+                         f"(square law {engineering(info['square_law_ohm'], 'Ω', 3)})")
+            notes.append(f"  this corner alone would want {engineering(info['wanted_rc_ohm'], 'Ω', 4)}")
     else:
         mag.text(0.5, 0.5, f"not measured: {corner.get('error')}", transform=mag.transAxes,
                  ha="center", color=style.LIMIT, wrap=True)
@@ -270,8 +278,16 @@ def map_page(data: ReportData):
         return fig
     r = data.results
     knobs = r.get("bounds") or {}
+    device = r.get("device")
     cc_lo, cc_hi = knobs.get("cc", [min(s[0] for s in cmap.samples) / 3, max(s[0] for s in cmap.samples) * 3])
     rc_lo, rc_hi = knobs.get("rc", [0.0, max(max(s[1] for s in cmap.samples) * 3, 1.0)])
+    chosen_rc = r.get("values", {}).get("rc", 0.0)
+    if device is not None:  # the device's resistance as this corner sees it
+        chosen_rc = device["corners"][name]["resistance_ohm"]
+        rc_lo, rc_hi = 0.0, 3 * max(chosen_rc, max(s[1] for s in cmap.samples))
+        fig.texts[1].set_text(f"{device['name']} stands in for Rc: the vertical axis is its "
+                              "channel resistance as this corner sees it; shaded: this corner "
+                              "meets the target.")
     cc = cc_grid(cc_lo, cc_hi, 60)
     rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
     values = cmap.loop_gain_values(cc[:, None], rc[None, :])
@@ -279,7 +295,8 @@ def map_page(data: ReportData):
     if rc.size > 1:
         target = r.get("target", {})
         if target:
-            pm_w, gm_w = _worst_grid(data, cc, rc)
+            pm_w, gm_w = _worst_grid(data, cc, rc) if device is None else \
+                _worst_grid(ReportData(data.out, r, [name], maps={name: cmap}), cc, rc)
             ok = pm_w >= target["phase_margin_deg"]
             if target.get("gain_margin_db") is not None:
                 ok &= gm_w >= target["gain_margin_db"]
@@ -305,20 +322,21 @@ def map_page(data: ReportData):
         xs = [h["values"]["cc"] for h in textbook]
         ys = [h["values"].get("rc", 0.0) for h in textbook]
         ax.plot(xs, ys, "-o", color=style.TEXTBOOK, ms=4, lw=1.2, label="textbook procedure, step by step")
-    samples = [h for h in r.get("history", []) if h["kind"] in ("characterise", "report-map")][-3:]
-    ax.plot([h["values"]["cc"] for h in samples], [h["values"].get("rc", 0.0) for h in samples],
+    ax.plot([s[0] for s in cmap.samples], [s[1] for s in cmap.samples],
             "s", color=style.START, ms=6, label="the three simulated samples the map is built on")
     chosen = r.get("values", {})
     if "cc" in chosen:
-        ax.plot([chosen["cc"]], [chosen.get("rc", 0.0)], "*", color=style.FINAL, ms=16,
-                markeredgecolor="white", label=f"chosen: {_values_text(chosen)}", zorder=6)
+        ax.plot([chosen["cc"]], [chosen_rc], "*", color=style.FINAL, ms=16,
+                markeredgecolor="white", label=f"chosen: {_values_text(chosen, r)}", zorder=6)
     if rc.size > 1:
         pad = 0.03 * (rc[-1] - rc[0])
         ax.set_ylim(rc[0] - pad, rc[-1] + pad)
     ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
     fig.text(0.72, 0.55, "solid lines: phase margin of this corner\n"
              "dashed lines: its unity-gain frequency\n"
-             "green: every corner meets the target", fontsize=8.5, color=style.MUTED, va="top")
+             + ("green: this corner meets the target" if device else
+                "green: every corner meets the target"), fontsize=8.5, color=style.MUTED,
+             va="top")
     return fig
 
 

@@ -63,6 +63,10 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         when no point within the bounds meets it; ``failed`` when corners do not simulate
         or verification keeps disagreeing with the maps.
     """
+    if evaluator.amplifier.device is not None:
+        from .devicemap import tune_device_by_map
+
+        return tune_device_by_map(evaluator, target, max_rounds=max(max_rounds, 4))
     knobs = evaluator.amplifier.job.compensation
     in_effect = evaluator.full_values({})
     cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])

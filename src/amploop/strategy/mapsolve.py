@@ -52,7 +52,7 @@ def rc_grid(low: float, high: float, n: int) -> np.ndarray:
 
 
 def _worst_on_grid(maps: dict[str, CompensationMap], cc: np.ndarray, rc: np.ndarray,
-                   every: int = 1):
+                   every: int = 1, rc_of=None):
     """Worst-corner PM (deg), UGF (Hz), GM (dB) on the cc × rc grid, and the PM corner.
 
     ``every`` > 1 uses every n-th analysis frequency (a faster, coarser first look)."""
@@ -61,9 +61,10 @@ def _worst_on_grid(maps: dict[str, CompensationMap], cc: np.ndarray, rc: np.ndar
     ugf_w = np.full(shape, np.inf)
     gm_w = np.full(shape, np.inf)
     limiting = np.zeros(shape, dtype=int)
-    for index, cmap in enumerate(maps.values()):
+    for index, (name, cmap) in enumerate(maps.items()):
         pick = slice(None, None, every)
-        values = cmap.loop_gain_values(cc[:, None], rc[None, :], frequency_index=pick)
+        rc_here = rc if rc_of is None else rc_of[name](rc)
+        values = cmap.loop_gain_values(cc[:, None], rc_here[None, :], frequency_index=pick)
         pm, ugf, gm = grid_margins(cmap.frequency_hz[pick], values)
         pm = np.where(np.isnan(pm), -np.inf, pm)
         ugf = np.where(np.isnan(ugf), 0.0, ugf)
@@ -94,11 +95,12 @@ def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min):
     return np.unravel_index(np.argmax(score), score.shape), False
 
 
-def predicted_worst(maps: dict[str, CompensationMap], cc: float, rc: float):
+def predicted_worst(maps: dict[str, CompensationMap], cc: float, rc: float, rc_of=None):
     """Exact worst-corner (PM deg, UGF Hz, GM dB or None, limiting corner) at one point."""
     worst_pm, worst_ugf, worst_gm, limiting = np.inf, np.inf, None, ""
     for name, cmap in maps.items():
-        m = loop_margins(cmap.loop_gain(cc, rc))
+        rc_here = rc if rc_of is None else float(rc_of[name](np.array([rc]))[0])
+        m = loop_margins(cmap.loop_gain(cc, rc_here))
         pm = m.phase_margin_deg if m.phase_margin_deg is not None else -np.inf
         ugf = m.unity_gain_hz if m.unity_gain_hz is not None else 0.0
         if pm < worst_pm:
@@ -118,6 +120,7 @@ def solve_on_maps(
     *,
     points: int = 31,
     zooms: int = 4,
+    rc_of: dict | None = None,
 ) -> MapSolution:
     """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
 
@@ -135,6 +138,9 @@ def solve_on_maps(
         Grid points per axis for the coarse search.
     zooms
         Refinement levels around the best grid point (9 × 9 each, every frequency).
+    rc_of
+        For a device standing in for Rc: corner name -> function from the device's size to
+        that corner's channel resistance (Ω); ``rc_bounds`` are then size bounds.
 
     Returns
     -------
@@ -144,7 +150,8 @@ def solve_on_maps(
     """
     cc = cc_grid(*cc_bounds, points)
     rc = rc_grid(*rc_bounds, points)
-    (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, every=2)[:3], aim_pm, gm_min)
+    (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, every=2, rc_of=rc_of)[:3],
+                                   aim_pm, gm_min)
     best_cc, best_rc = float(cc[i]), float(rc[j])
     for _ in range(zooms):
         cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
@@ -153,8 +160,9 @@ def solve_on_maps(
                                        else [cc_lo], [best_cc]]))
         rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 9) if rc_hi > rc_lo
                                        else [rc_lo], [best_rc]]))
-        (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc)[:3], aim_pm, gm_min)
+        (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, rc_of=rc_of)[:3],
+                                       aim_pm, gm_min)
         best_cc, best_rc = float(cc[i]), float(rc[j])
-    pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc)
+    pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
                        unity_gain_hz=ugf, gain_margin_db=gm, limiting_corner=limiting)

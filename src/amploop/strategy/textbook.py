@@ -59,6 +59,10 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
             file=evaluator.amplifier.job.path, place="[amplifier]",
         )
     job = evaluator.amplifier.job
+    if evaluator.amplifier.device is not None:
+        raise TuningError("the textbook strategy sets a resistance, not a device size: use the "
+                          "map strategy for a MOSFET standing in for Rc",
+                          file=job.path, place="[compensation].rc")
     knobs = job.compensation
     in_effect = evaluator.full_values({})
     cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])
