@@ -255,9 +255,12 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
     netlist = read_netlist(job.amplifier.netlist)
     for include in job.amplifier.includes:
         netlist.files.setdefault(include, read_source(include))
+    checked = list(netlist.files.values())
+    if job.amplifier.models is not None:  # read whole: a block in any section would run
+        checked += _model_files(job.amplifier.models)
     control = tuple(
         (source.path, s.line)
-        for source in netlist.files.values()
+        for source in checked
         for s in source.statements
         if s.keyword == ".control"
     )
@@ -311,6 +314,25 @@ def _device(job: Job, subckt: Subckt, site: KnobSite, scope: dict) -> tuple[Devi
             "signal; put it between the first-stage output and Cc"
         )
     return device, warning
+
+
+def _model_files(models: Path) -> list:
+    """The models file and every file its sections include (for the .control check)."""
+    from .netlist import _include_target
+
+    sources, queue, seen = [], [models], set()
+    while queue:
+        path = queue.pop()
+        if path in seen or not path.is_file():
+            continue
+        seen.add(path)
+        source = read_source(path)
+        sources.append(source)
+        for statement in source.statements:
+            target = _include_target(statement)
+            if target is not None:
+                queue.append(target[0])
+    return sources
 
 
 def _check_ports(job: Job, subckt: Subckt) -> None:

@@ -187,6 +187,7 @@ class WorkerPool:
                  ) -> Iterator[tuple[Hashable, object]]:
         """A worker is gone: retry its running task (bounded) if it crashed under it, and
         put the tasks that never started back in line."""
+        worker.process.join(timeout=2)  # reap it, so the exit code is known
         code = worker.process.exitcode
         tasks = list(worker.queue)
         worker.queue.clear()
