@@ -64,6 +64,7 @@ def raw_pyspice(decks: list[str], steps, reps: int) -> float:
     logging.getLogger("PySpice").setLevel(logging.CRITICAL)
     from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
 
+    os.chdir(tempfile.mkdtemp(prefix="amploop-bench-"))  # BSIM4 cards write bsim4v5.out here
     ngspice = NgSpiceShared.new_instance()
     lib = ngspice._ngspice_shared
     lib.ngSpice_Command(b"set num_threads=1")
