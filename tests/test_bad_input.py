@@ -243,3 +243,15 @@ def test_no_traceback_from_the_installed_command(job, tmp_path):
     assert proc.returncode == 2
     line = one_error_line(proc.stderr)
     assert "[feedback].kind" in line and "did you mean 'resistive'" in line
+
+
+def test_operating_point_found_only_by_the_transient_fallback_is_reported(job, tmp_path, capsys):
+    """V = exp(100·v) has no DC solution that Newton, gmin or source stepping reach; ngspice's
+    transient fallback settles somewhere. The corners still measure, with a warning in
+    results.json and on the terminal (such a point moves with the capacitors)."""
+    edit(job.parent / "macro.cir", ".ends", "Bx nx 0 V=exp(100*v(nx))\nRx nx 0 1k\n.ends")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 0
+    assert "transient fallback" in err
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert all(any("transient fallback" in w for w in c["warnings"]) for c in results["corners"])
