@@ -1,0 +1,64 @@
+"""The simulator layer on its own: ngspice's messages read by amploop, and nothing kept.
+
+References: ngspice 39's own behaviour (its plot list, its messages), as observed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from amploop.errors import SimulatorError
+from amploop.simulator import AnalysisRequest, NgspiceSession, Step, summarise_failure
+
+RC = "rc low-pass\nV1 a 0 dc 0 ac 1\nR1 a b 1k\nC1 b 0 1n\n.end\n"
+
+
+@pytest.fixture(scope="module")
+def session():
+    return NgspiceSession()
+
+
+def test_a_first_order_low_pass_reads_back_exactly(session):
+    """|H| = 1/√(1 + (ωRC)²) at the analysis frequencies (hand calculation)."""
+    out = session.run(AnalysisRequest("rc", RC, (Step("ac dec 10 1 10meg", ("frequency", "v(b)")),)))
+    f = np.real(out.reads[0]["frequency"])
+    h = out.reads[0]["v(b)"]
+    expected = 1 / (1 + 2j * np.pi * f * 1e3 * 1e-9)
+    assert np.max(np.abs(h - expected)) < 1e-12
+
+
+def test_every_circuit_and_plot_is_freed_after_an_analysis(session):
+    for _ in range(50):
+        session.run(AnalysisRequest("rc", RC, (Step("ac dec 10 1 10meg", ("v(b)",)),)))
+    assert session._shared.plot_names == ["const"]
+    rc, out, err = session._command("listing")
+    assert any("no circuit" in line.lower() for line in out + err)
+
+
+def test_a_rejected_command_is_an_error_not_a_silent_zero(session):
+    steps = (Step("alter nosuch acmag=0"), Step("ac dec 2 1 10", ("v(b)",)))
+    with pytest.raises(SimulatorError, match="rejected"):
+        session.run(AnalysisRequest("rc", RC, steps))
+    # and the session still works
+    session.run(AnalysisRequest("rc", RC, (Step("ac dec 2 1 10", ("v(b)",)),)))
+
+
+def test_a_vector_that_is_not_there_is_an_error(session):
+    with pytest.raises(SimulatorError, match="not found"):
+        session.run(AnalysisRequest("rc", RC, (Step("ac dec 2 1 10", ("v(nosuch)",)),)))
+
+
+def test_a_floating_node_is_an_error_even_when_gmin_stepping_succeeds(session):
+    deck = "floating\nV1 a 0 dc 1 ac 1\nR1 a b 1k\nC1 b c 1p\nC2 c 0 1p\n.end\n"
+    with pytest.raises(SimulatorError, match="singular matrix at node c"):
+        session.run(AnalysisRequest("f", deck, (Step("ac dec 2 1 10", ("v(b)",)),)))
+
+
+def test_failure_summaries_are_one_readable_line():
+    assert summarise_failure(["Warning: singular matrix:  check node x"]).startswith(
+        "singular matrix at node x")
+    assert "no DC operating point" in summarise_failure(
+        ["AC operating point failed -", "Error: Transient op failed, timestep too small"])
+    assert summarise_failure(["Error on line:", "  r1 a b inf", "unknown parameter (inf)"]) == \
+        "Error on line: r1 a b inf unknown parameter (inf)"
