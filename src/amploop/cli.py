@@ -64,6 +64,9 @@ def _parser() -> argparse.ArgumentParser:
                         help="set a compensation value by its role, e.g. --set cc=1.5p")
     common.add_argument("--workers", type=int, default=None, metavar="N",
                         help="worker processes (default: the CPU count)")
+    common.add_argument("--cluster", default=None, metavar="ADDRESS",
+                        help="run the analyses on the workers of a Dask cluster, given by its "
+                        "scheduler's address (e.g. tcp://scheduler-host:8786)")
     common.add_argument("--allow-control", action="store_true",
                         help="run .control blocks found in your netlist (they can run commands)")
     common.add_argument("--quiet", action="store_true", help="print only errors")
@@ -182,15 +185,27 @@ def _print_corner_errors(failed, total: int) -> None:
         print(f"amploop: error: {problem} ({who})", file=sys.stderr)
 
 
+def _cluster_pool(args):
+    """A ClusterPool for ``--cluster`` (a context manager), else one that gives None."""
+    if args.cluster is None:
+        from contextlib import nullcontext
+
+        return nullcontext(None)
+    from .cluster import ClusterPool
+
+    return ClusterPool(args.cluster)
+
+
 def _run_measure(args) -> ExitCode:
     from .job import load_job, parse_overrides
     from .measure import measure
 
     job = load_job(args.job)
     overrides = parse_overrides(args.set, job)
-    result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
-                     allow_control=args.allow_control, progress=_progress_printer(args.quiet),
-                     time_domain=not args.no_report)
+    with _cluster_pool(args) as pool:
+        result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
+                         pool=pool, allow_control=args.allow_control,
+                         progress=_progress_printer(args.quiet), time_domain=not args.no_report)
     failed = [c for c in result.corners if c.status != "ok"]
     if args.json:
         summary = result.as_json()
@@ -245,10 +260,11 @@ def _run_tune(args) -> ExitCode:
         raise JobError("tune chooses the compensation itself; --set is for measure",
                        place="--set")
     parse_overrides(args.set, job)
-    result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
-                  allow_control=args.allow_control, resume=args.resume,
-                  progress=_tune_progress(args.quiet, len(job.corners)),
-                  time_domain=not args.no_report)
+    with _cluster_pool(args) as pool:
+        result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
+                      pool=pool, allow_control=args.allow_control, resume=args.resume,
+                      progress=_tune_progress(args.quiet, len(job.corners)),
+                      time_domain=not args.no_report)
     if not args.quiet and sys.stderr.isatty():
         sys.stderr.write("\n")
     data = result.as_json()
@@ -290,6 +306,9 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if getattr(args, "workers", None) is not None and args.workers < 1:
         parser.error("--workers must be at least 1")
+    if getattr(args, "cluster", None) is not None and args.workers is not None:
+        parser.error("--workers and --cluster exclude each other (a cluster's workers are "
+                     "set where they are started)")
     try:
         if args.command == "measure":
             return int(_run_measure(args))
