@@ -323,6 +323,17 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("amploop: interrupted; finished results are in the out folder", file=sys.stderr)
         return int(ExitCode.INTERRUPTED)
+    except Exception as exc:  # noqa: BLE001 - the last line of defence: one line, not a traceback
+        import os
+        import traceback
+
+        if os.environ.get("AMPLOOP_DEBUG"):
+            traceback.print_exc()
+        where = traceback.extract_tb(exc.__traceback__)[-1]
+        print(f"amploop: internal error: {type(exc).__name__}: {exc} (at "
+              f"{os.path.basename(where.filename)}:{where.lineno}; finished results are in the out "
+              "folder; AMPLOOP_DEBUG=1 shows the traceback; please report it)", file=sys.stderr)
+        return int(ExitCode.SIMULATOR_FAILURE)
     return int(ExitCode.OK)
 
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import textwrap
 
 import matplotlib.pyplot as plt
@@ -116,7 +115,8 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
             lines.append(r["message"])
     else:
         lines.append(f"Values in effect: {_values_text(r['values'], r)}")
-    first_step = next((c.get("step") for c in r["corners"] if c.get("step")), None)
+    first_step = next((c["step"] for c in r["corners"]
+                       if c.get("step") and c["step"].get("band") is not None), None)
     if first_step:
         lines.append(f"Step response: {engineering(first_step['step_v'], 'V')} input step at the "
                      f"signal source; settling time to ±{first_step['band']:.1%} of the output step")
@@ -438,9 +438,15 @@ def time_domain_page(data: ReportData):
     plt.setp(full.get_xticklabels(), visible=False)
     if len(names) <= 24:
         full.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), ncol=1)
-    worst = max(names, key=lambda n: data.steps[n].metrics.settling_s or math.inf)
-    wm = data.steps[worst].metrics
-    fig.text(0.74, 0.3, f"slowest to settle: {worst}\n"
-             f"  {_fmt(wm.settling_s, '', 's')} to ±{wm.band:.1%}, overshoot {wm.overshoot_pct:.2f} %",
-             fontsize=9)
+    unsettled = [n for n in names if data.steps[n].metrics.settling_s is None]
+    if unsettled:
+        fig.text(0.74, 0.3, f"not settled to ±{any_step.metrics.band:.1%} within the run:\n  "
+                 + "\n  ".join(unsettled[:12]) + ("\n  …" if len(unsettled) > 12 else ""),
+                 fontsize=9, color=style.LIMIT, va="top")
+    else:
+        worst = max(names, key=lambda n: data.steps[n].metrics.settling_s)
+        wm = data.steps[worst].metrics
+        fig.text(0.74, 0.3, f"slowest to settle: {worst}\n"
+                 f"  {_fmt(wm.settling_s, '', 's')} to ±{wm.band:.1%}, overshoot "
+                 f"{wm.overshoot_pct:.2f} %", fontsize=9)
     return fig
