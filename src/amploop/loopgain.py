@@ -7,6 +7,7 @@ negative feedback gives T > 0 at DC; the closed loop's characteristic is 1 + T.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -38,13 +39,13 @@ class FrequencyResponse:
         object.__setattr__(self, "frequency_hz", f)
         object.__setattr__(self, "values", v)
 
-    @property
+    @cached_property
     def magnitude_db(self) -> np.ndarray:
         """20·log10|T| in dB."""
         with np.errstate(divide="ignore"):
             return 20.0 * np.log10(np.abs(self.values))
 
-    @property
+    @cached_property
     def phase_deg(self) -> np.ndarray:
         """Phase in degrees, unwrapped and anchored so the lowest frequency lies in (−180, 180]."""
         return unwrap_from_dc(self.values)
