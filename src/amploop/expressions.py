@@ -58,10 +58,13 @@ def evaluate(expression: str, params: dict[str, str] | None = None, _depth: int 
     ------
     ValueError
         On anything else (unknown name, syntax error, a loop in the definitions, a
-        result out of range).
+        result out of range, parentheses nested more than 100 deep).
     """
     lowered = {k.lower(): v for k, v in (params or {}).items()}
-    return _evaluate(expression, lowered, _depth, ())
+    try:
+        return _evaluate(expression, lowered, _depth, ())
+    except RecursionError:  # parentheses within parameters within parameters ...
+        raise ValueError("expression nested too deeply") from None
 
 
 def _evaluate(expression: str, lowered: dict[str, str], depth: int,
@@ -95,6 +98,10 @@ def _evaluate(expression: str, lowered: dict[str, str], depth: int,
     return value
 
 
+# Parentheses inside parentheses: keeps the recursive parser well off Python's stack limit.
+_MAX_NESTING = 100
+
+
 class _Parser:
     def __init__(self, tokens, params, depth, chain=()):
         self.tokens = tokens
@@ -102,6 +109,19 @@ class _Parser:
         self.depth = depth
         self.chain = chain
         self.position = 0
+        self.nesting = 0
+
+    def open_group(self) -> None:
+        self.nesting += 1
+        if self.nesting > _MAX_NESTING:
+            raise ValueError(f"parentheses nested too deeply (more than {_MAX_NESTING} levels)")
+
+    def signs(self) -> bool:
+        """Read any run of ``+``/``-`` signs (a loop, not recursion); True when negative."""
+        negative = False
+        while self.peek() in ("+", "-"):
+            negative ^= self.take()[1] == "-"
+        return negative
 
     def peek(self) -> str | None:
         return self.tokens[self.position][1] if self.position < len(self.tokens) else None
@@ -131,11 +151,9 @@ class _Parser:
         return value
 
     def unary(self) -> float:
-        if self.peek() in ("+", "-"):
-            op = self.take()[1]
-            value = self.unary()
-            return -value if op == "-" else value
-        return self.power()
+        negative = self.signs()
+        value = self.power()
+        return -value if negative else value
 
     def power(self) -> float:
         value = self.atom()
@@ -146,20 +164,20 @@ class _Parser:
 
     def signed_atom(self) -> float:
         """An exponent: ``2^-1`` is 0.5."""
-        if self.peek() in ("+", "-"):
-            op = self.take()[1]
-            value = self.signed_atom()
-            return -value if op == "-" else value
-        return self.atom()
+        negative = self.signs()
+        value = self.atom()
+        return -value if negative else value
 
     def atom(self) -> float:
         kind, text = self.take()
         if kind == "number":
             return _number(text)
         if kind == "op" and text == "(":
+            self.open_group()
             value = self.expression()
             if self.take()[1] != ")":
                 raise ValueError("missing ')'")
+            self.nesting -= 1
             return value
         if kind == "name":
             name = text.lower()
@@ -167,12 +185,14 @@ class _Parser:
                 if name not in _FUNCTIONS:
                     raise ValueError(f"unknown function {text!r}")
                 self.take()
+                self.open_group()
                 args = [self.expression()]
                 while self.peek() == ",":
                     self.take()
                     args.append(self.expression())
                 if self.take()[1] != ")":
                     raise ValueError("missing ')'")
+                self.nesting -= 1
                 try:
                     return float(_FUNCTIONS[name](*args))
                 except TypeError:

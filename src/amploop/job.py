@@ -243,7 +243,7 @@ class _Reader:
         for key in data:
             if key not in allowed:
                 raise self.fail(
-                    f"{place}.{key}" if place else key,
+                    f"{place}.{_key(key)}" if place else _key(key),
                     f"unknown key {key!r}" + did_you_mean(key, sorted(allowed)),
                 )
 
@@ -280,9 +280,37 @@ class _Reader:
             number = parse_value(value)
         except ValueError as exc:
             raise self.fail(place, str(exc)) from None
+        except OverflowError:  # a TOML integer beyond the float range
+            raise self.fail(place, "number too large for a float") from None
         if nonnegative and number < 0:
             raise self.fail(place, f"must not be negative, got {value!r}")
         return number
+
+
+def _shown(text: object) -> str:
+    """A path or name for a message: as it is, or quoted with escapes when it holds control
+    characters or line breaks (a message stays one line)."""
+    text = str(text)
+    return text if text.isprintable() else repr(text)
+
+
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
+
+
+def _key(key: str) -> str:
+    """A key as a TOML key path writes it: bare, or quoted with escapes, so that a place
+    in a message is one line however odd the key (``""``, ``"a\\nb"``)."""
+    if _BARE_KEY.fullmatch(key):
+        return key
+    escaped = []
+    for ch in key:
+        if ch in '"\\':
+            escaped.append("\\" + ch)
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F or ch in "\x85\u2028\u2029":
+            escaped.append(f"\\u{ord(ch):04x}")
+        else:
+            escaped.append(ch)
+    return '"' + "".join(escaped) + '"'
 
 
 def _balanced(text: str) -> bool:
@@ -341,10 +369,64 @@ def load_job(path: str | Path) -> Job:
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         match = re.search(r"\(at line (\d+), column (\d+)\)", message)
-        place = f"{match.group(1)}:{match.group(2)}" if match else None
-        problem = re.sub(r"\s*\(at line \d+, column \d+\)", "", message)
+        if match:
+            place = f"{match.group(1)}:{match.group(2)}"
+        else:  # "(at end of document)": name the line and column after the last character
+            lines = text.replace("\r\n", "\n").split("\n")
+            place = f"{len(lines)}:{len(lines[-1]) + 1}"
+        problem = re.sub(r"\s*\(at (line \d+, column \d+|end of document)\)", "", message)
         raise JobError(f"TOML syntax error: {problem}", file=path, place=place) from None
+    except (ValueError, RecursionError) as exc:  # an integer of thousands of digits; nesting
+        if isinstance(exc, RecursionError):
+            problem, place = "arrays or tables nested too deeply", _deepest_nesting(text)
+        else:
+            digits = re.search(r"\d[\d_]{4000,}", text)
+            problem = "an integer of thousands of digits" if digits else str(exc)
+            place = _place_of(text, digits)
+        raise JobError(f"TOML value not readable: {problem}", file=path, place=place) from None
     return _build_job(path, data)
+
+
+def _place_of(text: str, match: re.Match | None) -> str | None:
+    """``line:column`` (1-based) where ``match`` starts in ``text``."""
+    if match is None:
+        return None
+    before = text[: match.start()].replace("\r\n", "\n")
+    return f"{before.count(chr(10)) + 1}:{len(before) - before.rfind(chr(10))}"
+
+
+def _deepest_nesting(text: str) -> str | None:
+    """``line:column`` of the deepest ``[`` / ``{`` outside comments and one-line strings
+    (only to point at the place after tomllib gave up on the nesting)."""
+    depth = deepest = 0
+    place = None
+    quote = ""
+    line, column = 1, 0
+    escaped = comment = False
+    for ch in text:
+        column += 1
+        if ch == "\n":
+            line, column, quote, comment = line + 1, 0, "", False
+        elif comment:
+            continue
+        elif quote:
+            if escaped:
+                escaped = False
+            elif ch == "\\" and quote == '"':
+                escaped = True
+            elif ch == quote:
+                quote = ""
+        elif ch == "#":
+            comment = True
+        elif ch in "\"'":
+            quote = ch
+        elif ch in "[{":
+            depth += 1
+            if depth > deepest:
+                deepest, place = depth, f"{line}:{column}"
+        elif ch in "]}":
+            depth = max(0, depth - 1)
+    return place
 
 
 def _build_job(path: Path, data: dict) -> Job:
@@ -399,10 +481,21 @@ def _existing_file(r: _Reader, job_path: Path, data: dict, key: str, place: str,
     name = r.string(data, key, place, required=required)
     if name is None:
         return None
-    file = (job_path.parent / name).resolve()
-    if not file.is_file():
-        raise r.fail(f"{place}.{key}", f"file not found: {file}")
+    file, found = _resolved_file(r, job_path, name, f"{place}.{key}")
+    if not found:
+        raise r.fail(f"{place}.{key}", f"file not found: {_shown(file)}")
     return file
+
+
+def _resolved_file(r: _Reader, job_path: Path, name: str, place: str) -> tuple[Path, bool]:
+    """``name`` relative to the job file, resolved, and whether it is a file. A name the
+    system refuses (a NUL byte, too long) is a JobError at ``place``."""
+    try:
+        file = (job_path.parent / name).resolve()
+        return file, file.is_file()
+    except (OSError, ValueError, RuntimeError) as exc:
+        problem = getattr(exc, "strerror", None) or str(exc)
+        raise r.fail(place, f"not a usable file name {name!r} ({problem})") from None
 
 
 def _include_list(r: _Reader, job_path: Path, data: dict) -> tuple[Path, ...]:
@@ -411,9 +504,9 @@ def _include_list(r: _Reader, job_path: Path, data: dict) -> tuple[Path, ...]:
         raise r.fail("[amplifier].includes", "expected a list of file names")
     files = []
     for i, name in enumerate(value):
-        file = (job_path.parent / name).resolve()
-        if not file.is_file():
-            raise r.fail(f"[amplifier].includes[{i}]", f"file not found: {file}")
+        file, found = _resolved_file(r, job_path, name, f"[amplifier].includes[{i}]")
+        if not found:
+            raise r.fail(f"[amplifier].includes[{i}]", f"file not found: {_shown(file)}")
         files.append(file)
     return tuple(files)
 
@@ -424,7 +517,7 @@ def _bias(r: _Reader, data: dict) -> Bias:
     for port, spec in data.items():
         if port == "common_mode":
             continue
-        place = f"[bias].{port}"
+        place = f"[bias].{_key(port)}"
         if not isinstance(spec, dict):
             raise r.fail(place, 'expected a table such as { volts = "1.8" } or { amps = "10u" }')
         r.known(spec, {"volts", "amps"}, place)
@@ -551,7 +644,7 @@ def _params(r: _Reader, data: Any, place: str) -> dict[str, float]:
     params = {}
     for key, value in data.items():
         if not _IDENTIFIER.fullmatch(key):
-            raise r.fail(f"{place}.{key}", "not a valid SPICE parameter name")
+            raise r.fail(f"{place}.{_key(key)}", "not a valid SPICE parameter name")
         params[key.lower()] = r.number(value, f"{place}.{key}")
     return params
 
@@ -592,6 +685,9 @@ def _corners(r: _Reader, data: dict, defaults: dict[str, float]) -> tuple[Corner
         value_lists = []
         for key in names:
             values = grid_params[key]
+            if not _IDENTIFIER.fullmatch(key):  # as in [params]: the names become .param lines
+                raise r.fail(f"[corner_grid].params.{_key(key)}",
+                             "not a valid SPICE parameter name")
             if not isinstance(values, list) or not values:
                 raise r.fail(f"[corner_grid].params.{key}", "expected a non-empty list")
             value_lists.append([r.number(v, f"[corner_grid].params.{key}") for v in values])
@@ -645,27 +741,29 @@ def _check_corner_libs(r: _Reader, job: Job) -> None:
     try:
         sections = lib_sections(models)
     except NetlistError as exc:
-        raise r.fail("[amplifier].models", str(exc)) from None
+        raise r.fail("[amplifier].models", _shown(exc)) from None
     if not sections:
         return  # a plain model file: included whole
     for corner in job.corners:
         if corner.lib is None:
             raise r.fail(
                 f"corner {corner.name!r}",
-                f"no lib given, but {models.name} holds sections " + ", ".join(sections)
+                f"no lib given, but {_shown(models.name)} holds sections "
+                + ", ".join(map(_shown, sections))
                 + "; name one with lib = \"...\"",
             )
         if corner.lib.lower() not in sections:
             raise r.fail(
                 f"corner {corner.name!r}",
-                f"lib {corner.lib!r} is not a section of {models}" + did_you_mean(corner.lib, sections),
+                f"lib {corner.lib!r} is not a section of {_shown(models)}"
+                + did_you_mean(corner.lib, sections),
             )
 
 
 def _check_corner_params(r: _Reader, job: Job) -> None:
     """Every parameter an expression uses is set by every corner; passive values not negative."""
     expressions = [("[bias].common_mode", job.bias.common_mode, False)]
-    expressions += [(f"[bias].{s.port}", s.value, False) for s in job.bias.sources]
+    expressions += [(f"[bias].{_key(s.port)}", s.value, False) for s in job.bias.sources]
     for key in ("input", "feedback", "load", "dc_path"):
         expressions.append((f"[feedback].{key}", getattr(job.feedback, key), True))
     for corner in job.corners:

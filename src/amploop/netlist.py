@@ -123,7 +123,8 @@ def split_logical_lines(text: str) -> list[LogicalLine]:
         stripped = line.strip()
         if stripped.startswith("+") and logical and logical[-1].text:
             previous = logical[-1]
-            addition = _strip_inline_comment(stripped[1:]).strip()
+            # the "+" counts as text before a "$": ngspice 39 reads "+$ x" on (not a comment)
+            addition = _strip_inline_comment(stripped)[1:].strip()
             joined = f"{previous.text} {addition}".strip()
             logical[-1] = LogicalLine(previous.number, (*previous.raw, line), joined)
             continue
@@ -375,12 +376,40 @@ def _include_target(statement: Statement) -> tuple[Path, str | None] | None:
     return None
 
 
+# Characters that end a line for str.splitlines (and so for a reader of the message).
+_LINE_BREAKS = str.maketrans({c: repr(c)[1:-1] for c in "\n\r\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029"})
+
+
+def _shown(text: str) -> str:
+    """Netlist text for a message: line breaks escaped, so that the message stays one line."""
+    return text.translate(_LINE_BREAKS)
+
+
 def _resolve(statement: Statement, name: str) -> Path:
     name = name.strip("'\"")
-    path = Path(name).expanduser()
+    try:
+        path = Path(name).expanduser()
+    except RuntimeError:  # "~user" of an unknown user (or no home): taken as written
+        path = Path(name)
     if not path.is_absolute():
         path = statement.file.parent / path
-    return path.resolve()
+    try:
+        return path.resolve()
+    except (OSError, ValueError, RuntimeError) as exc:  # a NUL byte, a symlink loop
+        raise NetlistError(f"{statement.tokens[0]} {name!r}: not a usable file name ({exc})",
+                           file=statement.file, place=statement.line) from None
+
+
+def _is_file(statement: Statement, path: Path) -> bool:
+    """``path.is_file()``, with a NetlistError naming the statement for a name the system
+    refuses (too long, say) instead of an OSError."""
+    try:
+        return path.is_file()
+    except (OSError, ValueError) as exc:
+        problem = getattr(exc, "strerror", None) or str(exc)
+        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: cannot use "
+                           f"{_shown(str(path))} ({problem})", file=statement.file,
+                           place=statement.line) from None
 
 
 def read_source(path: Path, text: str | None = None) -> SourceFile:
@@ -452,10 +481,12 @@ def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceF
             break
     if subckt_stack:
         name, number = subckt_stack[-1]
-        raise NetlistError(f".subckt {name} is never closed by .ends", file=path, place=number)
+        raise NetlistError(f".subckt {_shown(name)} is never closed by .ends", file=path,
+                           place=number)
     if section is not None:
         raise NetlistError(
-            f".lib section {section[0]} is never closed by .endl", file=path, place=section[1]
+            f".lib section {_shown(section[0])} is never closed by .endl", file=path,
+            place=section[1],
         )
     if in_control is not None:
         raise NetlistError(".control block is never closed by .endc", file=path, place=in_control)
@@ -556,9 +587,10 @@ def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> 
         target = _include_target(statement)
         if target is not None:
             target_path, target_section = target
-            if not target_path.is_file():
+            if not _is_file(statement, target_path):
                 raise NetlistError(
-                    f"{statement.tokens[0]} {statement.tokens[1]}: file not found ({target_path})",
+                    f"{statement.tokens[0]} {_shown(statement.tokens[1])}: file not found "
+                    f"({_shown(str(target_path))})",
                     file=statement.file,
                     place=statement.line,
                 )
@@ -566,7 +598,7 @@ def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> 
             sections = _sections(netlist.files[target_path])
             if target_section is not None and target_section not in sections:
                 raise NetlistError(
-                    f".lib section {target_section!r} not found in {target_path}"
+                    f".lib section {target_section!r} not found in {_shown(str(target_path))}"
                     + did_you_mean(target_section, sections),
                     file=statement.file,
                     place=statement.line,
@@ -638,7 +670,7 @@ def element_value_index(statement: Statement) -> int:
     keys = _VALUE_KEYS.get(kind)
     if keys is None:
         raise NetlistError(
-            f"element {tokens[0]} is not a resistor or capacitor: its value cannot be set",
+            f"element {_shown(tokens[0])} is not a resistor or capacitor: its value cannot be set",
             file=statement.file,
             place=statement.line,
         )
@@ -648,7 +680,8 @@ def element_value_index(statement: Statement) -> int:
     if len(tokens) >= 4 and not _is_assignment(tokens[3]):
         return 3
     raise NetlistError(
-        f"element {tokens[0]} has no value to set", file=statement.file, place=statement.line
+        f"element {_shown(tokens[0])} has no value to set", file=statement.file,
+        place=statement.line,
     )
 
 
@@ -788,10 +821,8 @@ def _render(
                 out.append(text)
                 out.append(f"* ---- end {what}")
                 notes.extend(inner_notes)
-            elif target_section is None:
-                out.append(f'{statement.tokens[0]} "{target_path}"')
             else:
-                out.append(f'{statement.tokens[0]} "{target_path}" {statement.tokens[2]}')
+                out.append(_include_line(statement, target_path, target_section))
             continue
         if keyword == ".end" and statement.subckt is None:
             if top_level:
@@ -810,6 +841,23 @@ def _render(
                 continue
         out.extend(logical.raw)
     return "\n".join(out), notes
+
+
+def _include_line(statement: Statement, path: Path, section: str | None) -> str:
+    """The include line of the deck: the keyword, the absolute path in double quotes (single
+    ones when it holds a double quote; ngspice 39 and the reader take either) and the section
+    as written. NetlistError if that line would not read back the same (a path holding both
+    kinds of quote, a section token that reads as a comment)."""
+    text = str(path)
+    parts = [statement.tokens[0], f"'{text}'" if '"' in text else f'"{text}"']
+    if section is not None:
+        parts.append(statement.tokens[2])
+    line = " ".join(parts)
+    if tokenize(_strip_inline_comment(line).strip()) != parts:
+        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: cannot write "
+                           f"an include line that reads back the same for {text!r}",
+                           file=statement.file, place=statement.line)
+    return line
 
 
 def value_of(expression: str, params: dict[str, str], *, where: str) -> float:
