@@ -255,3 +255,14 @@ def test_operating_point_found_only_by_the_transient_fallback_is_reported(job, t
     assert "transient fallback" in err
     results = json.loads((tmp_path / "out" / "results.json").read_text())
     assert all(any("transient fallback" in w for w in c["warnings"]) for c in results["corners"])
+
+
+def test_a_corner_grid_too_large_to_expand_is_refused(job, tmp_path, capsys):
+    values = ", ".join(str(1 + i / 1000) for i in range(600))  # 200 × 600 = 120 000 corners
+    text = job.read_text() + f'[corner_grid]\ntemp = [{", ".join(str(t) for t in range(-40, 160))}]\n' \
+        f"params = {{ vdd = [{values}] }}\n"
+    job.write_text(text)
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "[corner_grid]" in line and "makes 120000 corners" in line

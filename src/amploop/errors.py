@@ -57,7 +57,14 @@ class AmploopError(Exception):
         text = f"{where}: {self.problem}" if where else self.problem
         if self.hint:
             text += f" ({self.hint})"
+        return _one_line(text)
+
+
+def _one_line(text: str) -> str:
+    """Control characters (a newline in a file name, say) escaped: a message is one line."""
+    if text.isprintable():
         return text
+    return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
 
 
 class JobError(AmploopError):

@@ -218,6 +218,8 @@ _GRID_KEYS = {"lib", "temp", "params"}
 _TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
 _TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}
 _ROLES = ("cc", "rc")
+#: A corner grid larger than this is refused before it is expanded.
+MAX_CORNERS = 100_000
 
 
 class _Reader:
@@ -691,6 +693,10 @@ def _corners(r: _Reader, data: dict, defaults: dict[str, float]) -> tuple[Corner
             if not isinstance(values, list) or not values:
                 raise r.fail(f"[corner_grid].params.{key}", "expected a non-empty list")
             value_lists.append([r.number(v, f"[corner_grid].params.{key}") for v in values])
+        size = len(libs) * len(temps) * math.prod(len(v) for v in value_lists)
+        if size > MAX_CORNERS:
+            raise r.fail("[corner_grid]", f"makes {size} corners; at most {MAX_CORNERS} are "
+                         "allowed", hint="split the job, or fewer values per list")
         for lib in libs:
             if lib is not None and not isinstance(lib, str):
                 raise r.fail("[corner_grid].lib", "expected a list of section names")
