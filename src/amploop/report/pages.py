@@ -5,6 +5,7 @@ from __future__ import annotations
 import textwrap
 
 import matplotlib.pyplot as plt
+from matplotlib.ticker import LogLocator
 import numpy as np
 
 from ..margins import grid_margins, loop_margins
@@ -387,6 +388,7 @@ def convergence_page(data: ReportData, target_pm: float | None):
     top.set_ylabel("worst-corner phase margin (°)")
     bottom.set_ylabel("worst-corner unity gain")
     bottom.set_yscale("log")
+    bottom.yaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
     bottom.yaxis.set_major_formatter(style.hertz)
     bottom.yaxis.set_minor_formatter(plt.NullFormatter())
     bottom.set_xlabel("AC analyses so far")
