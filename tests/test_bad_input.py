@@ -266,3 +266,12 @@ def test_a_corner_grid_too_large_to_expand_is_refused(job, tmp_path, capsys):
     assert code == 2
     line = one_error_line(err)
     assert "[corner_grid]" in line and "makes 120000 corners" in line
+
+
+def test_a_missing_model_is_traced_to_the_users_line(job, tmp_path, capsys):
+    """ngspice says "can't find model 'x'"; amploop finds the line in the user's file."""
+    edit(job.parent / "macro.cir", "R2 out 0", "R2 out 0 rmod_typo r=")
+    edit(job.parent / "macro.cir", "rmod_typo r=", "1k rmod_typo")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    line = one_error_line(err)
+    assert "macro.cir:7:" in line and "rmod_typo" in line

@@ -8,7 +8,6 @@ text edits that set new values. It reads files but never simulates.
 
 from __future__ import annotations
 
-import difflib
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -130,9 +129,8 @@ class Amplifier:
         ngspice numbers lines of its expanded deck (inside a subckt often "line no. 0"), so
         the name it complains about is looked up in the user's files instead.
         """
-        for pattern in (r"\[([^\]]+)\]", r"'([^']+)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$"):
-            match = re.search(pattern, problem)
-            if match:
+        for pattern in (r"\[([^\]]+)\]", r"'([\w.#$-]+\(?)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$"):
+            for match in re.finditer(pattern, problem):
                 statement = self.find_word(match.group(1).strip("("))
                 if statement is not None:
                     cleaned = re.sub(r"\s*\(Netlist line no\. \d+ of the deck\)", "", problem)
@@ -364,11 +362,9 @@ def _check_ports(job: Job, subckt: Subckt) -> None:
 
 
 def _close(name: str, choices) -> str:
-    close = difflib.get_close_matches(name.lower(), [c.lower() for c in choices], n=1, cutoff=0.5)
-    if close:
-        original = next(c for c in choices if c.lower() == close[0])
-        return f"; did you mean {original!r}?"
-    return ""
+    """Only the did-you-mean part (the choices are listed already)."""
+    text = did_you_mean(name, choices)
+    return text if "did you mean" in text else ""
 
 
 def _locate(job: Job, netlist: Netlist, subckt: Subckt, knob: Knob, global_exprs: dict,

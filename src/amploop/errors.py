@@ -99,9 +99,13 @@ def did_you_mean(name: str, choices) -> str:
     """``"; did you mean 'x'?"`` when a choice is close to ``name``, else a list of choices."""
     choices = list(dict.fromkeys(choices))
     lowered = {c.lower(): c for c in choices}
-    close = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.5)
+    close = difflib.get_close_matches(name.lower(), list(lowered), n=3, cutoff=0.5)
     if close:
-        return f"; did you mean {lowered[close[0]]!r}?"
+        def ratio(candidate: str) -> float:
+            return difflib.SequenceMatcher(None, name.lower(), candidate).ratio()
+
+        best = [c for c in close if ratio(c) == ratio(close[0])][:2]  # a tie: name both
+        return "; did you mean " + " or ".join(repr(lowered[c]) for c in best) + "?"
     if choices and len(choices) <= 12:
         return "; choices: " + ", ".join(repr(c) for c in choices)
     return ""
