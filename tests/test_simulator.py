@@ -62,3 +62,47 @@ def test_failure_summaries_are_one_readable_line():
         ["AC operating point failed -", "Error: Transient op failed, timestep too small"])
     assert summarise_failure(["Error on line:", "  r1 a b inf", "unknown parameter (inf)"]) == \
         "Error on line: r1 a b inf unknown parameter (inf)"
+
+
+# -- work done in the worker after an analysis ------------------------------------------
+
+
+def test_after_work_runs_in_the_worker_and_a_failure_there_keeps_the_analysis():
+    """``after`` comes back as the output's ``after``; when it raises, the analysis is
+    still delivered, with ``after_error`` saying what went wrong there."""
+    from amploop.pool import WorkerPool
+
+    steps = (Step("ac dec 10 1 10meg", ("v(b)",)),)
+    with WorkerPool(1) as pool:
+        results = dict(pool.run([
+            ("fine", AnalysisRequest("rc", RC, steps, after=repr)),
+            ("fails", AnalysisRequest("rc", RC, steps, after=int)),  # int(output): TypeError
+        ]))
+    assert results["fine"].after.startswith("AnalysisOutput(")
+    assert results["fine"].after_error is None
+    assert results["fails"].after is None
+    assert results["fails"].after_error.startswith("TypeError")
+    assert np.array_equal(results["fails"].reads[0]["v(b)"], results["fine"].reads[0]["v(b)"])
+
+
+def test_corner_files_are_the_same_whether_the_workers_or_the_coordinator_write_them(tmp_path):
+    """With every core simulating the workers write each corner's CSV and deck; with a
+    core to spare (or remote workers) the coordinator does. Same bytes either way."""
+    from amploop.job import load_job
+    from amploop.measure import measure
+    from amploop.pool import WorkerPool, default_workers
+    from conftest import DEMO
+
+    job = load_job(DEMO / "job.toml")
+    outs = {}
+    for who in ("workers", "coordinator"):
+        with WorkerPool(default_workers()) as pool:
+            pool.shares_files = who == "workers"
+            outs[who] = tmp_path / who
+            measure(job, out=outs[who], pool=pool, time_domain=False)
+    files = sorted(p.relative_to(outs["workers"]) for p in outs["workers"].rglob("*")
+                   if p.suffix in (".csv", ".cir"))
+    assert len(files) == 2 * len(job.corners)
+    for relative in files:
+        assert (outs["workers"] / relative).read_bytes() == \
+            (outs["coordinator"] / relative).read_bytes(), relative

@@ -392,6 +392,7 @@ class ClusterPool:
         self._bundler = FileBundler()
         self._token = uuid.uuid4().hex[:12]
         self._count = 0
+        self.shares_files = False  # workers may be elsewhere: the coordinator writes files
         _check_address(address)
         try:
             self._client = distributed.Client(address, timeout=timeout_s,
@@ -452,7 +453,7 @@ class ClusterPool:
         distributed = _distributed()
         futures = {}
         for key, request in requests:
-            bundled = replace(request, files=self._bundler.bundle(request.deck))
+            bundled = replace(request, files=self._bundler.bundle(request.deck), after=None)
             self._count += 1
             future = self._client.submit(run_analysis, bundled, pure=False,
                                          key=f"amploop-analysis-{self._token}-{self._count}")

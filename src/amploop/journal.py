@@ -2,8 +2,10 @@
 
 Each analysis is keyed by a hash of everything that decides its result: the deck text,
 the simulator commands, the contents of every file the deck reads, and the journal's
-format version. A rerun of the same job therefore finds every analysis it already ran,
-and an interrupted run loses at most the analyses that were in flight.
+format version. A rerun of the same job therefore finds every analysis it already ran.
+Records are committed in batches, at most ``commit_interval_s`` apart (0.5 s) and at the
+end of every batch of analyses a caller runs, so an interrupted run loses at most the
+analyses that were in flight and those finished in the last half second.
 
 Only the coordinating process writes (WAL mode, ``synchronous=NORMAL``: survives a crash
 of the application; explicit ``BEGIN IMMEDIATE`` transactions; the connection is opened
@@ -98,6 +100,8 @@ class Journal:
         The database file (created when missing, unless ``readonly``).
     readonly
         Open for reading only (the report); never creates or changes the file.
+    commit_interval_s
+        Longest time, s, a recorded analysis waits for its commit (see :meth:`commit`).
 
     Raises
     ------
@@ -105,8 +109,11 @@ class Journal:
         If the file is not an amploop journal, is corrupt, or comes from another schema.
     """
 
-    def __init__(self, path: str | Path, *, readonly: bool = False) -> None:
+    def __init__(self, path: str | Path, *, readonly: bool = False,
+                 commit_interval_s: float = 0.5) -> None:
         self.path = Path(path)
+        self.commit_interval_s = commit_interval_s
+        self._open_since: float | None = None  # when the uncommitted batch began
         if readonly and not self.path.is_file():
             raise JournalError("no journal here", file=self.path,
                                hint="run measure or tune into this out folder first")
@@ -171,23 +178,42 @@ class Journal:
                                hint="move the journal away to start afresh") from None
 
     def put(self, key: str, label: str, request: AnalysisRequest, output: AnalysisOutput) -> None:
-        """Record a finished analysis (one transaction; durable when this returns)."""
+        """Record a finished analysis. It is committed with its batch: by the first
+        ``put`` more than ``commit_interval_s`` after the batch began, by :meth:`commit`,
+        or by :meth:`close`."""
         blob = _pack(output)
         try:
-            self._db.execute("BEGIN IMMEDIATE")
+            if self._open_since is None:
+                self._db.execute("BEGIN IMMEDIATE")
+                self._open_since = time.monotonic()
             self._db.execute(
                 "INSERT OR REPLACE INTO analyses VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                 (key, label, time.time(), output.seconds, request.ac_runs,
                  int(output.transient_op), json.dumps(list(output.warnings)), blob),
             )
-            self._db.execute("COMMIT")
         except sqlite3.Error as exc:
-            try:
-                self._db.execute("ROLLBACK")
-            except sqlite3.Error:
-                pass
-            raise JournalError(f"cannot record an analysis: {exc}", file=self.path,
-                               hint="is the disk full? finished analyses so far are kept") from None
+            self._failed(exc)
+        if time.monotonic() - self._open_since >= self.commit_interval_s:
+            self.commit()
+
+    def commit(self) -> None:
+        """Make every recorded analysis durable (against a crash of the application)."""
+        if self._open_since is None:
+            return
+        try:
+            self._db.execute("COMMIT")
+            self._open_since = None
+        except sqlite3.Error as exc:
+            self._failed(exc)
+
+    def _failed(self, exc: sqlite3.Error):
+        try:
+            self._db.execute("ROLLBACK")
+        except sqlite3.Error:
+            pass
+        self._open_since = None
+        raise JournalError(f"cannot record an analysis: {exc}", file=self.path,
+                           hint="is the disk full? analyses committed so far are kept") from None
 
     def count(self) -> int:
         return self._db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
@@ -199,7 +225,11 @@ class Journal:
             pass
 
     def close(self) -> None:
-        self._close_quietly()
+        """Commit what is recorded, then close."""
+        try:
+            self.commit()
+        finally:
+            self._close_quietly()
 
     def __enter__(self) -> Journal:
         return self

@@ -18,7 +18,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
 
 from .loopgain import FrequencyResponse
 
@@ -83,24 +82,39 @@ def _cubic_at(x: np.ndarray, y: np.ndarray, i: int, xq: float) -> float:
     return total
 
 
+def _cubic_root(x: np.ndarray, y: np.ndarray, i: int, level: float) -> float | None:
+    """The root of (local cubic of :func:`_cubic_at`) − ``level`` in [x[i], x[i+1]], or
+    None if the cubic has no real root there. Solved in closed form on the cubic's
+    coefficients (in the interval's own variable t = (x − x[i]) / (x[i+1] − x[i])).
+    With several roots in the interval, the one nearest the straight-line estimate."""
+    n = x.size
+    lo = min(max(i - 1, 0), max(n - 4, 0))
+    a, h = x[i], x[i + 1] - x[i]
+    t = (x[lo : lo + 4] - a) / h
+    coefficients = np.linalg.solve(np.vander(t), y[lo : lo + 4] - level)
+    roots = np.roots(coefficients)
+    real = roots.real[(np.abs(roots.imag) <= 1e-9) & (roots.real >= -1e-12)
+                      & (roots.real <= 1.0 + 1e-12)]
+    if real.size == 0:
+        return None
+    d0, d1 = y[i] - level, y[i + 1] - level
+    line = d0 / (d0 - d1)
+    return float(a + h * np.clip(real[np.argmin(np.abs(real - line))], 0.0, 1.0))
+
+
 def _roots(x: np.ndarray, y: np.ndarray, level: float) -> list[tuple[int, float]]:
     """Where y(x) crosses ``level``: (interval index, x) with x solved on the local cubic."""
     d = y - level
     found = []
     for i in np.nonzero((d[:-1] == 0) | (np.sign(d[:-1]) * np.sign(d[1:]) < 0))[0]:
+        i = int(i)
         if d[i] == 0:
-            found.append((int(i), float(x[i])))
+            found.append((i, float(x[i])))
             continue
-
-        def g(xq: float, i: int = int(i)) -> float:
-            return _cubic_at(x, y, i, xq) - level
-
-        a, b = float(x[i]), float(x[i + 1])
-        if np.sign(g(a)) * np.sign(g(b)) < 0:
-            root = brentq(g, a, b, xtol=1e-14, rtol=1e-13)
-        else:  # the cubic strays outside the bracket: fall back to a straight line
-            root = a + (b - a) * d[i] / (d[i] - d[i + 1])
-        found.append((int(i), float(root)))
+        root = _cubic_root(x, y, i, level) if x.size >= 4 else None
+        if root is None:  # the cubic strays outside the bracket: a straight line
+            root = x[i] + (x[i + 1] - x[i]) * d[i] / (d[i] - d[i + 1])
+        found.append((i, float(root)))
     return found
 
 

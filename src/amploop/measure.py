@@ -17,14 +17,15 @@ from .errors import AmploopError, MeasurementError, SimulatorError
 from .job import Corner, Job, safe_filename
 from .loopgain import FrequencyResponse
 from .margins import Margins, loop_margins
-from .outputs import OutFolder
+from .outputs import OutFolder, loop_gain_csv, write_into
 from .journal import Journal, file_digests
-from .pool import WorkerPool
+from .pool import WorkerPool, default_workers
 from .runner import Runner
 from .testbench import Testbench, build_testbench
 from .units import engineering
 
-__all__ = ["CornerResult", "MeasureResult", "measure", "assess_loop_gain", "corner_files"]
+__all__ = ["CornerResult", "MeasureResult", "measure", "assess_loop_gain", "corner_files",
+           "CornerWork"]
 
 SCHEMA = 1
 #: The journal's file name inside an out folder.
@@ -163,7 +164,8 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
     if not np.all(np.isfinite(response.values)):
         return CornerResult(corner=bench.corner, status="error",
                             error="the simulator returned non-finite loop-gain values")
-    margins, problem = assess_loop_gain(response)
+    figures = getattr(output, "after", None)
+    margins, problem = figures if figures is not None else assess_loop_gain(response)
     return CornerResult(
         corner=bench.corner,
         status="ok" if problem is None else "error",
@@ -172,6 +174,34 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
         loop_gain=response,
         warnings=output.warnings,
     )
+
+
+@dataclass(frozen=True)
+class CornerWork:
+    """What a local worker does with a corner's finished analysis before sending it back:
+    the margins (:func:`assess_loop_gain`) and the corner's two files in the out folder,
+    the loop-gain CSV and the deck to rerun by hand.
+
+    Done in the worker that ran the analysis, so that with as many workers as cores the
+    coordinator only records results and never becomes the bottleneck. Paths are
+    relative to ``folder`` (absolute). Returns ``(margins, problem)``; a write that fails
+    raises :class:`~amploop.errors.OutputError` there, which comes back as the output's
+    ``after_error``, and the coordinator then does the work itself and reports it.
+    """
+
+    bench: Testbench
+    folder: Path
+    csv: str
+    deck: str
+    data_file: str
+
+    def __call__(self, output) -> tuple[Margins, str | None]:
+        response = self.bench.loop_gain(output)
+        figures = assess_loop_gain(response)
+        write_into(self.folder, self.deck, self.bench.hand_deck(data_file=self.data_file),
+                   atomic=False)
+        write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
+        return figures
 
 
 def measure(
@@ -232,24 +262,30 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
     from .stepcheck import run_step_checks, step_stop_s
 
     stems = corner_files(job.corners)
-    if folder is not None:
-        for name, bench in benches.items():
-            folder.later(f"decks/{stems[name]}.cir",
-                         lambda b=bench, n=name: b.hand_deck(data_file=f"{stems[n]}-loop_gain.txt"))
     results: dict[str, CornerResult] = {}
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
     runner = Runner(pool, journal, file_digests(amplifier.files))
-    requests = [(name, b.request(job.analysis.time_limit_s)) for name, b in benches.items()]
+    works = {name: CornerWork(bench=b, folder=folder.path, csv=f"loop_gain/{stems[name]}.csv",
+                              deck=f"decks/{stems[name]}.cir",
+                              data_file=f"{stems[name]}-loop_gain.txt")
+             for name, b in benches.items()} if folder is not None else {}
+    # with a core to spare the coordinator does this while the workers simulate; with
+    # every core busy simulating, each worker does its own corners' share
+    in_workers = (folder is not None and getattr(pool, "shares_files", False)
+                  and pool.size >= default_workers())
+    requests = [(name, b.request(job.analysis.time_limit_s,
+                                 after=works[name] if in_workers else None))
+                for name, b in benches.items()]
     checks = {}
     try:
         for name, output, _reused in runner.run(requests):
             bench = benches[name]
             result = result_from_output(bench, output, amplifier)
             results[name] = result
-            if folder is not None and result.loop_gain is not None:
-                folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", result.loop_gain,
-                                           background=True)
+            if folder is not None and (getattr(output, "after", None) is None
+                                       or output.after_error is not None):
+                _write_corner_files(works[name], result)
             if progress is not None:
                 progress(len(results), len(benches), result)
         if time_domain:
@@ -277,9 +313,17 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             data = result.as_json()
             if len(ordered) < len(job.corners):
                 data["status"] = "interrupted"
-            folder.close()
             folder.write_json("results.json", data)
     return result
+
+
+def _write_corner_files(work: CornerWork, result: CornerResult) -> None:
+    """The corner's deck, and its CSV when there is a loop gain, written here (analyses
+    taken from the journal, remote workers, or a worker whose write failed)."""
+    write_into(work.folder, work.deck, work.bench.hand_deck(data_file=work.data_file),
+               atomic=False)
+    if result.loop_gain is not None:
+        write_into(work.folder, work.csv, loop_gain_csv(result.loop_gain), atomic=False)
 
 
 def require_measured(result: CornerResult) -> Margins:

@@ -16,7 +16,7 @@ import signal
 import time
 from collections import deque
 from collections.abc import Hashable, Iterable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from multiprocessing.connection import wait
 
 from .errors import SimulatorError
@@ -60,7 +60,7 @@ def _worker_main(conn) -> None:
             return
         task_id, request = message
         try:
-            reply = (task_id, "ok", session.run(request))
+            reply = (task_id, "ok", _with_after(request, session.run(request)))
         except SimulatorError as exc:
             reply = (task_id, "error", exc.problem)
         except Exception as exc:  # noqa: BLE001 - an unexpected failure of one analysis
@@ -69,6 +69,16 @@ def _worker_main(conn) -> None:
         if session.broken:
             conn.close()
             os._exit(0)  # ngspice cannot recover in this process; the pool starts another
+
+
+def _with_after(request: AnalysisRequest, output: AnalysisOutput) -> AnalysisOutput:
+    """Run the request's ``after`` work on a finished analysis, here in the worker."""
+    if request.after is None:
+        return output
+    try:
+        return replace(output, after=request.after(output))
+    except Exception as exc:  # noqa: BLE001 - the analysis stands; the caller redoes it
+        return replace(output, after_error=f"{type(exc).__name__}: {exc}")
 
 
 @dataclass
@@ -106,6 +116,9 @@ class WorkerPool:
 
     def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2) -> None:
         self.size = workers or default_workers()
+        #: workers see the coordinator's files, and have every core to themselves: they
+        #: then do a request's ``after`` work (see :class:`AnalysisRequest`)
+        self.shares_files = True
         self.retries = retries
         self.depth = depth
         self._context = mp.get_context("forkserver")

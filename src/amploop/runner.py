@@ -56,8 +56,8 @@ class Runner:
         """Yield ``(tag, output or error, reused)`` for every item, as each is ready.
 
         Recorded analyses come first (without simulating); the others run on the pool and
-        are recorded as soon as each finishes. Failed analyses are not recorded, so a
-        rerun tries them again.
+        are recorded as soon as each finishes (committed in batches, and all of them once
+        the last one is in). Failed analyses are not recorded, so a rerun tries them again.
         """
         by_key: dict[str, list[Hashable]] = {}
         requests: dict[str, AnalysisRequest] = {}
@@ -90,3 +90,5 @@ class Runner:
                     self.journal.put(key, request.label, request, output)
             for tag in by_key[key]:
                 yield tag, output, False
+        if self.journal is not None:
+            self.journal.commit()

@@ -97,6 +97,11 @@ class AnalysisRequest:
     files
         Contents of files the deck includes, by the path the deck uses, for workers that
         do not share the file system (empty for local workers).
+    after
+        Optional work for the worker once the analysis has succeeded: a picklable
+        callable taking the :class:`AnalysisOutput` and returning a small picklable
+        value, which comes back as ``AnalysisOutput.after``. It is not part of the
+        analysis: it never changes a journal key and is never recorded.
     """
 
     label: str
@@ -104,6 +109,7 @@ class AnalysisRequest:
     steps: tuple[Step, ...]
     time_limit_s: float = 120.0
     files: tuple[tuple[str, str], ...] = ()
+    after: object = field(default=None, compare=False, repr=False)
 
     @property
     def ac_runs(self) -> int:
@@ -122,6 +128,11 @@ class AnalysisOutput:
         Simulator messages worth showing the user (transient-op fallback, gmin stepping).
     transient_op
         True when the operating point needed ngspice's transient fallback.
+    seconds
+        Wall time of the analysis inside ngspice.
+    after
+        What the request's ``after`` returned in the worker (None: no such work, or it
+        failed, which ``after_error`` then says; the caller does the work itself).
     """
 
     reads: tuple[dict[str, np.ndarray], ...]
@@ -129,6 +140,8 @@ class AnalysisOutput:
     transient_op: bool = False
     seconds: float = 0.0
     messages: tuple[str, ...] = field(default=(), repr=False)
+    after: object = field(default=None, repr=False)
+    after_error: str | None = field(default=None, repr=False)
 
 
 def summarise_failure(lines: list[str]) -> str:

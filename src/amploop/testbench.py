@@ -72,10 +72,10 @@ class Testbench:
     notes: tuple[str, ...] = ()
     label: str = ""
 
-    def request(self, time_limit_s: float) -> AnalysisRequest:
-        """The analysis request for a worker."""
+    def request(self, time_limit_s: float, after=None) -> AnalysisRequest:
+        """The analysis request for a worker (``after``: see :class:`AnalysisRequest`)."""
         return AnalysisRequest(label=self.label or self.corner.name, deck=self.deck,
-                               steps=self.steps, time_limit_s=time_limit_s)
+                               steps=self.steps, time_limit_s=time_limit_s, after=after)
 
     def loop_gain(self, output: AnalysisOutput) -> FrequencyResponse:
         """The loop gain from a finished analysis of this testbench."""
