@@ -431,6 +431,28 @@ def test_tokenize_loses_no_characters(text):
     assert "".join(tokens).translate(drop) == text.translate(drop)
 
 
+_plain_char = st.sampled_from(list("abcXY01.=-+*/;$ \t,!"))
+
+
+@fuzz(300)
+@given(st.text(alphabet=_plain_char, max_size=120),
+       st.text(alphabet=_plain_char, max_size=60), st.text(alphabet=_plain_char, max_size=60),
+       st.booleans())
+def test_the_shortcuts_of_the_reader_give_what_its_general_routines_give(head, inner, tail,
+                                                                         swap):
+    """The reader's quick paths (a line without comment characters, a statement without
+    groups, a ``.model`` card with one plain pair of parentheses) agree with the
+    character-by-character routines they skip."""
+    from amploop.netlist import (_grouped_tokens, _strip_inline_comment, _SEPARATORS,
+                                 _unwrap_model_parentheses, _unwrap_outer_group)
+
+    assert [t for t in _SEPARATORS.split(head) if t] == _grouped_tokens(head)
+    plain = head.translate(str.maketrans("", "", ";$/"))
+    assert _strip_inline_comment(plain) == plain
+    card = f".model {head}{')' if swap else '('}{inner}{'(' if swap else ')'}{tail}"
+    assert _unwrap_model_parentheses(card) == _unwrap_outer_group(card)
+
+
 # --- the netlist reader on random and mutated input ----------------------------------------
 
 

@@ -124,8 +124,8 @@ class Journal:
                                            isolation_level=None, timeout=5.0)
             else:
                 self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
+                self._db.execute("PRAGMA synchronous=NORMAL")  # first: fewer syncs below
                 self._db.execute("PRAGMA journal_mode=WAL")
-                self._db.execute("PRAGMA synchronous=NORMAL")
             if fresh:
                 self._create()
             self._check()

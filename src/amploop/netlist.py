@@ -78,6 +78,8 @@ def _strip_inline_comment(line: str) -> str:
     ``;`` and ``//`` start a comment anywhere, ``$`` when it starts the line or follows a
     blank or a comma (``1k$x`` is not a comment). Quoted text and ``{...}`` are skipped.
     """
+    if _COMMENT_START.search(line) is None:  # most lines: nothing that could start one
+        return line
     depth = 0
     quote = ""
     for i, ch in enumerate(line):
@@ -99,6 +101,9 @@ def _strip_inline_comment(line: str) -> str:
             if ch == "/" and line[i : i + 2] == "//":
                 return line[:i]
     return line
+
+
+_COMMENT_START = re.compile(r"[;$/]")
 
 
 def split_logical_lines(text: str) -> list[LogicalLine]:
@@ -163,6 +168,9 @@ def _attach_interrupted_continuations(lines: list[LogicalLine]) -> list[LogicalL
 
 
 _TOKEN_OPEN = {"{": "}", "(": ")", "'": "'", '"': '"'}
+_GROUP_OPEN = re.compile(r"""[{('"]""")
+_SEPARATORS = re.compile(r"[ \t,]+")
+_QUOTE_OR_BRACE = re.compile(r"""[{}'"]""")
 
 
 def tokenize(text: str) -> list[str]:
@@ -173,6 +181,15 @@ def tokenize(text: str) -> list[str]:
     """
     if text.lstrip()[:6].lower() == ".model":
         text = _unwrap_model_parentheses(text)
+    if _GROUP_OPEN.search(text) is None:  # no groups: blanks and commas separate tokens
+        tokens = [token for token in _SEPARATORS.split(text) if token]
+    else:
+        tokens = _grouped_tokens(text)
+    return _join_assignments(tokens)
+
+
+def _grouped_tokens(text: str) -> list[str]:
+    """Tokens separated by blanks and commas outside ``{...}``, ``(...)`` and quotes."""
     tokens: list[str] = []
     current = ""
     stack: list[str] = []
@@ -194,7 +211,11 @@ def tokenize(text: str) -> list[str]:
         current += ch
     if current:
         tokens.append(current)
-    # join "a = b", "a= b" and "a =b"
+    return tokens
+
+
+def _join_assignments(tokens: list[str]) -> list[str]:
+    """Join ``a = b``, ``a= b`` and ``a =b`` into ``a=b``."""
     joined: list[str] = []
     i = 0
     while i < len(tokens):
@@ -218,6 +239,17 @@ def tokenize(text: str) -> list[str]:
 
 def _unwrap_model_parentheses(text: str) -> str:
     """``.model n nmos (level=1 ...)`` -> ``.model n nmos  level=1 ... ``: the outer group only."""
+    if "(" not in text:  # cards written without the optional parentheses
+        return text
+    if text.count("(") == 1 and text.count(")") == 1 and _QUOTE_OR_BRACE.search(text) is None:
+        opened, closed = text.index("("), text.index(")")
+        if opened < closed:  # the common card: one plain pair around the parameters
+            return text[:opened] + " " + text[opened + 1 : closed] + " " + text[closed + 1 :]
+    return _unwrap_outer_group(text)
+
+
+def _unwrap_outer_group(text: str) -> str:
+    """The general case of :func:`_unwrap_model_parentheses`: quotes, braces, nesting."""
     quote = ""
     braces = 0
     parens = 0
