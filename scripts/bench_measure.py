@@ -25,6 +25,7 @@ from __future__ import annotations
 import argparse
 import os
 import re
+import shutil
 import statistics
 import subprocess
 import sys
@@ -131,7 +132,9 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
 
 
 def parallel(reps: int, job_file: Path, grid: str) -> None:
+    from amploop.amplifier import prepare_amplifier
     from amploop.job import load_job
+    from amploop.testbench import build_testbench
     from amploop.measure import measure
     from amploop.pool import WorkerPool
 
@@ -141,6 +144,9 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
         warm: dict[int, list[float]] = {1: [], 2: []}
         inside: dict[int, list[float]] = {1: [], 2: []}
         ceiling = []
+        alone: dict[int, list[float]] = {1: [], 2: []}
+        amplifier = prepare_amplifier(job)
+        requests = [(c.name, build_testbench(amplifier, c, {}).request(60.0)) for c in job.corners]
         with WorkerPool(1) as one, WorkerPool(2) as two, _Spinners() as spinners:
             pools = {1: one, 2: two}
             for workers, pool in pools.items():
@@ -153,6 +159,9 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
                                      time_domain=False)
                     warm[workers].append(time.perf_counter() - start)
                     inside[workers].append(_simulator_seconds(pool) - runner_seconds)
+                    start = time.perf_counter()
+                    list(pool.run(requests))
+                    alone[workers].append(time.perf_counter() - start)
                 ceiling.append(spinners.speed_up())
         cold: dict[int, list[float]] = {1: [], 2: []}
         for rep in range(reps):
@@ -173,8 +182,47 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
           "faster in 2 processes than in 1 (the ceiling; median of the same reps)")
     print(f"      time inside ngspice per measurement: {sim * 1e3:.0f} ms with 1 worker, "
           f"{statistics.median(inside[2]) * 1e3:.0f} ms summed over 2")
+    a1, a2 = statistics.median(alone[1]), statistics.median(alone[2])
+    print(f"      the worker pool alone, the same {len(requests)} analyses without the "
+          f"per-corner work: 1 worker {a1 * 1e3:.0f} ms, 2 workers {a2 * 1e3:.0f} ms, "
+          f"speed-up {a1 / a2:.2f}x")
     print(f"  (b) whole command:   1 worker {c1 * 1e3:.0f} ms, 2 workers {c2 * 1e3:.0f} ms,"
           f" speed-up {c1 / c2:.2f}x")
+    if shutil.which("taskset") and len(os.sched_getaffinity(0)) >= 2:
+        one_core, two_cores = [], []
+        with tempfile.TemporaryDirectory() as tmp:
+            job_path = job_with_corners(Path(tmp), grid, job_file)
+            for rep in range(3):  # alternated; each child reports its own median
+                one_core.append(_warm_child(["taskset", "-c", "0"], job_path, 1, reps, tmp))
+                two_cores.append(_warm_child([], job_path, 2, reps, tmp))
+        o, t = statistics.median(one_core), statistics.median(two_cores)
+        print(f"  (c) one core vs two: the measurement confined to one core (taskset, 1 worker) "
+              f"{o * 1e3:.0f} ms, on both cores (2 workers) {t * 1e3:.0f} ms, speed-up {o / t:.2f}x")
+
+
+def _warm_child(prefix: list[str], job_path: Path, workers: int, reps: int, tmp: str) -> float:
+    """Median warm measurement time in a child process (which may be pinned to a core)."""
+    out = subprocess.run([*prefix, sys.executable, __file__, "--child", str(job_path),
+                          str(workers), str(reps), tmp], check=True, capture_output=True,
+                         text=True).stdout
+    return float(out.split()[-1])
+
+
+def child(job_path: str, workers: int, reps: int, tmp: str) -> None:
+    """``--child``: warm measurements of a job in this process; prints the median, s."""
+    from amploop.job import load_job
+    from amploop.measure import measure
+    from amploop.pool import WorkerPool
+
+    job = load_job(job_path)
+    times = []
+    with WorkerPool(workers) as pool, tempfile.TemporaryDirectory(dir=tmp) as folder:
+        measure(job, out=Path(folder) / "warm", pool=pool, time_domain=False)
+        for rep in range(reps):
+            start = time.perf_counter()
+            measure(job, out=Path(folder) / str(rep), pool=pool, time_domain=False)
+            times.append(time.perf_counter() - start)
+    print(statistics.median(times))
 
 
 _SIM_SECONDS: dict[int, float] = {}
@@ -297,7 +345,12 @@ GRID_20 = '[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 27, 125, 85, 0]\npara
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--reps", type=int, default=7)
+    parser.add_argument("--child", nargs=4, help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.child:
+        job_path, workers, reps, tmp = args.child
+        child(job_path, int(workers), int(reps), tmp)
+        return
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
     _count_simulator_seconds()
     overhead(args.reps, DEMO, (GRID_20, GRID_200))
