@@ -186,3 +186,17 @@ def test_report_of_a_folder_without_results_is_one_line(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert len(err.strip().splitlines()) == 1 and "results.json" in err
+
+
+def test_report_reads_a_journal_in_a_folder_whose_name_looks_like_a_uri(macro_job, tmp_path,
+                                                                        capsys):
+    """A folder named with ``?``, ``#`` and ``%`` (characters that mean something in the
+    SQLite URI the report opens the journal with) still gives the same report, and a
+    closed journal is read without leaving SQLite's side files behind."""
+    out = tmp_path / "run ?a=1 #2 %41"
+    assert main(["measure", str(macro_job()), "--out", str(out), "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["report", str(out)]) == 0
+    assert "report:" in capsys.readouterr().out
+    assert (out / "report.pdf").stat().st_size > 0
+    assert not list(out.glob("journal.sqlite-*"))

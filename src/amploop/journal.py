@@ -21,6 +21,7 @@ import json
 import sqlite3
 import time
 from pathlib import Path
+from urllib.parse import quote
 
 import numpy as np
 
@@ -120,7 +121,11 @@ class Journal:
         fresh = not readonly and (not self.path.exists() or self.path.stat().st_size == 0)
         try:
             if readonly:
-                self._db = sqlite3.connect(f"file:{self.path}?mode=ro", uri=True,
+                # a journal its writer closed has no -wal file: read it as it stands,
+                # without the -shm/-wal files a reader would otherwise leave behind
+                closed = not self.path.with_name(self.path.name + "-wal").exists()
+                mode = "ro&immutable=1" if closed else "ro"
+                self._db = sqlite3.connect(f"file:{quote(str(self.path))}?mode={mode}", uri=True,
                                            isolation_level=None, timeout=5.0)
             else:
                 self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
