@@ -275,3 +275,14 @@ def test_a_missing_model_is_traced_to_the_users_line(job, tmp_path, capsys):
     code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
     line = one_error_line(err)
     assert "macro.cir:7:" in line and "rmod_typo" in line
+
+
+def test_parse_error_on_an_element_of_the_subckt_names_its_line(job, tmp_path, capsys):
+    """ngspice reports a subckt's element by its flattened name (``m.x1.m9 …``): the
+    message still points at the user's line of ``M9``."""
+    edit(job.parent / "macro.cir", ".ends",
+         ".model nch nmos level=1\nM9 (out n1 0 0 nch w=1u l=1u\n.ends")
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir:12:" in line and "m.x1.m9" in line and "modelname" in line

@@ -129,7 +129,9 @@ class Amplifier:
         ngspice numbers lines of its expanded deck (inside a subckt often "line no. 0"), so
         the name it complains about is looked up in the user's files instead.
         """
-        for pattern in (r"\[([^\]]+)\]", r"'([\w.#$-]+\(?)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$"):
+        for pattern in (r"\[([^\]]+)\]", r"'([\w.#$-]+\(?)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$",
+                        # "Error on line: m.x1.m8 ...": an element of the subckt, flattened
+                        r"[Ee]rror on line:\s*(?:[a-z]\.(?:\w+\.)+)?([\w#$-]+)\s"):
             for match in re.finditer(pattern, problem):
                 statement = self.find_word(match.group(1).strip("("))
                 if statement is not None:
