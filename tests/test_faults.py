@@ -180,6 +180,11 @@ def test_out_folder_that_cannot_be_created_is_one_line(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert len(err.strip().splitlines()) == 1 and "cannot create the out folder" in err
+    code = main(["measure", str(DEMO / "job.toml"), "--out", str(blocker), "--no-report"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert len(err.strip().splitlines()) == 1 and "is a file, not a folder" in err
+    assert blocker.read_text() == "not a folder"
 
 
 def test_second_run_on_the_same_out_folder_is_refused(tmp_path, capsys):

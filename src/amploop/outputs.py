@@ -55,6 +55,9 @@ class OutFolder:
 
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path).resolve()
+        if self.path.exists() and not self.path.is_dir():
+            raise OutputError("the out folder is a file, not a folder", file=self.path,
+                              hint="give --out a new or existing folder")
         try:
             self.path.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
