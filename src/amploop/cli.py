@@ -310,6 +310,10 @@ def main(argv: list[str] | None = None) -> int:
         parser.error("--workers and --cluster exclude each other (a cluster's workers are "
                      "set where they are started)")
     try:
+        if args.command in ("measure", "tune") and args.cluster is None:
+            from .pool import start_fork_server
+
+            start_fork_server()  # its imports overlap with reading the job
         if args.command == "measure":
             return int(_run_measure(args))
         if args.command == "tune":
