@@ -18,7 +18,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_measure import _tree_peak_kb, job_with_corners  # noqa: E402
+from bench_measure import _tree_peak_kb, job_with_corners
 
 GRID_500 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
             'params = { vdd = [1.71, 1.75, 1.8, 1.85, 1.89], '

@@ -134,9 +134,9 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
 def parallel(reps: int, job_file: Path, grid: str) -> None:
     from amploop.amplifier import prepare_amplifier
     from amploop.job import load_job
-    from amploop.testbench import build_testbench
     from amploop.measure import measure
     from amploop.pool import WorkerPool
+    from amploop.testbench import build_testbench
 
     with tempfile.TemporaryDirectory() as tmp:
         job_path = job_with_corners(Path(tmp), grid, job_file)

@@ -16,7 +16,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_measure import DEMO, job_with_corners  # noqa: E402
+from bench_measure import DEMO, job_with_corners
 
 GRID_100 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
             'params = { vdd = [1.71, 1.8, 1.89, 1.98, 1.75], cl = ["1p", "3p"] }\n')

@@ -9,7 +9,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
 
-from nodal import Macromodel  # noqa: E402
+from nodal import Macromodel
 
 REPO = Path(__file__).resolve().parents[1]
 SHARED = REPO.parent / "shared"

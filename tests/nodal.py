@@ -39,7 +39,7 @@ class Macromodel:
     z_fb: float = 10e3
     r_dc: float = 1e9        # capacitive only: resistor across the feedback capacitor
 
-    def with_(self, **changes) -> "Macromodel":
+    def with_(self, **changes) -> Macromodel:
         return replace(self, **changes)
 
     def netlist(self, name: str = "macro") -> str:

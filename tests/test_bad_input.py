@@ -12,9 +12,9 @@ import sys
 from pathlib import Path
 
 import pytest
+from nodal import Macromodel
 
 from amploop.cli import main
-from nodal import Macromodel
 
 
 def run(argv: list[str], capsys) -> tuple[int, str, str]:
@@ -224,7 +224,7 @@ def test_one_failing_corner_never_loses_the_others(job, tmp_path, capsys):
     edit(job, "params = { cl = 1e-12 }", "params = { cl = 1e-12, k = 0 }")
     edit(job, "params = { cl = 5e-12 }", "params = { cl = 5e-12, k = 1 }")
     edit(job.parent / "macro.cir", ".ends", "Bx 0 nx I={k}*exp(40*v(nx))\nRx nx 0 1k\n.ends")
-    code, out, err = run(measure_args(job, tmp_path), capsys)
+    code, _out, err = run(measure_args(job, tmp_path), capsys)
     results = json.loads((tmp_path / "out" / "results.json").read_text())
     statuses = {c["name"]: c["status"] for c in results["corners"]}
     assert statuses == {"light": "ok", "heavy": "error"}, results
@@ -239,7 +239,7 @@ def test_no_traceback_from_the_installed_command(job, tmp_path):
     """The console script itself, as a user runs it: one line on stderr, exit 2."""
     edit(job, 'kind = "resistive"', 'kind = "resistiv"')
     proc = subprocess.run([sys.executable, "-m", "amploop.cli", *measure_args(job, tmp_path)],
-                          capture_output=True, text=True, timeout=120)
+                          capture_output=True, text=True, timeout=120, check=False)
     assert proc.returncode == 2
     line = one_error_line(proc.stderr)
     assert "[feedback].kind" in line and "did you mean 'resistive'" in line
@@ -272,7 +272,7 @@ def test_a_missing_model_is_traced_to_the_users_line(job, tmp_path, capsys):
     """ngspice says "can't find model 'x'"; amploop finds the line in the user's file."""
     edit(job.parent / "macro.cir", "R2 out 0", "R2 out 0 rmod_typo r=")
     edit(job.parent / "macro.cir", "rmod_typo r=", "1k rmod_typo")
-    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    _code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
     line = one_error_line(err)
     assert "macro.cir:7:" in line and "rmod_typo" in line
 

@@ -22,17 +22,18 @@ import pytest
 
 distributed = pytest.importorskip("distributed")
 
-from amploop import cluster as cluster_module  # noqa: E402
-from amploop.amplifier import prepare_amplifier  # noqa: E402
-from amploop.cli import main  # noqa: E402
-from amploop.cluster import ClusterPool, FileBundler, include_targets, run_analysis  # noqa: E402
-from amploop.errors import SimulatorError  # noqa: E402
-from amploop.job import load_job  # noqa: E402
-from amploop.pool import WorkerPool  # noqa: E402
-from amploop.simulator import AnalysisOutput, AnalysisRequest, Step  # noqa: E402
-from amploop.testbench import build_testbench  # noqa: E402
-from amploop.tune import tune  # noqa: E402
-from conftest import DEMO  # noqa: E402
+from conftest import DEMO
+
+from amploop import cluster as cluster_module
+from amploop.amplifier import prepare_amplifier
+from amploop.cli import main
+from amploop.cluster import ClusterPool, FileBundler, include_targets, run_analysis
+from amploop.errors import SimulatorError
+from amploop.job import load_job
+from amploop.pool import WorkerPool
+from amploop.simulator import AnalysisOutput, AnalysisRequest, Step
+from amploop.testbench import build_testbench
+from amploop.tune import tune
 
 # an RC driven by a sine: one `tran` that takes about two seconds and keeps few points
 SLOW = AnalysisRequest("slow", "* slow\nV1 a 0 sin(0 1 1meg)\nR1 a b 1k\nC1 b 0 1n\n.end\n",
@@ -159,9 +160,9 @@ def test_analysis_whose_worker_keeps_dying_reports_an_error_and_the_rest_goes_on
 def test_unreachable_scheduler_and_empty_cluster_are_one_line_errors(tmp_path):
     with pytest.raises(SimulatorError, match="cannot reach the Dask scheduler"):
         ClusterPool("tcp://127.0.0.1:9", timeout_s=1)
-    with local_cluster(tmp_path, workers=0) as empty:
-        with pytest.raises(SimulatorError, match="has no workers"):
-            ClusterPool(empty.scheduler_address, timeout_s=1)
+    with local_cluster(tmp_path, workers=0) as empty, \
+            pytest.raises(SimulatorError, match="has no workers"):
+        ClusterPool(empty.scheduler_address, timeout_s=1)
 
 
 def test_without_distributed_the_option_is_a_one_line_error(monkeypatch):

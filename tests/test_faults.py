@@ -20,6 +20,7 @@ import time
 from pathlib import Path
 
 import pytest
+from conftest import DEMO
 
 from amploop.cli import main
 from amploop.job import load_job
@@ -27,7 +28,6 @@ from amploop.measure import measure
 from amploop.outputs import OutFolder
 from amploop.pool import WorkerPool
 from amploop.tune import tune
-from conftest import DEMO
 
 
 def demo_copy(folder: Path, *, job_edit=None, netlist_edit=None) -> Path:
@@ -159,14 +159,15 @@ def test_disk_full_is_a_clear_error_and_the_journal_resumes_afterwards(tmp_path)
     command = [sys.executable, "-m", "amploop.cli", "tune", str(job), "--out", str(out),
                "--no-report", "--workers", "1"]
     full = subprocess.run(command, capture_output=True, text=True, timeout=300,
-                          preexec_fn=_limited(60_000))
+                          preexec_fn=_limited(60_000), check=False)
     assert full.returncode == 2, full.stderr
     lines = [line for line in full.stderr.splitlines() if line.strip()]
     assert len(lines) == 1 and "Traceback" not in full.stderr
     assert "journal.sqlite" in lines[0] or "cannot write" in lines[0]
     with sqlite3.connect(out / "journal.sqlite") as db:
         recorded = db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
-    again = subprocess.run(command + ["--resume"], capture_output=True, text=True, timeout=300)
+    again = subprocess.run(command + ["--resume"], capture_output=True, text=True, timeout=300,
+                           check=False)
     assert again.returncode == 0, again.stderr
     results = json.loads((out / "results.json").read_text())
     assert results["status"] == "converged"

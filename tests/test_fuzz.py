@@ -443,8 +443,13 @@ def test_the_shortcuts_of_the_reader_give_what_its_general_routines_give(head, i
     """The reader's quick paths (a line without comment characters, a statement without
     groups, a ``.model`` card with one plain pair of parentheses) agree with the
     character-by-character routines they skip."""
-    from amploop.netlist import (_grouped_tokens, _strip_inline_comment, _SEPARATORS,
-                                 _unwrap_model_parentheses, _unwrap_outer_group)
+    from amploop.netlist import (
+        _SEPARATORS,
+        _grouped_tokens,
+        _strip_inline_comment,
+        _unwrap_model_parentheses,
+        _unwrap_outer_group,
+    )
 
     assert [t for t in _SEPARATORS.split(head) if t] == _grouped_tokens(head)
     plain = head.translate(str.maketrans("", "", ";$/"))

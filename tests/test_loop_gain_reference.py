@@ -11,11 +11,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from nodal import Macromodel, exact_loop_gain
 from scipy.optimize import brentq
 
 from amploop.job import load_job
 from amploop.measure import measure
-from nodal import Macromodel, exact_loop_gain
 
 RESISTIVE = Macromodel(kind="resistive", z_in=10e3, z_fb=20e3, cc=1.5e-12, rc=800.0, cl=2e-12)
 CAPACITIVE = Macromodel(kind="capacitive", z_in=2e-12, z_fb=1e-12, r_dc=1e9, cc=1e-12,

@@ -13,18 +13,16 @@ import math
 import shutil
 import sqlite3
 import subprocess
-from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import DEMO, write_macro_job
+from nodal import Macromodel
 
 from amploop.cli import main
 from amploop.job import load_job
 from amploop.measure import measure
-from amploop.pool import WorkerPool
 from amploop.timedomain import damping_from_phase_margin, overshoot_from_damping, step_metrics
-from conftest import DEMO, write_macro_job
-from nodal import Macromodel
 
 needs_poppler = pytest.mark.skipif(shutil.which("pdftotext") is None,
                                    reason="poppler-utils (pdftotext, pdftoppm) not installed; "

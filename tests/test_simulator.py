@@ -32,7 +32,7 @@ def test_every_circuit_and_plot_is_freed_after_an_analysis(session):
     for _ in range(50):
         session.run(AnalysisRequest("rc", RC, (Step("ac dec 10 1 10meg", ("v(b)",)),)))
     assert session._shared.plot_names == ["const"]
-    rc, out, err = session._command("listing")
+    _rc, out, err = session._command("listing")
     assert any("no circuit" in line.lower() for line in out + err)
 
 
@@ -88,10 +88,11 @@ def test_after_work_runs_in_the_worker_and_a_failure_there_keeps_the_analysis():
 def test_corner_files_are_the_same_whether_the_workers_or_the_coordinator_write_them(tmp_path):
     """With every core simulating the workers write each corner's CSV and deck; with a
     core to spare (or remote workers) the coordinator does. Same bytes either way."""
+    from conftest import DEMO
+
     from amploop.job import load_job
     from amploop.measure import measure
     from amploop.pool import WorkerPool, default_workers
-    from conftest import DEMO
 
     job = load_job(DEMO / "job.toml")
     outs = {}

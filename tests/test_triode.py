@@ -12,6 +12,7 @@ import json
 from pathlib import Path
 
 import pytest
+from conftest import DEMO
 
 from amploop.cli import main
 from amploop.job import load_job
@@ -25,7 +26,6 @@ from amploop.strategy.triode import (
     square_law_resistance,
 )
 from amploop.tune import tune
-from conftest import DEMO
 
 KP, VTO, W, L = 280e-6, 0.45, 3e-6, 1e-6
 
@@ -165,6 +165,6 @@ def test_device_on_the_output_side_is_warned_about(tmp_path, capsys):
         netlist = netlist.replace("Mz n1 vbz nz vss nch w=2u l=1u", "Mz nz vbz out vss nch w=2u l=1u")
         return netlist.replace("Cc nz out {cc}", "Cc n1 nz {cc}")
     job = triode_job(tmp_path / "job", netlist_edit=edit)
-    code, out = run(["measure", str(job), "--out", str(tmp_path / "out"), "--no-report"], capsys)
+    _code, out = run(["measure", str(job), "--out", str(tmp_path / "out"), "--no-report"], capsys)
     assert "touches the amplifier output out" in out.err
     assert "modulated by the signal" in out.err

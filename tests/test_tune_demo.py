@@ -18,12 +18,12 @@ import time
 from pathlib import Path
 
 import pytest
+from conftest import DEMO
 
 from amploop.cli import main
 from amploop.job import load_job
 from amploop.measure import measure
 from amploop.tune import tune
-from conftest import DEMO
 
 
 def job_copy(folder: Path, *, netlist: Path | None = None, grid: str | None = None) -> Path:
@@ -60,7 +60,7 @@ def test_demo_tunes_to_the_target_at_every_corner(demo_tuned):
 
 
 def test_fresh_measurement_of_the_compensated_netlist_agrees(demo_tuned, tmp_path):
-    folder, result = demo_tuned
+    folder, _result = demo_tuned
     data = json.loads((folder / "out" / "results.json").read_text())
     compensated = Path(data["compensated_netlist"]["path"])
     assert compensated.is_file()

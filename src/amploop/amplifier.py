@@ -22,15 +22,15 @@ from .netlist import (
     read_netlist,
     read_source,
     render_file,
-    tokenize,
     replace_element_value,
     replace_instance_param,
     replace_param,
+    tokenize,
     value_of,
 )
 from .units import spice_number
 
-__all__ = ["KnobSite", "Amplifier", "prepare_amplifier"]
+__all__ = ["Amplifier", "KnobSite", "prepare_amplifier"]
 
 
 @dataclass(frozen=True)

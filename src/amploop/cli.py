@@ -23,7 +23,7 @@ from .errors import (
 )
 from .units import engineering
 
-__all__ = ["main", "ExitCode"]
+__all__ = ["ExitCode", "main"]
 
 
 class ExitCode(IntEnum):

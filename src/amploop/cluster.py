@@ -45,6 +45,7 @@ from collections import OrderedDict
 from collections.abc import Hashable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import replace
+from typing import Self
 
 from . import __version__
 from .errors import JobError, SimulatorError
@@ -435,7 +436,7 @@ class ClusterPool:
         """Analyses the cluster runs at once (its workers' threads)."""
         return max(1, sum(self._client.nthreads().values()))
 
-    def __enter__(self) -> ClusterPool:
+    def __enter__(self) -> Self:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -28,7 +28,7 @@ import numpy as np
 
 from .loopgain import FrequencyResponse
 
-__all__ = ["branch_impedance", "mobius_through_three", "CompensationMap"]
+__all__ = ["CompensationMap", "branch_impedance", "mobius_through_three"]
 
 
 def branch_impedance(frequency_hz: np.ndarray, cc_f, rc_ohm) -> np.ndarray:

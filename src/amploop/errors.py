@@ -13,12 +13,12 @@ from pathlib import Path
 __all__ = [
     "AmploopError",
     "JobError",
-    "NetlistError",
-    "SimulatorError",
-    "MeasurementError",
-    "TuningError",
     "JournalError",
+    "MeasurementError",
+    "NetlistError",
     "OutputError",
+    "SimulatorError",
+    "TuningError",
     "did_you_mean",
 ]
 

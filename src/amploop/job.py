@@ -20,14 +20,14 @@ from .expressions import evaluate
 from .units import parse_value
 
 __all__ = [
-    "Job",
     "Amplifier",
-    "BiasSource",
-    "Bias",
-    "Feedback",
-    "Knob",
     "Analysis",
+    "Bias",
+    "BiasSource",
     "Corner",
+    "Feedback",
+    "Job",
+    "Knob",
     "Target",
     "Transient",
     "load_job",
@@ -734,8 +734,8 @@ def _corner_name(lib: str | None, temp: float, params: dict[str, float],
 
 
 def _check_corner_libs(r: _Reader, job: Job) -> None:
-    from .netlist import lib_sections
     from .errors import NetlistError
+    from .netlist import lib_sections
 
     models = job.amplifier.models
     wanted = [c for c in job.corners if c.lib is not None]
@@ -778,7 +778,7 @@ def _check_corner_params(r: _Reader, job: Job) -> None:
             if missing:
                 raise r.fail(
                     place,
-                    f"uses parameter {sorted(missing)[0]!r}, which corner {corner.name!r} does not set",
+                    f"uses parameter {min(missing)!r}, which corner {corner.name!r} does not set",
                     hint="set it in the corner's params or in a top-level [params] table",
                 )
             if passive:

@@ -21,6 +21,7 @@ import json
 import sqlite3
 import time
 from pathlib import Path
+from typing import Self
 from urllib.parse import quote
 
 import numpy as np
@@ -28,7 +29,7 @@ import numpy as np
 from .errors import JournalError
 from .simulator import AnalysisOutput, AnalysisRequest
 
-__all__ = ["Journal", "analysis_key", "file_digests", "JOURNAL_SCHEMA"]
+__all__ = ["JOURNAL_SCHEMA", "Journal", "analysis_key", "file_digests"]
 
 #: Bump when the stored format or the meaning of a key changes; older journals are refused.
 JOURNAL_SCHEMA = 1
@@ -236,7 +237,7 @@ class Journal:
         finally:
             self._close_quietly()
 
-    def __enter__(self) -> Journal:
+    def __enter__(self) -> Self:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -11,7 +11,7 @@ from functools import cached_property
 
 import numpy as np
 
-__all__ = ["FrequencyResponse", "double_injection", "voltage_break", "unwrap_from_dc"]
+__all__ = ["FrequencyResponse", "double_injection", "unwrap_from_dc", "voltage_break"]
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,7 @@ import numpy as np
 
 from .loopgain import FrequencyResponse
 
-__all__ = ["Margins", "loop_margins", "gain_crossings", "phase_crossings"]
+__all__ = ["Margins", "gain_crossings", "loop_margins", "phase_crossings"]
 
 
 @dataclass(frozen=True)

@@ -13,19 +13,25 @@ from pathlib import Path
 import numpy as np
 
 from .amplifier import Amplifier, prepare_amplifier
-from .errors import AmploopError, MeasurementError, SimulatorError
+from .errors import AmploopError, MeasurementError
 from .job import Corner, Job, safe_filename
+from .journal import Journal, file_digests
 from .loopgain import FrequencyResponse
 from .margins import Margins, loop_margins
 from .outputs import OutFolder, loop_gain_csv, write_into
-from .journal import Journal, file_digests
 from .pool import WorkerPool, default_workers
 from .runner import Runner
 from .testbench import Testbench, build_testbench
 from .units import engineering
 
-__all__ = ["CornerResult", "MeasureResult", "measure", "assess_loop_gain", "corner_files",
-           "CornerWork"]
+__all__ = [
+    "CornerResult",
+    "CornerWork",
+    "MeasureResult",
+    "assess_loop_gain",
+    "corner_files",
+    "measure",
+]
 
 SCHEMA = 1
 #: The journal's file name inside an out folder.
@@ -251,10 +257,9 @@ def measure(
         return _measure_into(job, amplifier, values, benches, None, None, pool, workers,
                              progress, started, time_domain)
     folder = OutFolder(out)
-    with folder.lock():
-        with Journal(folder.path / JOURNAL_FILE) as journal:
-            return _measure_into(job, amplifier, values, benches, folder, journal, pool,
-                                 workers, progress, started, time_domain)
+    with folder.lock(), Journal(folder.path / JOURNAL_FILE) as journal:
+        return _measure_into(job, amplifier, values, benches, folder, journal, pool,
+                             workers, progress, started, time_domain)
 
 
 def _measure_into(job, amplifier, values, benches, folder, journal, pool, workers, progress,

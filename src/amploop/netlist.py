@@ -23,19 +23,19 @@ from .expressions import evaluate
 
 __all__ = [
     "LogicalLine",
-    "Statement",
-    "SourceFile",
-    "Subckt",
     "Netlist",
+    "SourceFile",
+    "Statement",
+    "Subckt",
+    "lib_sections",
     "read_netlist",
     "read_source",
-    "lib_sections",
-    "split_logical_lines",
-    "tokenize",
     "render_file",
-    "replace_param",
     "replace_element_value",
     "replace_instance_param",
+    "replace_param",
+    "split_logical_lines",
+    "tokenize",
 ]
 
 # Dot-commands that belong to a simulation run, not to a circuit library. At the top level
@@ -863,14 +863,14 @@ def _render(
             out.extend(f"* amploop: ngspice ignores .end in an included file: {raw}"
                        for raw in logical.raw)
             continue
-        if top_level and statement.subckt is None and statement.section is None:
-            if keyword in ANALYSIS_COMMANDS or not keyword.startswith("."):
-                out.extend(f"* amploop left out: {raw}" for raw in logical.raw)
-                notes.append(
-                    f"{path}:{statement.line}: {statement.tokens[0]} is outside the subckt; "
-                    "left out of the testbench"
-                )
-                continue
+        if top_level and statement.subckt is None and statement.section is None and (
+                keyword in ANALYSIS_COMMANDS or not keyword.startswith(".")):
+            out.extend(f"* amploop left out: {raw}" for raw in logical.raw)
+            notes.append(
+                f"{path}:{statement.line}: {statement.tokens[0]} is outside the subckt; "
+                "left out of the testbench"
+            )
+            continue
         out.extend(logical.raw)
     return "\n".join(out), notes
 

@@ -20,7 +20,7 @@ import numpy as np
 from .errors import JournalError, OutputError
 from .loopgain import FrequencyResponse
 
-__all__ = ["OutFolder", "clean_json", "write_into", "loop_gain_csv"]
+__all__ = ["OutFolder", "clean_json", "loop_gain_csv", "write_into"]
 
 
 def clean_json(value):
@@ -70,7 +70,7 @@ class OutFolder:
         """Hold the folder for this run; a second run on the same folder is refused."""
         path = self.path / ".amploop.lock"
         try:
-            handle = open(path, "a+")
+            handle = open(path, "a+")  # noqa: SIM115 - held open for the whole run
         except OSError as exc:
             raise OutputError(f"cannot create the lock file: {exc.strerror}", file=path) from None
         try:

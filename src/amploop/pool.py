@@ -18,6 +18,7 @@ from collections import deque
 from collections.abc import Hashable, Iterable, Iterator
 from dataclasses import dataclass, field, replace
 from multiprocessing.connection import wait
+from typing import Self
 
 from .errors import SimulatorError
 from .simulator import AnalysisOutput, AnalysisRequest
@@ -146,7 +147,7 @@ class WorkerPool:
         self.started_workers = 0
         self._failed_starts = 0
 
-    def __enter__(self) -> WorkerPool:
+    def __enter__(self) -> Self:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -27,7 +27,7 @@ import numpy as np
 from .loopgain import FrequencyResponse, double_injection, voltage_break
 from .simulator import Step
 
-__all__ = ["Probe", "DoubleInjection", "LcBreak", "make_probe"]
+__all__ = ["DoubleInjection", "LcBreak", "Probe", "make_probe"]
 
 
 class Probe:

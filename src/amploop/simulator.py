@@ -30,7 +30,7 @@ import numpy as np
 
 from .errors import SimulatorError
 
-__all__ = ["Step", "AnalysisRequest", "AnalysisOutput", "NgspiceSession", "summarise_failure"]
+__all__ = ["AnalysisOutput", "AnalysisRequest", "NgspiceSession", "Step", "summarise_failure"]
 
 _ANALYSES = {"ac", "op", "tran", "dc", "noise", "tf", "pz", "sens", "disto"}
 

@@ -27,8 +27,15 @@ from .probe import Probe, make_probe
 from .simulator import AnalysisOutput, AnalysisRequest, Step
 from .units import parse_value, spice_number
 
-__all__ = ["Testbench", "StepBench", "build_testbench", "build_step_testbench", "NODE_AMP",
-           "NODE_FEEDBACK", "port_node"]
+__all__ = [
+    "NODE_AMP",
+    "NODE_FEEDBACK",
+    "StepBench",
+    "Testbench",
+    "build_step_testbench",
+    "build_testbench",
+    "port_node",
+]
 
 #: Amplifier side of the probe: the subckt's output with the load.
 NODE_AMP = "tb_out"
@@ -113,7 +120,7 @@ class Testbench:
 def _quote(value: str) -> str:
     """A job-file value as a SPICE value: numbers stay, expressions get braces if needed."""
     text = value.strip()
-    if text.startswith("{") or text.startswith("'"):
+    if text.startswith(("{", "'")):
         return text
     try:
         parse_value(text)

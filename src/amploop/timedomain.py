@@ -13,8 +13,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["StepMetrics", "step_metrics", "damping_from_phase_margin", "overshoot_from_damping",
-           "suggested_stop_s"]
+__all__ = [
+    "StepMetrics",
+    "damping_from_phase_margin",
+    "overshoot_from_damping",
+    "step_metrics",
+    "suggested_stop_s",
+]
 
 
 @dataclass(frozen=True)

@@ -22,8 +22,8 @@ from .measure import JOURNAL_FILE, SCHEMA, CornerResult, corner_files
 from .outputs import OutFolder
 from .pool import WorkerPool
 from .runner import Runner
-from .strategy import STRATEGIES, Evaluator, Outcome
 from .stepcheck import run_step_checks, step_stop_s, with_step
+from .strategy import STRATEGIES, Evaluator, Outcome
 from .strategy.common import Evaluator as _Evaluator
 from .strategy.common import HistoryEntry, bounds_of
 from .strategy.mapping import initial_samples

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["parse_value", "spice_number", "engineering", "describe_values", "SCALE_SUFFIXES"]
+__all__ = ["SCALE_SUFFIXES", "describe_values", "engineering", "parse_value", "spice_number"]
 
 #: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
 SCALE_SUFFIXES: dict[str, float] = {
@@ -32,7 +32,7 @@ _UNIT_TAILS = ("", "f", "h", "v", "a", "s", "hz", "ohm", "ohms")
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)\s*$")
 
 
-def parse_value(text: str | int | float) -> float:
+def parse_value(text: str | float) -> float:
     """Read a SPICE number such as ``"1.5p"``, ``"10k"``, ``"2meg"``, ``"3e-12"`` or ``4``.
 
     Parameters
@@ -51,8 +51,8 @@ def parse_value(text: str | int | float) -> float:
     ValueError
         When the text is not a SPICE number; the caller adds file and place.
     """
-    if isinstance(text, bool):
-        raise ValueError(f"expected a number, got {text!r}")
+    if isinstance(text, bool):  # a TOML true/false: a value error for the job's messages
+        raise ValueError(f"expected a number, got {text!r}")  # noqa: TRY004
     if isinstance(text, (int, float)):
         value = float(text)
     else:

@@ -19,7 +19,7 @@ from . import style
 from .data import ReportData, load_report_data
 from .pages import convergence_page, corner_page, map_page, summary_pages, time_domain_page
 
-__all__ = ["build_report", "ReportOutcome", "PNG_CORNER_PAGES"]
+__all__ = ["PNG_CORNER_PAGES", "ReportOutcome", "build_report"]
 
 #: Above this many corners, only the limiting corner's page gets a PNG copy (the PDF has
 #: every page); drawing a PNG costs about as much as drawing the page itself.

@@ -5,16 +5,16 @@ from __future__ import annotations
 import textwrap
 
 import matplotlib.pyplot as plt
-from matplotlib.ticker import LogLocator
 import numpy as np
+from matplotlib.ticker import LogLocator
 
 from ..margins import grid_margins, loop_margins
-from ..strategy.mapsolve import cc_grid, rc_grid
+from ..strategy.mapsolve import cc_grid
 from ..units import describe_values, engineering
 from . import style
 from .data import ReportData
 
-__all__ = ["summary_pages", "corner_page", "map_page", "convergence_page", "time_domain_page"]
+__all__ = ["convergence_page", "corner_page", "map_page", "summary_pages", "time_domain_page"]
 
 CAUTIONS = (
     "Results are only as good as the device models and netlist they were simulated with. "

@@ -6,8 +6,8 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-from matplotlib import colormaps  # noqa: E402
-from matplotlib.ticker import EngFormatter  # noqa: E402
+from matplotlib import colormaps
+from matplotlib.ticker import EngFormatter
 
 #: the chosen values (final curves, the chosen point)
 FINAL = "#00607a"

@@ -9,4 +9,4 @@ from .textbook import tune_by_textbook
 #: Strategies by name. "optimizer" is for the benchmark only (not on the command line).
 STRATEGIES = {"map": tune_by_map, "textbook": tune_by_textbook, "optimizer": tune_by_optimizer}
 
-__all__ = ["Evaluator", "Outcome", "STRATEGIES", "tune_by_map", "tune_by_textbook"]
+__all__ = ["STRATEGIES", "Evaluator", "Outcome", "tune_by_map", "tune_by_textbook"]

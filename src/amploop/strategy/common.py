@@ -18,8 +18,16 @@ from ..runner import Runner
 from ..simulator import AnalysisOutput, Step
 from ..testbench import build_testbench
 
-__all__ = ["WorstCase", "PointResult", "HistoryEntry", "Evaluator", "Outcome", "worst_case",
-           "meets_target", "bounds_of"]
+__all__ = [
+    "Evaluator",
+    "HistoryEntry",
+    "Outcome",
+    "PointResult",
+    "WorstCase",
+    "bounds_of",
+    "meets_target",
+    "worst_case",
+]
 
 
 @dataclass(frozen=True)

@@ -22,7 +22,7 @@ from .mapping import _round, initial_samples, samples_around
 from .mapsolve import solve_on_maps
 from .triode import in_triode, resistance_at_size, square_law_resistance
 
-__all__ = ["tune_device_by_map", "device_operating_points", "model_card"]
+__all__ = ["device_operating_points", "model_card", "tune_device_by_map"]
 
 
 def model_card(evaluator: Evaluator, corner, model: str) -> dict[str, float]:

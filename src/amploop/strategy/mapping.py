@@ -20,7 +20,7 @@ from ..units import describe_values, engineering
 from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
 from .mapsolve import MapSolution, solve_on_maps
 
-__all__ = ["tune_by_map", "initial_samples"]
+__all__ = ["initial_samples", "tune_by_map"]
 
 
 def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dict[str, float]]:

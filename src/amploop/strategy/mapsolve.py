@@ -19,7 +19,7 @@ import numpy as np
 from ..compmap import CompensationMap
 from ..margins import grid_margins, loop_margins
 
-__all__ = ["MapSolution", "solve_on_maps", "cc_grid", "rc_grid", "predicted_worst"]
+__all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "solve_on_maps"]
 
 
 @dataclass(frozen=True)

@@ -15,8 +15,8 @@ import numpy as np
 from scipy.optimize import minimize
 
 from ..job import Target
-from .common import Evaluator, Outcome, bounds_of, meets_target
 from ..units import describe_values
+from .common import Evaluator, Outcome, bounds_of, meets_target
 
 __all__ = ["tune_by_optimizer"]
 

@@ -20,9 +20,8 @@ import math
 
 from ..errors import TuningError
 from ..job import Target
-from ..units import parse_value
+from ..units import describe_values, parse_value
 from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
-from ..units import describe_values
 from .twostage import (
     effective_load,
     feedback_factor,

@@ -16,11 +16,11 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = [
-    "square_law_resistance",
-    "resistance_at_size",
-    "size_for_resistance",
     "in_triode",
+    "resistance_at_size",
     "resistance_share_during",
+    "size_for_resistance",
+    "square_law_resistance",
 ]
 
 

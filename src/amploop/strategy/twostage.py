@@ -16,12 +16,12 @@ import numpy as np
 from ..loopgain import FrequencyResponse
 
 __all__ = [
-    "feedback_factor",
     "effective_load",
-    "starting_cc",
+    "feedback_factor",
     "lead_ratio",
     "lead_resistor",
     "rhp_zero_rad_s",
+    "starting_cc",
     "where_phase_is",
 ]
 
