@@ -77,7 +77,26 @@ class Device:
 
 @dataclass(frozen=True)
 class Amplifier:
-    """A job's amplifier netlist, checked against the job and ready for testbenches."""
+    """A job's amplifier netlist, checked against the job and ready for testbenches.
+
+    Attributes
+    ----------
+    job
+        The job it was prepared for.
+    netlist
+        The user's netlist as read, with the job's ``includes``.
+    subckt
+        The job's subckt in it.
+    sites
+        Role (``"cc"``, ``"rc"``) -> where the netlist keeps that value.
+    control_blocks
+        ``(file, line)`` of each ``.control`` block in the user's files and the models file
+        (empty unless they were allowed).
+    device
+        The MOSFET that stands in for Rc; None when Rc is not a device.
+    warnings
+        Remarks for the user, such as a device for Rc that touches the output.
+    """
 
     job: Job
     netlist: Netlist
@@ -88,7 +107,8 @@ class Amplifier:
     warnings: tuple[str, ...] = ()
 
     def node_vector(self, node: str) -> str:
-        """ngspice's vector name of a subckt node's voltage in the testbench (``v(x1.nz)``)."""
+        """ngspice's vector name of the voltage of subckt node ``node`` in the testbench:
+        ``v(x1.nz)`` for an inner node, the testbench node's for a port, ``"0"`` for ground."""
         from .testbench import NODE_AMP, port_node
 
         index = self.subckt.port_index(node)
@@ -128,6 +148,17 @@ class Amplifier:
 
         ngspice numbers lines of its expanded deck (inside a subckt often "line no. 0"), so
         the name it complains about is looked up in the user's files instead.
+
+        Parameters
+        ----------
+        problem
+            ngspice's parse error, one line.
+
+        Returns
+        -------
+        str
+            ``file:line: problem`` without ngspice's deck line number; ``problem`` as it is
+            when no name in it is found.
         """
         for pattern in (r"\[([^\]]+)\]", r"'([\w.#$-]+\(?)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$",
                         # "Error on line: m.x1.m8 ...": an element of the subckt, flattened
@@ -149,6 +180,14 @@ class Amplifier:
         dict[tuple[Path, int], str], dict[str, str]
     ]:
         """Text edits that put ``values`` (by role) and corner ``params`` into the netlist.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
+        params
+            The corner's parameter values, SI; those the netlist also defines with a
+            global ``.param`` are rewritten there (the corner's value wins).
 
         Returns
         -------
@@ -194,7 +233,15 @@ class Amplifier:
     def render(self, values: dict[str, float], params: dict[str, float]) -> tuple[
         str, dict[str, str], list[str]
     ]:
-        """The netlist file's text for a testbench, its instance parameters, and notes."""
+        """The netlist file's text for a testbench, its instance parameters, and notes.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
+        params
+            The corner's parameter values, SI (see :meth:`edits`).
+        """
         edits, instance = self.edits(values, params)
         text, notes = render_file(self.netlist, self.netlist.root, edits, top_level=True)
         return text, instance, notes
@@ -205,6 +252,11 @@ class Amplifier:
         Subckt-header defaults are rewritten in the header; everything else in place.
         Only files that change are returned; they keep their comments and layout except
         on the rewritten lines.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
         """
         changed: dict[Path, dict[int, str]] = {}
         for role, value in values.items():

@@ -301,7 +301,13 @@ def _run_tune(args) -> ExitCode:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point of the ``amploop`` command; returns the exit code."""
+    """Entry point of the ``amploop`` command; returns the exit code.
+
+    Parameters
+    ----------
+    argv
+        The command line after the program name; None for ``sys.argv[1:]``.
+    """
     parser = _parser()
     args = parser.parse_args(argv)
     if getattr(args, "workers", None) is not None and args.workers < 1:

@@ -315,6 +315,12 @@ def _drop_local_pool() -> None:
 def run_analysis(request: AnalysisRequest) -> tuple[str, object]:
     """The Dask task: one analysis on this worker, through a local ngspice process.
 
+    Parameters
+    ----------
+    request
+        The analysis, with the contents of the files its deck includes
+        (:meth:`FileBundler.bundle`).
+
     Returns
     -------
     ("ok", AnalysisOutput) or ("error", problem)
@@ -450,7 +456,14 @@ class ClusterPool:
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
     ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError]]:
         """Run every request on the cluster; yield ``(key, output or SimulatorError)`` as
-        each finishes. Analyses still queued are cancelled if the caller stops early."""
+        each finishes. Analyses still queued are cancelled if the caller stops early.
+
+        Parameters
+        ----------
+        requests
+            ``(key, request)`` pairs; the key comes back with the request's result. Each
+            request travels with the files its deck includes, without its ``after``.
+        """
         distributed = _distributed()
         futures = {}
         for key, request in requests:

@@ -32,7 +32,17 @@ __all__ = ["CompensationMap", "branch_impedance", "mobius_through_three"]
 
 
 def branch_impedance(frequency_hz: np.ndarray, cc_f, rc_ohm) -> np.ndarray:
-    """Z(j2πf) = Rc + 1/(j2πf·Cc) in ohms, broadcast over the inputs; Cc = 0 gives inf."""
+    """Z(j2πf) = Rc + 1/(j2πf·Cc) in ohms, broadcast over the inputs; Cc = 0 gives inf.
+
+    Parameters
+    ----------
+    frequency_hz
+        Frequencies, Hz.
+    cc_f
+        Cc, farads (0: the branch is open).
+    rc_ohm
+        Rc, ohms.
+    """
     s = 2j * np.pi * np.asarray(frequency_hz, dtype=float)
     cc = np.asarray(cc_f, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -50,6 +60,15 @@ def mobius_through_three(z: tuple, w: tuple, query: np.ndarray) -> np.ndarray:
             / [(w2−w3)(q−z3)(z2−z1) − (w2−w1)(q−z1)(z2−z3)]
 
     and, for q = ∞, the limit of the same expression. All arguments broadcast together.
+
+    Parameters
+    ----------
+    z
+        (z1, z2, z3): the three points the map goes through, distinct.
+    w
+        (w1, w2, w3): their images.
+    query
+        Where to evaluate the map; may equal a z_k or be infinite.
     """
     z1, z2, z3 = (np.asarray(v) for v in z)
     w1, w2, w3 = (np.asarray(v) for v in w)
@@ -84,7 +103,22 @@ class CompensationMap:
 
     @classmethod
     def from_loop_gains(cls, samples, responses: list[FrequencyResponse]) -> CompensationMap:
-        """Build the map from three simulated loop gains at ``samples`` ((Cc, Rc) pairs)."""
+        """Build the map from three simulated loop gains at ``samples`` ((Cc, Rc) pairs).
+
+        Parameters
+        ----------
+        samples
+            Three (Cc in farads, Rc in ohms) pairs, with three different values of Cc.
+        responses
+            The loop gain simulated at each sample, in the same order, on one frequency
+            grid.
+
+        Raises
+        ------
+        ValueError
+            For other than three samples, two samples with the same Cc, or responses on
+            different frequency grids.
+        """
         if len(samples) != 3 or len(responses) != 3:
             raise ValueError("a compensation map needs exactly three samples")
         if len({cc for cc, _ in samples}) != 3:
@@ -124,8 +158,15 @@ class CompensationMap:
     def loop_gain_values(self, cc_f, rc_ohm, frequency_index=None) -> np.ndarray:
         """Complex T at every frequency for each (Cc, Rc); shape ``broadcast(cc, rc) + (n_f,)``.
 
-        ``cc_f`` and ``rc_ohm`` broadcast against each other (e.g. a column and a row give
-        a grid). ``frequency_index`` picks a subset of the frequencies (for fast searches).
+        Parameters
+        ----------
+        cc_f
+            Cc, farads (0: the branch is open).
+        rc_ohm
+            Rc, ohms; ``cc_f`` and ``rc_ohm`` broadcast against each other (e.g. a column
+            and a row give a grid).
+        frequency_index
+            Picks a subset of the frequencies (for fast searches); None for all of them.
         """
         a, b, c, d = self.coefficients()
         frequency = self.frequency_hz
@@ -143,5 +184,5 @@ class CompensationMap:
             return (a * z_scaled + b * scc) / (c * z_scaled + d * scc)
 
     def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
-        """The predicted loop gain at one (Cc, Rc)."""
+        """The predicted loop gain at one Cc, ``cc_f`` (farads), and Rc, ``rc_ohm`` (ohms)."""
         return FrequencyResponse(self.frequency_hz, self.loop_gain_values(cc_f, rc_ohm))

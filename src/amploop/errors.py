@@ -96,7 +96,8 @@ class OutputError(AmploopError):
 
 
 def did_you_mean(name: str, choices) -> str:
-    """``"; did you mean 'x'?"`` when a choice is close to ``name``, else a list of choices."""
+    """``"; did you mean 'x'?"`` when one of ``choices`` is close to ``name``, else a list of
+    the choices (when there are 12 at most; else nothing)."""
     choices = list(dict.fromkeys(choices))
     lowered = {c.lower(): c for c in choices}
     close = difflib.get_close_matches(name.lower(), list(lowered), n=3, cutoff=0.5)

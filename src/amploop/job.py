@@ -42,7 +42,25 @@ FeedbackKind = Literal["resistive", "capacitive"]
 
 @dataclass(frozen=True)
 class Amplifier:
-    """``[amplifier]``: where the subckt is and which ports are the inputs and output."""
+    """``[amplifier]``: where the subckt is and which ports are the inputs and output.
+
+    Attributes
+    ----------
+    netlist
+        The file holding the ``.subckt`` (absolute path).
+    subckt
+        The subckt's name.
+    in_p, in_n, out
+        Its non-inverting input, inverting input and output ports.
+    models
+        A model file, plain or of ``.lib`` sections (each corner's ``lib`` picks one);
+        None when not given.
+    includes
+        More files to include in the deck (absolute paths).
+    input_device, second_stage_device
+        An input-pair transistor and the second-stage driver, for the textbook strategy
+        (their gm come from the operating point); None when not given.
+    """
 
     netlist: Path
     subckt: str
@@ -57,7 +75,18 @@ class Amplifier:
 
 @dataclass(frozen=True)
 class BiasSource:
-    """One ``[bias]`` port: a voltage source to ground, or a current drawn out of the port."""
+    """One ``[bias]`` port: a voltage source to ground, or a current drawn out of the port.
+
+    Attributes
+    ----------
+    port
+        The subckt port.
+    kind
+        ``"volts"`` (a voltage source to ground) or ``"amps"`` (a current drawn out of the
+        port to ground; negative: into it).
+    value
+        The voltage (volts) or current (amperes), a SPICE expression.
+    """
 
     port: str
     kind: Literal["volts", "amps"]
@@ -66,7 +95,15 @@ class BiasSource:
 
 @dataclass(frozen=True)
 class Bias:
-    """``[bias]``: input common mode (SPICE expression, volts) and the other ports' sources."""
+    """``[bias]``: input common mode (SPICE expression, volts) and the other ports' sources.
+
+    Attributes
+    ----------
+    common_mode
+        The input common-mode voltage, volts (a SPICE expression).
+    sources
+        One source per other biased port, in the order of the job file.
+    """
 
     common_mode: str
     sources: tuple[BiasSource, ...]
@@ -79,6 +116,20 @@ class Feedback:
     ``input`` (Z1) runs from the AC-grounded signal source to the inverting input,
     ``feedback`` (Z2) from the output to the inverting input; ``load`` is a capacitor from
     the output to ground; ``dc_path`` (capacitive loops only) a resistor across Z2.
+
+    Attributes
+    ----------
+    kind
+        ``"resistive"`` (Z1 and Z2 are resistors, ohms) or ``"capacitive"`` (capacitors,
+        farads).
+    input
+        Z1, ohms or farads.
+    feedback
+        Z2, ohms or farads.
+    load
+        The load capacitance, farads (``"0"`` when not given).
+    dc_path
+        The resistor across Z2 of a capacitive loop, ohms (default ``"1G"``).
     """
 
     kind: FeedbackKind
@@ -117,7 +168,19 @@ class Knob:
 
 @dataclass(frozen=True)
 class Analysis:
-    """``[analysis]``: the AC sweep, the probe and the per-analysis time limit."""
+    """``[analysis]``: the AC sweep, the probe and the per-analysis time limit.
+
+    Attributes
+    ----------
+    start_hz, stop_hz
+        The first and last frequency of the AC sweep, Hz.
+    points_per_decade
+        Points per decade of the sweep.
+    probe
+        The loop-gain probe: ``"double-injection"`` or ``"lc"``.
+    time_limit_s
+        Seconds one analysis may take before it counts as hung.
+    """
 
     start_hz: float = 1.0
     stop_hz: float = 10e9
@@ -126,6 +189,7 @@ class Analysis:
     time_limit_s: float = 120.0
 
     def ac_command(self) -> str:
+        """The ngspice ``ac dec`` command of this sweep."""
         from .units import spice_number
 
         return (
@@ -136,7 +200,19 @@ class Analysis:
 
 @dataclass(frozen=True)
 class Corner:
-    """One corner: a model section, a temperature (°C) and SPICE parameter values (SI)."""
+    """One corner: a model section, a temperature (°C) and SPICE parameter values (SI).
+
+    Attributes
+    ----------
+    name
+        The corner's name (given, or made from its values).
+    lib
+        The ``.lib`` section of ``[amplifier].models``; None for none.
+    temp
+        The temperature, degrees Celsius.
+    params
+        Lower-case parameter name -> value (SI), the ``[params]`` defaults included.
+    """
 
     name: str
     lib: str | None = None
@@ -149,7 +225,17 @@ class Corner:
 
 @dataclass(frozen=True)
 class Target:
-    """``[target]``: phase margin to reach (degrees), how far above it may land, minimum GM."""
+    """``[target]``: phase margin to reach (degrees), how far above it may land, minimum GM.
+
+    Attributes
+    ----------
+    phase_margin_deg
+        The phase margin the worst corner must reach, degrees.
+    tolerance_deg
+        How far above it the worst corner may land where the bounds allow, degrees.
+    gain_margin_db
+        The minimum gain margin at every corner, dB; None for no minimum.
+    """
 
     phase_margin_deg: float
     tolerance_deg: float = 1.0
@@ -181,7 +267,30 @@ class Transient:
 
 @dataclass(frozen=True)
 class Job:
-    """A loaded, checked job file. Paths are absolute; values SI."""
+    """A loaded, checked job file. Paths are absolute; values SI.
+
+    Attributes
+    ----------
+    path
+        The job file.
+    name
+        The job's name (default: the job file's name without its suffix).
+    amplifier, bias, feedback
+        The ``[amplifier]``, ``[bias]`` and ``[feedback]`` tables.
+    compensation
+        Role (``"cc"``, and ``"rc"`` when given) -> where the netlist keeps it.
+    analysis
+        The ``[analysis]`` table (defaults when it is left out).
+    corners
+        Every corner, listed ones first, then the ``[corner_grid]`` product; one
+        ``nominal`` corner when there are none.
+    target
+        The ``[target]`` table; None when left out (enough for measure, not for tune).
+    transient
+        The ``[transient]`` table (defaults when it is left out).
+    raw
+        The TOML data as read.
+    """
 
     path: Path
     name: str
@@ -330,7 +439,7 @@ _FUNCTION_NAMES = {"sqrt", "exp", "log", "ln", "log10", "abs", "min", "max", "po
 
 
 def referenced_params(expression: str) -> set[str]:
-    """Lower-case parameter names used inside ``{...}`` or quotes of a SPICE expression."""
+    """Lower-case parameter names used inside ``{...}`` or quotes of the SPICE ``expression``."""
     names: set[str] = set()
     for match in _BRACED.finditer(expression):
         inner = match.group(1) if match.group(1) is not None else match.group(2)
@@ -793,6 +902,18 @@ def _check_corner_params(r: _Reader, job: Job) -> None:
 def parse_overrides(items: list[str] | None, job: Job) -> dict[str, float]:
     """``--set cc=1.5p`` items -> ``{"cc": 1.5e-12}``, checked against ``[compensation]``.
 
+    Parameters
+    ----------
+    items
+        The ``ROLE=VALUE`` items (values take SPICE suffixes); None for none.
+    job
+        The loaded job whose compensation roles they must name.
+
+    Returns
+    -------
+    dict
+        Role -> value in SI units (farads for ``cc``).
+
     Raises
     ------
     JobError
@@ -826,6 +947,7 @@ _UNSAFE = re.compile(r"[^A-Za-z0-9._+-]")
 
 
 def safe_filename(name: str) -> str:
-    """A file-name-safe form of a corner or job name: no separators, dots-only or controls."""
+    """A file-name-safe form of ``name`` (a corner or job name): no separators, dots-only or
+    controls; at most 120 characters."""
     cleaned = _UNSAFE.sub("_", name).strip("._") or "unnamed"
     return cleaned[:120]

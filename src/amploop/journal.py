@@ -37,7 +37,8 @@ _APPLICATION_ID = 0x616D706C  # "ampl"
 
 
 def file_digests(paths) -> dict[str, str]:
-    """sha256 of each file's content, by absolute path."""
+    """sha256 of the content of each file in ``paths`` (absolute), by path; ``"missing"``
+    for a file that cannot be read."""
     digests = {}
     for path in paths:
         path = Path(path)
@@ -49,7 +50,8 @@ def file_digests(paths) -> dict[str, str]:
 
 
 def analysis_key(request: AnalysisRequest, digests: dict[str, str]) -> str:
-    """The hash that identifies an analysis: deck, commands, read vectors, file contents."""
+    """The hash that identifies ``request``: deck, commands, read vectors, bundled files, and
+    the contents of the files it reads as ``digests`` (path -> sha256) gives them."""
     h = hashlib.sha256()
     h.update(f"amploop-journal-{JOURNAL_SCHEMA}\n".encode())
     h.update(request.deck.encode("utf-8"))
@@ -184,9 +186,24 @@ class Journal:
                                hint="move the journal away to start afresh") from None
 
     def put(self, key: str, label: str, request: AnalysisRequest, output: AnalysisOutput) -> None:
-        """Record a finished analysis. It is committed with its batch: by the first
-        ``put`` more than ``commit_interval_s`` after the batch began, by :meth:`commit`,
-        or by :meth:`close`."""
+        """Record a finished analysis.
+
+        It is committed with its batch: by the first ``put`` more than
+        ``commit_interval_s`` after the batch began, by :meth:`commit`, or by :meth:`close`.
+
+        Parameters
+        ----------
+        key
+            The analysis's key (:func:`analysis_key`); a record with the same key is
+            replaced.
+        label
+            What the analysis belongs to (the request's label), kept beside it.
+        request
+            The request that was run (its count of AC analyses is kept).
+        output
+            What it gave back: the vectors, the warnings, whether the operating point
+            needed the transient fallback, and its seconds.
+        """
         blob = _pack(output)
         try:
             if self._open_since is None:
@@ -222,6 +239,7 @@ class Journal:
                            hint="is the disk full? analyses committed so far are kept") from None
 
     def count(self) -> int:
+        """How many analyses are recorded."""
         return self._db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
 
     def _close_quietly(self) -> None:

@@ -57,6 +57,11 @@ def unwrap_from_dc(values: np.ndarray) -> np.ndarray:
     The first point is taken in (−180°, 180°]; each later point continues it without
     jumps of more than 180° (numpy's unwrap), so a loop that falls through −180° reads
     −190°, not +170°.
+
+    Parameters
+    ----------
+    values
+        The complex response, in frequency order from the lowest frequency.
     """
     return np.degrees(np.unwrap(np.angle(values)))
 
@@ -102,5 +107,12 @@ def voltage_break(v_a: np.ndarray, v_b: np.ndarray) -> np.ndarray:
     Exact only when the feedback side does not load the amplifier side; with the
     large-inductor/large-capacitor break the amplifier output then sees no feedback
     network at AC, which is why that break overstates the loop gain of a loaded output.
+
+    Parameters
+    ----------
+    v_a
+        Node voltage (complex) on the amplifier side ``a`` of the break.
+    v_b
+        Node voltage (complex) on the feedback side ``b``, where the AC voltage is driven.
     """
     return -np.asarray(v_a, dtype=complex) / np.asarray(v_b, dtype=complex)

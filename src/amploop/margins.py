@@ -127,7 +127,8 @@ def _log_axes(response: FrequencyResponse) -> tuple[np.ndarray, np.ndarray, np.n
 
 
 def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
-    """Every 0 dB crossing as (frequency Hz, phase margin degrees)."""
+    """Every 0 dB crossing of the loop gain ``response`` as (frequency Hz, phase margin
+    degrees), in frequency order."""
     x, m, p = _log_axes(response)
     result = []
     for i, xr in _roots(x, m, 0.0):
@@ -136,7 +137,8 @@ def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
 
 
 def phase_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
-    """Every phase crossover (∠T = −180° + k·360°) as (frequency Hz, gain margin dB)."""
+    """Every phase crossover (∠T = −180° + k·360°) of the loop gain ``response`` as
+    (frequency Hz, gain margin dB), in frequency order."""
     x, m, p = _log_axes(response)
     turns = np.floor((p + 180.0) / 360.0)
     levels = {-180.0 + 360.0 * k for k in range(int(turns.min()), int(turns.max()) + 2)}

@@ -44,6 +44,22 @@ class CornerResult:
 
     ``status`` is ``"ok"`` or ``"error"``; on error ``error`` says why and the margins
     hold what could still be read (possibly nothing).
+
+    Attributes
+    ----------
+    corner
+        The corner measured.
+    status
+        ``"ok"`` or ``"error"``.
+    error
+        Why the corner failed (the simulator's problem, or why its loop gain is unusable);
+        None when it is ``"ok"``.
+    margins
+        The margins read off the loop gain; None when there is no loop gain.
+    loop_gain
+        The measured loop gain; None when the analysis failed or its output was unusable.
+    warnings
+        The simulator's warnings of its analysis (gmin stepping, transient-op fallback).
     """
 
     corner: Corner
@@ -54,6 +70,7 @@ class CornerResult:
     warnings: tuple[str, ...] = ()
 
     def as_json(self) -> dict:
+        """The corner's entry in results.json: the corner, status, error, figures, warnings."""
         figures = dict.fromkeys(
             ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
              "phase_crossover_hz"))
@@ -73,7 +90,31 @@ class CornerResult:
 
 @dataclass(frozen=True)
 class MeasureResult:
-    """The whole measurement: values in effect, every corner, analysis counts."""
+    """The whole measurement: values in effect, every corner, analysis counts.
+
+    Attributes
+    ----------
+    job
+        The job measured.
+    values
+        The compensation values in effect by role, SI (the netlist's with the overrides).
+    corners
+        One result per corner, in the job's order.
+    ac_run, ac_reused
+        AC analyses simulated, and AC analyses taken from the journal.
+    out
+        The out folder; None when nothing was written.
+    seconds
+        Wall time of the measurement, seconds.
+    keys
+        Corner name -> journal key of its loop-gain analysis.
+    step_checks
+        Corner name -> :class:`~amploop.stepcheck.StepCheck` (empty when not run).
+    transient_run, transient_reused
+        Transient analyses simulated, and transient analyses taken from the journal.
+    warnings
+        Remarks on the amplifier for the user (:attr:`~amploop.amplifier.Amplifier.warnings`).
+    """
 
     job: Job
     values: dict[str, float]
@@ -93,6 +134,7 @@ class MeasureResult:
         return "ok" if all(c.status == "ok" for c in self.corners) else "failed"
 
     def as_json(self) -> dict:
+        """The content of results.json for this measurement."""
         from .stepcheck import with_step
 
         corners = []
@@ -121,6 +163,11 @@ def assess_loop_gain(response: FrequencyResponse) -> tuple[Margins, str | None]:
 
     A loop that is positive feedback at DC (phase near ±180° at the lowest frequency) or
     never crosses 0 dB within the sweep gives a reason; the figures that exist are kept.
+
+    Parameters
+    ----------
+    response
+        The measured loop gain of one corner.
     """
     margins = loop_margins(response)
     dc_phase = float(response.phase_deg[0])
@@ -141,7 +188,8 @@ def assess_loop_gain(response: FrequencyResponse) -> tuple[Margins, str | None]:
 
 
 def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
-    """A unique, file-name-safe stem per corner name."""
+    """A unique, file-name-safe stem per corner name of ``corners`` (``-2``, ``-3``, ...
+    added where two stems would otherwise be the same, ignoring case)."""
     stems: dict[str, str] = {}
     used: set[str] = set()
     for corner in corners:
@@ -193,6 +241,19 @@ class CornerWork:
     relative to ``folder`` (absolute). Returns ``(margins, problem)``; a write that fails
     raises :class:`~amploop.errors.OutputError` there, which comes back as the output's
     ``after_error``, and the coordinator then does the work itself and reports it.
+
+    Attributes
+    ----------
+    bench
+        The corner's testbench.
+    folder
+        The out folder (absolute).
+    csv
+        Where the loop-gain CSV goes, relative to ``folder``.
+    deck
+        Where the deck to rerun by hand goes, relative to ``folder``.
+    data_file
+        The file that deck writes its loop gain to, relative to where ngspice runs it.
     """
 
     bench: Testbench

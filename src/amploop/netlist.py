@@ -178,6 +178,11 @@ def tokenize(text: str) -> list[str]:
 
     ``name = value`` is normalised to ``name=value`` so parameters read the same however
     they were spaced. Parentheses around a ``.model`` parameter list become blank space.
+
+    Parameters
+    ----------
+    text
+        One logical line's statement, comments removed (:attr:`LogicalLine.text`).
     """
     if text.lstrip()[:6].lower() == ".model":
         text = _unwrap_model_parentheses(text)
@@ -329,7 +334,18 @@ class Statement:
 
 @dataclass(frozen=True)
 class SourceFile:
-    """One file of the netlist: its logical lines and the statements parsed from them."""
+    """One file of the netlist: its logical lines and the statements parsed from them.
+
+    Attributes
+    ----------
+    path
+        The file (absolute).
+    lines
+        Its logical lines, in file order (:func:`split_logical_lines`).
+    statements
+        The statements of those lines, in file order, without comment and blank lines or
+        the insides of ``.control`` blocks.
+    """
 
     path: Path
     lines: tuple[LogicalLine, ...]
@@ -362,6 +378,7 @@ class Subckt:
     body: tuple[Statement, ...]
 
     def port_index(self, port: str) -> int | None:
+        """The position of ``port`` among the ports (case-insensitive), or None."""
         lowered = [p.lower() for p in self.ports]
         return lowered.index(port.lower()) if port.lower() in lowered else None
 
@@ -451,6 +468,13 @@ def read_source(path: Path, text: str | None = None) -> SourceFile:
     and reads on, so statements after a ``.end`` are parsed too (the netlist file itself
     is read up to its ``.end`` by :func:`read_netlist`).
 
+    Parameters
+    ----------
+    path
+        The file; resolved to an absolute path.
+    text
+        Its content, when already at hand; None to read the file.
+
     Raises
     ------
     NetlistError
@@ -526,7 +550,8 @@ def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceF
 
 
 def lib_sections(path: Path) -> dict[str, Statement]:
-    """The ``.lib name`` sections a library file defines: lower-case name -> its statement."""
+    """The ``.lib name`` sections the library file ``path`` defines: lower-case name -> its
+    statement."""
     return _sections(read_source(path))
 
 
@@ -681,7 +706,22 @@ def _collect_subckts(netlist: Netlist, source: SourceFile, section: str | None) 
 
 
 def replace_param(statement: Statement, name: str, value: str) -> str:
-    """The text of a ``.param`` (or ``.subckt``) statement with parameter ``name`` set to ``value``."""
+    """The text of a ``.param`` (or ``.subckt``) statement with one parameter set.
+
+    Parameters
+    ----------
+    statement
+        The ``.param`` or ``.subckt`` statement.
+    name
+        The parameter (case-insensitive); it must be set in the statement already.
+    value
+        The new value text, e.g. ``"1.5p"``.
+
+    Raises
+    ------
+    NetlistError
+        If the statement does not set ``name``.
+    """
     tokens = list(statement.tokens)
     for i, token in enumerate(tokens[1:], start=1):
         prefix, body = _split_params_prefix(token)
@@ -724,7 +764,21 @@ def element_value(statement: Statement) -> str:
 
 
 def replace_element_value(statement: Statement, value: str) -> str:
-    """The text of an R, C or L element line with its value replaced."""
+    """The text of an R, C or L element line with its value replaced.
+
+    Parameters
+    ----------
+    statement
+        The element line.
+    value
+        The new value text, e.g. ``"2k"``; it replaces the positional value, or the
+        value of ``r=``, ``c=`` or ``l=`` (``resistance=`` ...) where that holds it.
+
+    Raises
+    ------
+    NetlistError
+        If the element is not an R, C or L, or has no value to set.
+    """
     tokens = list(statement.tokens)
     i = element_value_index(statement)
     key = tokens[i].partition("=")[0]
@@ -733,7 +787,17 @@ def replace_element_value(statement: Statement, value: str) -> str:
 
 
 def replace_instance_param(statement: Statement, name: str, value: str) -> str:
-    """The text of a device line with ``name=value`` set (added when absent), e.g. ``w=2u``."""
+    """The text of a device line with ``name=value`` set (added when absent), e.g. ``w=2u``.
+
+    Parameters
+    ----------
+    statement
+        The device line (a MOSFET's).
+    name
+        The instance parameter (case-insensitive), e.g. ``"w"``.
+    value
+        The new value text, e.g. ``"2u"``.
+    """
     tokens = list(statement.tokens)
     for i, token in enumerate(tokens[1:], start=1):
         key = token.partition("=")[0]

@@ -24,7 +24,8 @@ __all__ = ["OutFolder", "clean_json", "loop_gain_csv", "write_into"]
 
 
 def clean_json(value):
-    """Make a value JSON-safe: numpy scalars to floats, NaN/inf to None (never a number)."""
+    """Make ``value`` JSON-safe, through dicts, lists and tuples: numpy scalars to numbers,
+    NaN/inf to None (never a number), paths to text."""
     if isinstance(value, dict):
         return {str(k): clean_json(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
@@ -95,15 +96,19 @@ class OutFolder:
 
     def write_text(self, relative: str, text: str, *, durable: bool = False,
                    atomic: bool = True) -> Path:
-        """Write ``text`` to ``relative`` inside the folder (see :func:`write_into`)."""
+        """Write ``text`` to ``relative`` inside the folder, through a temporary file when
+        ``atomic`` and forced to disk first when ``durable`` (see :func:`write_into`)."""
         return write_into(self.path, relative, text, durable=durable, atomic=atomic)
 
     def write_json(self, relative: str, data: dict) -> Path:
+        """Write ``data`` as indented JSON (:func:`clean_json` first) to ``relative`` inside
+        the folder, atomically."""
         text = json.dumps(clean_json(data), indent=2, allow_nan=False) + "\n"
         return self.write_text(relative, text)
 
     def write_loop_gain_csv(self, relative: str, response: FrequencyResponse) -> None:
-        """The loop gain as CSV (see :func:`loop_gain_csv`)."""
+        """Write the loop gain ``response`` as CSV to ``relative`` inside the folder (see
+        :func:`loop_gain_csv`)."""
         self.write_text(relative, loop_gain_csv(response))
 
 
@@ -116,6 +121,24 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
     first (for results.json), which survives power loss at the cost of a sync. Per-corner
     files that a rerun writes again (decks, CSVs) are written in place. Usable in worker
     processes: it needs nothing but the folder's path.
+
+    Parameters
+    ----------
+    folder
+        The out folder, absolute.
+    relative
+        The file's path inside it; missing folders on the way are created.
+    text
+        The content, written as UTF-8 with line endings as they are.
+    durable
+        Force the file to disk before it counts as written.
+    atomic
+        Write a temporary file next to the target and rename it over the target.
+
+    Returns
+    -------
+    Path
+        The file written.
 
     Raises
     ------
@@ -147,8 +170,8 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
 
 
 def loop_gain_csv(response: FrequencyResponse) -> str:
-    """CSV text: frequency_hz, magnitude_db, phase_deg, real, imag; 12 significant digits
-    (1e-12 relative, well below what the analysis resolves)."""
+    """CSV text of the loop gain ``response``: frequency_hz, magnitude_db, phase_deg, real,
+    imag; 12 significant digits (1e-12 relative, well below what the analysis resolves)."""
     columns = np.column_stack([response.frequency_hz, response.magnitude_db,
                                response.phase_deg, response.values.real,
                                response.values.imag])

@@ -206,7 +206,13 @@ class WorkerPool:
     def run(
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
     ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError]]:
-        """Run every request; yield ``(key, output or SimulatorError)`` as each finishes."""
+        """Run every request; yield ``(key, output or SimulatorError)`` as each finishes.
+
+        Parameters
+        ----------
+        requests
+            ``(key, request)`` pairs; the key comes back with the request's result.
+        """
         pending: deque = deque((key, request, 0) for key, request in requests)
         while pending or self._in_flight():
             wanted = min(self.size, len(pending) + self._in_flight())

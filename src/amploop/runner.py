@@ -35,6 +35,12 @@ class Runner:
         Content hashes of the files the decks read (part of every key).
     ac_run, ac_reused
         AC analyses simulated, and AC analyses taken from the journal.
+    analyses_run
+        Requests simulated successfully (a request may hold several analyses).
+    simulator_seconds
+        Wall time, seconds, the workers spent inside ngspice on those requests.
+    transient_run, transient_reused
+        Transient analyses simulated, and transient analyses taken from the journal.
     """
 
     pool: WorkerPool
@@ -48,7 +54,7 @@ class Runner:
     transient_reused: int = 0
 
     def key_of(self, request: AnalysisRequest) -> str:
-        """The journal key of a request."""
+        """The journal key of ``request``."""
         return analysis_key(request, self.digests)
 
     def run(self, items: Iterable[tuple[Hashable, AnalysisRequest]]
@@ -58,6 +64,12 @@ class Runner:
         Recorded analyses come first (without simulating); the others run on the pool and
         are recorded as soon as each finishes (committed in batches, and all of them once
         the last one is in). Failed analyses are not recorded, so a rerun tries them again.
+
+        Parameters
+        ----------
+        items
+            ``(tag, request)`` pairs; requests with the same journal key are run once and
+            yielded once per tag.
         """
         by_key: dict[str, list[Hashable]] = {}
         requests: dict[str, AnalysisRequest] = {}

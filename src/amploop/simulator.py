@@ -133,6 +133,11 @@ class AnalysisOutput:
     after
         What the request's ``after`` returned in the worker (None: no such work, or it
         failed, which ``after_error`` then says; the caller does the work itself).
+    messages
+        Every line ngspice printed while loading the deck and running its steps.
+    after_error
+        Why the request's ``after`` failed in the worker (exception type and message);
+        None when it did not fail.
     """
 
     reads: tuple[dict[str, np.ndarray], ...]
@@ -145,7 +150,7 @@ class AnalysisOutput:
 
 
 def summarise_failure(lines: list[str]) -> str:
-    """One line naming what went wrong, from ngspice's messages."""
+    """One line naming what went wrong, from ngspice's messages ``lines``."""
     text = [line.strip() for line in lines if line.strip()]
     joined = " ".join(text).lower()
     singular = next((line for line in text if "singular matrix" in line.lower()), None)
@@ -241,6 +246,17 @@ class NgspiceSession:
 
     def run(self, request: AnalysisRequest) -> AnalysisOutput:
         """Load the deck, run its steps, read the vectors, free everything.
+
+        Parameters
+        ----------
+        request
+            The deck, its steps and the vectors each step reads; its label names the
+            analysis in errors.
+
+        Returns
+        -------
+        AnalysisOutput
+            The vectors read, one dict per step, with the warnings worth showing.
 
         Raises
         ------

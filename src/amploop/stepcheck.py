@@ -22,7 +22,30 @@ __all__ = ["StepCheck", "run_step_checks", "step_stop_s", "with_step"]
 
 @dataclass(frozen=True)
 class StepCheck:
-    """One corner's step response: figures, or the reason there are none."""
+    """One corner's step response: figures, or the reason there are none.
+
+    Attributes
+    ----------
+    corner
+        The corner's name.
+    key
+        The journal key of its transient analysis.
+    step_v, step_at_s, stop_s
+        The input step (volts), when it starts and the transient's length (seconds), as
+        simulated (:class:`~amploop.testbench.StepBench`).
+    metrics
+        Overshoot and settling; None when the analysis failed.
+    error
+        Why the analysis failed; None when it did not.
+    time_s, output_v
+        The transient: time, seconds, and the amplifier's output, volts; None when the
+        analysis failed.
+    resistance_share
+        With a MOSFET for Rc: the largest relative change of its channel resistance
+        during the step; None otherwise.
+    warning
+        Set when that change exceeds ``[transient].resistance_share``; None otherwise.
+    """
 
     corner: str
     key: str
@@ -37,6 +60,7 @@ class StepCheck:
     warning: str | None = None
 
     def as_json(self) -> dict:
+        """The corner's ``step`` entry in results.json."""
         m = self.metrics
         return {
             "analysis": self.key,
@@ -52,7 +76,22 @@ class StepCheck:
 
 
 def step_stop_s(amplifier: Amplifier, unity_gain_hz: list[float | None]) -> float:
-    """The transient's length: the job's, or long enough for the slowest corner to settle."""
+    """The transient's length: the job's, or long enough for the slowest corner to settle.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier; its job's ``[transient].stop``, seconds, wins when given.
+    unity_gain_hz
+        Each corner's unity-gain frequency, Hz (None where not measured); the lowest
+        decides (:func:`~amploop.timedomain.suggested_stop_s`), and 1 µs is used when none
+        is known.
+
+    Returns
+    -------
+    float
+        Seconds.
+    """
     if amplifier.job.transient.stop_s is not None:
         return amplifier.job.transient.stop_s
     known = [f for f in unity_gain_hz if f]
@@ -66,7 +105,31 @@ def run_step_checks(amplifier: Amplifier, corners: tuple[Corner, ...], values: d
 
     With a MOSFET standing in for Rc and its threshold per corner in ``device_vt``, the
     change of its channel resistance during the step is computed (square law) and a
-    warning set when it exceeds ``[transient].resistance_share``."""
+    warning set when it exceeds ``[transient].resistance_share``.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier; its job's ``[transient]`` gives the step and the band.
+    corners
+        The corners to simulate.
+    values
+        Compensation values by role, SI (farads, ohms, or the device size).
+    runner
+        Runs the transients through the journal.
+    stop_s
+        Length of each transient, seconds (:func:`step_stop_s`).
+    time_limit_s
+        Seconds one transient may take before it counts as hung.
+    device_vt
+        Corner name -> the device's threshold voltage VT, volts; None for no linearity
+        check.
+
+    Returns
+    -------
+    dict
+        Corner name -> :class:`StepCheck`, failed analyses included.
+    """
     spec = amplifier.job.transient
     benches = {c.name: build_step_testbench(amplifier, c, values, step_v=spec.step_v,
                                             stop_s=stop_s) for c in corners}
@@ -121,7 +184,8 @@ def check_from_output(name: str, key: str, step_v: float, step_at_s: float, stop
 
 
 def with_step(corner: dict, check: StepCheck | None) -> dict:
-    """A corner's JSON with its step-response figures added (null when not run)."""
+    """``corner``, a corner's JSON, with the step-response figures of ``check`` added (null
+    when not run)."""
     corner = dict(corner)
     corner["overshoot_pct"] = None if check is None or check.metrics is None else check.metrics.overshoot_pct
     corner["settling_time_s"] = None if check is None or check.metrics is None else check.metrics.settling_s

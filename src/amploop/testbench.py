@@ -44,7 +44,7 @@ NODE_FEEDBACK = "tb_fb"
 
 
 def port_node(port: str) -> str:
-    """Top-level node name the testbench gives a subckt port."""
+    """Top-level node name the testbench gives the subckt port ``port``."""
     return "tb_" + "".join(ch if ch.isalnum() or ch == "_" else "_" for ch in port.lower())
 
 
@@ -68,6 +68,8 @@ class Testbench:
         Files the deck reads (absolute paths).
     notes
         Lines of the user's netlist left out of the testbench, and similar remarks.
+    label
+        Names the analysis in messages and in the journal (empty: the corner's name).
     """
 
     corner: Corner
@@ -80,12 +82,13 @@ class Testbench:
     label: str = ""
 
     def request(self, time_limit_s: float, after=None) -> AnalysisRequest:
-        """The analysis request for a worker (``after``: see :class:`AnalysisRequest`)."""
+        """The analysis request for a worker, hung after ``time_limit_s`` seconds (``after``:
+        see :class:`AnalysisRequest`)."""
         return AnalysisRequest(label=self.label or self.corner.name, deck=self.deck,
                                steps=self.steps, time_limit_s=time_limit_s, after=after)
 
     def loop_gain(self, output: AnalysisOutput) -> FrequencyResponse:
-        """The loop gain from a finished analysis of this testbench."""
+        """The loop gain from ``output``, a finished analysis of this testbench."""
         return self.probe.loop_gain(output.reads, NODE_AMP, NODE_FEEDBACK)
 
     def hand_deck(self, data_file: str = "loop_gain.txt") -> str:
@@ -93,6 +96,11 @@ class Testbench:
 
         It runs the same commands and writes the loop gain (frequency, real, imaginary)
         to ``data_file`` with ngspice's ``wrdata``.
+
+        Parameters
+        ----------
+        data_file
+            The file the deck writes, relative to where ngspice runs.
         """
         lines = [
             ".control",
@@ -154,6 +162,8 @@ def build_testbench(
         Defaults to the job's ``[analysis].probe``.
     ac_command
         Defaults to the job's sweep.
+    label
+        Names the analysis in messages and in the journal (default: the corner's name).
     extra_steps
         Commands to run before the probe's (e.g. an ``op`` that reads device gm).
 
@@ -179,6 +189,20 @@ class StepBench:
 
     The signal source steps by ``step_v`` at ``step_at_s``; the output moves by the
     closed-loop gain times that (−Z2/Z1 for the inverting configuration).
+
+    Attributes
+    ----------
+    corner, values, deck, label
+        As for :class:`Testbench`.
+    steps
+        The one ``tran`` step, reading time, the output and (with a device for Rc) the
+        device's terminals.
+    step_v
+        Size of the input step, volts.
+    step_at_s
+        When the step starts, seconds.
+    stop_s
+        Length of the transient, seconds.
     """
 
     corner: Corner
@@ -191,6 +215,7 @@ class StepBench:
     label: str = ""
 
     def request(self, time_limit_s: float) -> AnalysisRequest:
+        """The analysis request for a worker, hung after ``time_limit_s`` seconds."""
         return AnalysisRequest(label=self.label or self.corner.name, deck=self.deck,
                                steps=self.steps, time_limit_s=time_limit_s)
 
@@ -206,15 +231,24 @@ def build_step_testbench(
 ) -> StepBench:
     """Write the closed-loop step-response deck for one corner.
 
+    The deck tightens ngspice's tolerances (reltol 1e-6, vntol 1 nV) so that a 0.1 %
+    settling band of a few-millivolt step is resolved; the loop-gain decks are left alone.
+
     Parameters
     ----------
+    amplifier, corner, values
+        As for :func:`build_testbench`.
     step_v
         Size of the input step at the signal source, volts (small: the loop stays linear).
     stop_s
         Length of the transient, seconds; the step comes at 2 % of it.
+    label
+        Names the analysis in messages and in the journal (default: the corner's name
+        followed by ``(step)``).
 
-    The deck tightens ngspice's tolerances (reltol 1e-6, vntol 1 nV) so that a 0.1 %
-    settling band of a few-millivolt step is resolved; the loop-gain decks are left alone.
+    Returns
+    -------
+    StepBench
     """
     from .expressions import evaluate
 

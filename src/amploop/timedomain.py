@@ -99,6 +99,11 @@ def damping_from_phase_margin(pm_deg: float) -> float:
     """ζ of the standard second-order loop ωn²/(s(s + 2ζωn)) with phase margin ``pm_deg``.
 
     Inverts PM = atan(2ζ / √(√(1 + 4ζ⁴) − 2ζ²)) (Ogata) by bisection.
+
+    Parameters
+    ----------
+    pm_deg
+        The phase margin, degrees.
     """
     target = math.radians(pm_deg)
 
@@ -116,12 +121,14 @@ def damping_from_phase_margin(pm_deg: float) -> float:
 
 
 def overshoot_from_damping(zeta: float) -> float:
-    """Percent overshoot exp(−πζ/√(1−ζ²))·100 of a second-order step (0 for ζ ≥ 1)."""
+    """Percent overshoot exp(−πζ/√(1−ζ²))·100 of a second-order step with damping ζ =
+    ``zeta`` (0 for ζ ≥ 1)."""
     if zeta >= 1:
         return 0.0
     return 100.0 * math.exp(-math.pi * zeta / math.sqrt(1 - zeta**2))
 
 
 def suggested_stop_s(unity_gain_hz: float, settle_constants: float = 40.0) -> float:
-    """A transient length that lets a loop with this crossover settle: 40 / (2π·f_u)."""
+    """A transient length, seconds, that lets a loop with crossover f_u = ``unity_gain_hz``
+    (Hz) settle: ``settle_constants`` / (2π·f_u), 40 time constants by default."""
     return settle_constants / (2 * math.pi * unity_gain_hz)

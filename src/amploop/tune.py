@@ -33,7 +33,41 @@ __all__ = ["TuneResult", "tune"]
 
 @dataclass(frozen=True)
 class TuneResult:
-    """A finished tuning run."""
+    """A finished tuning run.
+
+    Attributes
+    ----------
+    job
+        The job tuned.
+    strategy
+        The strategy's name (``"map"``, ``"textbook"``).
+    outcome
+        What the strategy returned: status, values, the verified point, message.
+    history
+        Every simulated point, in order.
+    ac_run, ac_reused
+        AC analyses simulated, and AC analyses taken from the journal.
+    out
+        The out folder.
+    seconds
+        Wall time of the run, seconds.
+    compensated
+        The compensated netlist: ``{"path", "files", "diff"}``; None without a verified
+        point.
+    loop_gains
+        (history step, corner name) -> the loop gain simulated there.
+    simulator_seconds
+        Wall time, seconds, the workers spent inside ngspice.
+    step_checks
+        Corner name -> :class:`~amploop.stepcheck.StepCheck` at the final values (empty
+        when not run).
+    transient_run, transient_reused
+        Transient analyses simulated, and transient analyses taken from the journal.
+    values_in_netlist
+        The compensation values the netlist holds, by role, SI.
+    warnings
+        Remarks on the amplifier, then the step checks' warnings.
+    """
 
     job: Job
     strategy: str
@@ -61,6 +95,7 @@ class TuneResult:
         return self.outcome.final.corners if self.outcome.final else ()
 
     def as_json(self) -> dict:
+        """The content of results.json for this tuning run."""
         target = self.job.target
         worst = self.outcome.final.worst if self.outcome.final else None
         return {

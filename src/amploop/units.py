@@ -80,6 +80,11 @@ def spice_number(value: float) -> str:
 
     Python's shortest round-trip form (``1e-12``, ``1.5e-12``): as exact as ``%.17g`` and
     easier to read; ``%g`` would lose about 5e-6 relative.
+
+    Parameters
+    ----------
+    value
+        The value in SI units.
     """
     return repr(float(value))
 
@@ -92,6 +97,15 @@ def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
     """Show a value with an SI prefix for people: ``engineering(1.23e7, "Hz") == "12.3 MHz"``.
 
     ``None`` and NaN show as ``"–"``; infinities as ``"inf"``.
+
+    Parameters
+    ----------
+    value
+        The value in SI units.
+    unit
+        The unit's symbol after the prefix (``"Hz"``, ``"F"``, ``"Ω"``); empty for none.
+    digits
+        Significant digits shown.
     """
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "–"
@@ -117,6 +131,19 @@ def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: st
     """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits).
 
     ``device`` = (name, size key) when a MOSFET stands in for Rc: ``"Mz w = 2.1 µm"``.
+
+    Parameters
+    ----------
+    values
+        Compensation values by role, SI: ``cc`` in farads, ``rc`` in ohms or the device
+        size (metres, or a count for ``m``); other roles are left out.
+    equals
+        What stands between a name and its value.
+    joiner
+        What stands between two values.
+    device
+        (device name, size key ``"w"``, ``"l"`` or ``"m"``) when a MOSFET stands in for
+        Rc; None for a resistor.
     """
     parts = []
     if "cc" in values:

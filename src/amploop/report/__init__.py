@@ -27,7 +27,21 @@ PNG_CORNER_PAGES = 30
 
 
 class ReportOutcome:
-    """Where the report went and what it took."""
+    """Where the report went and what it took.
+
+    Parameters
+    ----------
+    pdf
+        The PDF written.
+    pngs
+        The PNG copies written, in page order.
+    pages
+        How many pages the PDF has.
+    seconds
+        Wall time of reading and drawing, seconds.
+    analyses_read
+        How many analyses were read from the journal.
+    """
 
     def __init__(self, pdf: Path, pngs: list[Path], pages: int, seconds: float,
                  analyses_read: int) -> None:
@@ -41,6 +55,15 @@ def build_report(out: str | Path, *, pngs: bool = True) -> ReportOutcome:
     Pages: summary and corner table (continued over pages for long corner lists); one
     page per corner in the job's order; the compensation map of the limiting corner; how
     the tuning converged; the closed-loop step responses.
+
+    Parameters
+    ----------
+    out
+        The out folder of a ``measure`` or ``tune`` run.
+    pngs
+        Also write PNG copies of the first page and the plot pages into ``report/``,
+        replacing those there (beyond :data:`PNG_CORNER_PAGES` corners, of the corner
+        pages only the limiting corner's).
 
     Raises
     ------

@@ -27,7 +27,18 @@ __all__ = ["Curve", "ReportData", "load_report_data"]
 
 @dataclass(frozen=True)
 class Curve:
-    """One loop gain on a corner page: what it is, its values, and how to draw it."""
+    """One loop gain on a corner page: what it is, its values, and how to draw it.
+
+    Attributes
+    ----------
+    label
+        The legend's text: the step and the values.
+    kind
+        ``"final"`` (the final values; measure: the netlist's), ``"start"`` (the netlist's
+        values, predicted from the map) or ``"step"`` (a step of the tuning).
+    response
+        The loop gain.
+    """
 
     label: str
     kind: str  # "final", "start", "step"
@@ -36,7 +47,28 @@ class Curve:
 
 @dataclass
 class ReportData:
-    """The figures of one out folder, ready to draw."""
+    """The figures of one out folder, ready to draw.
+
+    Attributes
+    ----------
+    out
+        The out folder (absolute).
+    results
+        Its results.json as read.
+    corner_names
+        The corners in the job's order.
+    curves
+        Corner name -> the loop gains of its page, in drawing order.
+    finals
+        Corner name -> its loop gain at the final values (corners that measured).
+    steps
+        Corner name -> its step response (corners whose step check gave figures).
+    maps
+        Corner name -> its compensation map from the last three map samples of the
+        history (empty without them).
+    analyses_read
+        How many analyses were read from the journal.
+    """
 
     out: Path
     results: dict
@@ -59,6 +91,7 @@ class ReportData:
         return min(ok, key=lambda c: c["phase_margin_deg"])["name"] if ok else None
 
     def corner(self, name: str) -> dict:
+        """The entry of corner ``name`` in results.json."""
         return next(c for c in self.results["corners"] if c["name"] == name)
 
 
@@ -79,6 +112,11 @@ _KIND_WORDS = {
 
 def load_report_data(out: str | Path) -> ReportData:
     """Read an out folder written by ``measure`` or ``tune``.
+
+    Parameters
+    ----------
+    out
+        The out folder; results.json and the journal are read, nothing is written.
 
     Raises
     ------

@@ -90,7 +90,17 @@ def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:
 
 
 def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") -> list:
-    """Page 1 (and continuation pages of the corner table for long corner lists)."""
+    """Page 1 (and continuation pages of the corner table for long corner lists).
+
+    Parameters
+    ----------
+    data
+        The out folder's figures.
+    date
+        The date and time shown under the title.
+    render_seconds_hint
+        Text added after the cautions in the first page's footer (empty: nothing).
+    """
     r = data.results
     rows = _corner_rows(data)
     limiting = {i for i, c in enumerate(r["corners"]) if c["name"] == data.limiting_corner}
@@ -158,7 +168,17 @@ def _footer(fig, extra: str = "") -> None:
 
 
 def corner_page(data: ReportData, name: str, target_pm: float | None):
-    """Magnitude and phase of one corner's loop gain, with the tuning's story."""
+    """Magnitude and phase of one corner's loop gain, with the tuning's story.
+
+    Parameters
+    ----------
+    data
+        The out folder's figures.
+    name
+        The corner.
+    target_pm
+        The target phase margin, degrees, drawn on the phase plot; None for none.
+    """
     corner = data.corner(name)
     fig = _figure()
     limiting = name == data.limiting_corner
@@ -263,7 +283,8 @@ def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray):
 
 
 def map_page(data: ReportData):
-    """Phase margin and unity-gain frequency of the limiting corner over (Cc, Rc)."""
+    """Phase margin and unity-gain frequency of the limiting corner over (Cc, Rc), from
+    its compensation map in ``data``."""
     name = data.limiting_corner
     cmap = data.maps.get(name) if name else None
     fig = _figure()
@@ -353,7 +374,16 @@ _POINT_WORDS = {
 
 
 def convergence_page(data: ReportData, target_pm: float | None):
-    """Worst-corner phase margin and unity-gain frequency against the analyses spent."""
+    """Worst-corner phase margin and unity-gain frequency against the analyses spent.
+
+    Parameters
+    ----------
+    data
+        The out folder's figures; the tuning history comes from its results.json.
+    target_pm
+        The target phase margin, degrees: the band from it to the tolerance above it is
+        shaded; None for none.
+    """
     history = [h for h in data.results.get("history", [])
                if h["kind"] != "report-map" and h.get("worst_phase_margin_deg") is not None]
     fig = _figure()
@@ -398,7 +428,8 @@ def convergence_page(data: ReportData, target_pm: float | None):
 
 
 def time_domain_page(data: ReportData):
-    """The closed-loop small-step response of every corner at the final values."""
+    """The closed-loop small-step response of every corner at the final values, from the
+    step responses in ``data``."""
     fig = _figure()
     fig.text(0.06, 0.95, "Closed-loop step response at the final values", fontsize=13,
              weight="bold")

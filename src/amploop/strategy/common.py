@@ -56,7 +56,8 @@ class WorstCase:
 
 
 def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
-    """The worst figures over corners, or None if any corner did not measure."""
+    """The worst figures over ``corners`` (one point's results), or None if there are none or
+    any corner did not measure."""
     if not corners or any(c.status != "ok" or c.margins is None for c in corners):
         return None
     by_pm = min(corners, key=lambda c: c.margins.phase_margin_deg)
@@ -72,7 +73,9 @@ def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
 
 
 def meets_target(worst: WorstCase | None, target: Target) -> bool:
-    """Worst phase margin at or above the target and gain margin at or above its minimum."""
+    """Whether ``worst`` has its phase margin at or above that of ``target`` and its gain
+    margin at or above the target's minimum (a point without a gain margin passes that);
+    False when ``worst`` is None."""
     if worst is None or worst.phase_margin_deg < target.phase_margin_deg:
         return False
     if target.gain_margin_db is not None and worst.gain_margin_db is not None:
@@ -82,7 +85,15 @@ def meets_target(worst: WorstCase | None, target: Target) -> bool:
 
 @dataclass(frozen=True)
 class PointResult:
-    """One point simulated at every corner."""
+    """One point simulated at every corner.
+
+    Attributes
+    ----------
+    values
+        The compensation values in effect by role, SI.
+    corners
+        One result per corner, in the evaluator's corner order.
+    """
 
     values: dict[str, float]
     corners: tuple[CornerResult, ...]
@@ -98,7 +109,27 @@ class PointResult:
 
 @dataclass(frozen=True)
 class HistoryEntry:
-    """One simulated point in the story of a tuning run."""
+    """One simulated point in the story of a tuning run.
+
+    Attributes
+    ----------
+    step
+        Its number in the history, from 1.
+    kind
+        What it was simulated for: ``"characterise"``, ``"verify"``, ``"start"``,
+        ``"dominant-pole"``, ``"lead"``, ``"adjust-cc"``, ``"evaluate"`` or
+        ``"report-map"`` (samples for the report only).
+    values
+        The compensation values in effect by role, SI.
+    worst
+        Its worst-corner figures; None when a corner did not measure.
+    ac_analyses
+        AC analyses (run and reused) so far, this point included.
+    note
+        A remark, such as the round it belongs to.
+    analyses
+        Corner name -> journal key of its analysis.
+    """
 
     step: int
     kind: str
@@ -109,6 +140,7 @@ class HistoryEntry:
     analyses: dict[str, str] = field(default_factory=dict)  # corner -> journal key
 
     def as_json(self) -> dict:
+        """The entry's record in the ``history`` of results.json."""
         w = self.worst
         return {
             "step": self.step,
@@ -130,6 +162,20 @@ class Outcome:
 
     ``status`` is ``"converged"``, ``"infeasible"`` or ``"failed"``; ``final`` is the
     verified (simulated) point the status is about; ``message`` explains in one sentence.
+
+    Attributes
+    ----------
+    status
+        ``"converged"``, ``"infeasible"`` or ``"failed"``.
+    values
+        The chosen compensation values by role, SI.
+    final
+        The verified point at those values; None when there is none.
+    message
+        One sentence on the result.
+    extra
+        What the strategy adds for results.json (the map's predictions and rounds; the
+        device's figures per corner under ``"device"``).
     """
 
     status: str
@@ -140,7 +186,8 @@ class Outcome:
 
 
 def bounds_of(knob: Knob | None, fallback: float) -> tuple[float, float]:
-    """(min, max) of a knob, SI; a knob without bounds is fixed at ``fallback``."""
+    """(min, max) of ``knob``, SI; a bound it lacks is ``fallback``, and so are both when
+    ``knob`` is None."""
     if knob is None:
         return fallback, fallback
     low = knob.minimum if knob.minimum is not None else fallback
@@ -178,11 +225,28 @@ class Evaluator:
         return self.runner.ac_run + self.runner.ac_reused
 
     def full_values(self, values: dict[str, float]) -> dict[str, float]:
+        """The compensation values in effect with ``values`` (by role, SI) applied."""
         return self.amplifier.values_in_effect(values)
 
     def simulate(self, points: list[dict[str, float]], kind: str, note: str = ""
                  ) -> list[PointResult]:
-        """Simulate every point at every corner in one parallel batch; record history."""
+        """Simulate every point at every corner in one parallel batch; record history.
+
+        Parameters
+        ----------
+        points
+            Compensation values by role, SI; roles left out keep the netlist's value.
+        kind
+            What the points are for, recorded in their history entries
+            (:attr:`HistoryEntry.kind`).
+        note
+            A remark recorded with each of them.
+
+        Returns
+        -------
+        list of PointResult
+            One per point, in order.
+        """
         points = [self.full_values(p) for p in points]
         benches = {}
         for i, values in enumerate(points):
@@ -221,6 +285,18 @@ class Evaluator:
 
         Runs an ``op`` (no AC) per corner; raises SimulatorError naming the corner when a
         quantity cannot be read.
+
+        Parameters
+        ----------
+        quantities
+            Name -> ngspice's expression of the quantity.
+        values
+            Compensation values by role, SI; roles left out keep the netlist's value.
+
+        Returns
+        -------
+        dict
+            Corner name -> name -> value (SI).
         """
         values = self.full_values(values)
         names = list(quantities)

@@ -27,7 +27,24 @@ __all__ = ["device_operating_points", "model_card", "tune_device_by_map"]
 
 def model_card(evaluator: Evaluator, corner, model: str) -> dict[str, float]:
     """KP and VTO (and any other numeric parameter) of ``.model model`` for a corner, from
-    the user's netlist or the corner's section of the models file; empty if not found."""
+    the user's netlist or the corner's section of the models file; empty if not found.
+
+    Parameters
+    ----------
+    evaluator
+        Gives the prepared amplifier (its netlist files and the job's models file).
+    corner
+        The corner whose ``lib`` section of the models file is searched (the statements
+        outside any section when it has none).
+    model
+        The model's name (case-insensitive).
+
+    Returns
+    -------
+    dict
+        Lower-case parameter name -> value, SI; parameters that do not evaluate to a
+        number are left out.
+    """
     from ..expressions import evaluate
     from ..netlist import read_source
 
@@ -57,7 +74,20 @@ def model_card(evaluator: Evaluator, corner, model: str) -> dict[str, float]:
 
 
 def device_operating_points(evaluator: Evaluator, values: dict[str, float]) -> dict[str, dict]:
-    """g_ds, VGS, VDS, VDSAT of the device at every corner; TuningError if not in triode."""
+    """g_ds, VGS, VDS, VDSAT of the device at every corner; TuningError if not in triode.
+
+    Parameters
+    ----------
+    evaluator
+        Runs the operating points at every corner; its amplifier's device stands in for Rc.
+    values
+        Compensation values by role, SI (``rc``: the device's size).
+
+    Returns
+    -------
+    dict
+        Corner name -> ``{"gds", "vgs", "vds", "vdsat"}`` (siemens, volts).
+    """
     device = evaluator.amplifier.device
     found = evaluator.device_quantities(
         {q: device.quantity(q) for q in ("gds", "vgs", "vds", "vdsat")}, values)
@@ -75,7 +105,26 @@ def device_operating_points(evaluator: Evaluator, values: dict[str, float]) -> d
 
 
 def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 4) -> Outcome:
-    """Tune Cc and the device size; see the module docstring."""
+    """Tune Cc and the device size; see the module docstring.
+
+    Parameters
+    ----------
+    evaluator
+        Simulates points at every corner of its job, within the job's bounds; its
+        amplifier has a device standing in for Rc.
+    target
+        The worst-corner phase margin to reach (aiming a tenth of the tolerance above it),
+        the tolerance, and the minimum gain margin.
+    max_rounds
+        How many times at most to read the operating points, characterise, solve and
+        verify.
+
+    Returns
+    -------
+    Outcome
+        As for :func:`~.mapping.tune_by_map`; ``extra["device"]`` holds the device's
+        figures per corner.
+    """
     amplifier = evaluator.amplifier
     device = amplifier.device
     knobs = amplifier.job.compensation

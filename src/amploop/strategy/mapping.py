@@ -24,7 +24,17 @@ __all__ = ["initial_samples", "tune_by_map"]
 
 
 def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dict[str, float]]:
-    """Three Cc values spread over the bounds (geometric quarter points) at one Rc."""
+    """Three Cc values spread over the bounds at one Rc.
+
+    Parameters
+    ----------
+    cc_bounds
+        (min, max) of Cc, farads: the samples sit at 15, 50 and 85 % of the way from one
+        to the other on a log scale; at 0.8, 1 and 1.25 times the lower bound when the
+        bounds are equal.
+    rc_value
+        The Rc of all three, ohms (or the size of a device standing in for Rc).
+    """
     low, high = cc_bounds
     if high <= low:
         centre = low
@@ -55,6 +65,20 @@ def _maps(evaluator: Evaluator, results: list[PointResult]) -> dict[str, Compens
 
 def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) -> Outcome:
     """Run the map strategy; see the module docstring.
+
+    With a MOSFET standing in for Rc, :func:`~.devicemap.tune_device_by_map` runs instead
+    (with at least four rounds).
+
+    Parameters
+    ----------
+    evaluator
+        Simulates points at every corner of its job, within the job's bounds (a value
+        without bounds stays at the netlist's).
+    target
+        The worst-corner phase margin to reach (aiming a tenth of the tolerance above it),
+        the tolerance, and the minimum gain margin.
+    max_rounds
+        How many times at most to characterise, solve and verify.
 
     Returns
     -------

@@ -24,7 +24,26 @@ __all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "solve_on_map
 
 @dataclass(frozen=True)
 class MapSolution:
-    """The best point found on the maps, with its predicted worst-corner figures."""
+    """The best point found on the maps, with its predicted worst-corner figures.
+
+    Attributes
+    ----------
+    cc
+        Cc, farads.
+    rc
+        Rc, ohms (the device's size when a device stands in for Rc).
+    feasible
+        Whether the point meets the phase-margin aim and the gain-margin minimum.
+    phase_margin_deg
+        The predicted worst-corner phase margin, degrees.
+    unity_gain_hz
+        The predicted worst-corner unity-gain frequency, Hz.
+    gain_margin_db
+        The predicted worst-corner gain margin, dB; None when no corner has a phase
+        crossover.
+    limiting_corner
+        The corner with the smallest predicted phase margin.
+    """
 
     cc: float
     rc: float
@@ -36,14 +55,17 @@ class MapSolution:
 
 
 def cc_grid(low: float, high: float, n: int) -> np.ndarray:
-    """Log-spaced capacitances (F) over [low, high]; one value when the bounds are equal."""
+    """``n`` log-spaced capacitances (F) over [``low``, ``high``]; ``low`` alone when
+    ``high`` is not above it."""
     if high <= low:
         return np.array([low])
     return np.geomspace(low, high, n)
 
 
 def rc_grid(low: float, high: float, n: int) -> np.ndarray:
-    """Resistances (Ω) over [low, high]: log-spaced, with ``low`` itself when it is 0."""
+    """``n`` resistances (Ω) over [``low``, ``high``]: log-spaced, or, when ``low`` is 0, 0
+    and ``n`` − 1 log-spaced from 1e-4·``high`` (1 mΩ at least); ``low`` alone when ``high``
+    is not above it."""
     if high <= low:
         return np.array([low])
     if low <= 0:
@@ -96,7 +118,20 @@ def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min):
 
 
 def predicted_worst(maps: dict[str, CompensationMap], cc: float, rc: float, rc_of=None):
-    """Exact worst-corner (PM deg, UGF Hz, GM dB or None, limiting corner) at one point."""
+    """Exact worst-corner (PM deg, UGF Hz, GM dB or None, limiting corner) at one point.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    cc
+        Cc, farads.
+    rc
+        Rc, ohms; or, with ``rc_of``, the size of the device standing in for Rc.
+    rc_of
+        For a device standing in for Rc: corner name -> function from the device's size to
+        that corner's channel resistance (Ω); None for a resistor.
+    """
     worst_pm, worst_ugf, worst_gm, limiting = np.inf, np.inf, None, ""
     for name, cmap in maps.items():
         rc_here = rc if rc_of is None else float(rc_of[name](np.array([rc]))[0])

@@ -23,7 +23,18 @@ __all__ = ["tune_by_optimizer"]
 
 def tune_by_optimizer(evaluator: Evaluator, target: Target, *, max_evaluations: int = 60
                       ) -> Outcome:
-    """Run COBYLA from the netlist's values (clipped into the bounds)."""
+    """Run COBYLA from the netlist's values (clipped into the bounds).
+
+    Parameters
+    ----------
+    evaluator
+        Simulates points at every corner of its job, within the job's bounds.
+    target
+        The worst-corner phase margin and the minimum gain margin to reach.
+    max_evaluations
+        COBYLA's iteration limit (``maxiter``); a point it tries again is not simulated
+        again.
+    """
     knobs = evaluator.amplifier.job.compensation
     in_effect = evaluator.full_values({})
     cc_lo, cc_hi = bounds_of(knobs["cc"], in_effect["cc"])

@@ -49,7 +49,34 @@ def _clip(value: float, bounds: tuple[float, float]) -> float:
 
 def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: float = 25.0,
                      max_cc_steps: int = 12) -> Outcome:
-    """Run the textbook procedure; see the module docstring."""
+    """Run the textbook procedure; see the module docstring.
+
+    Parameters
+    ----------
+    evaluator
+        Simulates points at every corner of its job, within the job's bounds; the job
+        names ``input_device`` and ``second_stage_device``.
+    target
+        The worst-corner phase margin to reach, the tolerance above it, and the minimum
+        gain margin.
+    lead_share_deg
+        The lead zero's share of the phase margin, degrees: the dominant-pole step aims at
+        the target less this, and the zero goes to k·ωt with k = 1/tan(this).
+    max_cc_steps
+        How many times at most Cc is moved with Rc fixed at the end.
+
+    Returns
+    -------
+    Outcome
+        ``converged`` when the last point meets the target, else ``failed`` (never
+        ``infeasible``: the procedure cannot prove that nothing works).
+
+    Raises
+    ------
+    TuningError
+        Without ``input_device`` and ``second_stage_device``, or with a MOSFET standing
+        in for Rc.
+    """
     amp = evaluator.amplifier.job.amplifier
     if not amp.input_device or not amp.second_stage_device:
         raise TuningError(

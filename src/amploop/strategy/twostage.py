@@ -30,6 +30,15 @@ def feedback_factor(kind: str, z_in: float, z_fb: float) -> float:
     """β of the inverting configuration, ignoring the amplifier's input capacitance.
 
     Resistive: β = Rin/(Rin + Rfb). Capacitive: β = Cfb/(Cin + Cfb).
+
+    Parameters
+    ----------
+    kind
+        ``"resistive"`` or ``"capacitive"``.
+    z_in
+        Z1 from the signal source to the inverting input: Rin, ohms, or Cin, farads.
+    z_fb
+        Z2 from the output to the inverting input: Rfb, ohms, or Cfb, farads.
     """
     if kind == "resistive":
         return z_in / (z_in + z_fb)
@@ -37,7 +46,19 @@ def feedback_factor(kind: str, z_in: float, z_fb: float) -> float:
 
 
 def effective_load(kind: str, cl: float, z_in: float, z_fb: float) -> float:
-    """The capacitance the output drives: CL plus, for a capacitive loop, Cin in series with Cfb."""
+    """The capacitance the output drives: CL plus, for a capacitive loop, Cin in series with
+    Cfb.
+
+    Parameters
+    ----------
+    kind
+        ``"resistive"`` or ``"capacitive"``.
+    cl
+        The load capacitance CL, farads.
+    z_in, z_fb
+        Z1 and Z2 of the feedback network: ohms (resistive) or farads (capacitive; Cin
+        and Cfb).
+    """
     if kind == "capacitive" and z_in + z_fb > 0:
         return cl + z_in * z_fb / (z_in + z_fb)
     return cl
@@ -45,7 +66,24 @@ def effective_load(kind: str, cl: float, z_in: float, z_fb: float) -> float:
 
 def starting_cc(beta: float, gm1: float, cl_eff: float, gm2: float) -> float:
     """Cc = β·gm1·CL,eff/gm2: puts the loop's crossover β·gm1/Cc at the second pole gm2/CL,eff,
-    about 45° of phase margin on a two-pole loop (more once the pole splitting is counted)."""
+    about 45° of phase margin on a two-pole loop (more once the pole splitting is counted).
+
+    Parameters
+    ----------
+    beta
+        The feedback factor β (:func:`feedback_factor`).
+    gm1
+        Transconductance of the input pair's transistor, siemens.
+    cl_eff
+        The capacitance the output drives (:func:`effective_load`), farads.
+    gm2
+        Transconductance of the second-stage driver, siemens.
+
+    Returns
+    -------
+    float
+        Cc, farads.
+    """
     return beta * gm1 * cl_eff / gm2
 
 
@@ -57,13 +95,45 @@ def lead_ratio(lead_share_deg: float) -> float:
 
 def lead_resistor(gm2: float, k: float, omega_t: float, cc: float) -> float:
     """Rc = 1/gm2 + 1/(k·ωt·Cc): cancels the right-half-plane zero (the 1/gm2 part) and puts
-    a left-half-plane zero at k·ωt."""
+    a left-half-plane zero at k·ωt.
+
+    Parameters
+    ----------
+    gm2
+        Transconductance of the second-stage driver, siemens.
+    k
+        Where the zero goes, as a multiple of ωt (:func:`lead_ratio`).
+    omega_t
+        The loop's unity-gain frequency ωt, rad/s.
+    cc
+        Cc, farads.
+
+    Returns
+    -------
+    float
+        Rc, ohms.
+    """
     return 1.0 / gm2 + 1.0 / (k * omega_t * cc)
 
 
 def rhp_zero_rad_s(cc: float, gm2: float, rc: float) -> float:
     """ωz = 1/(Cc·(1/gm2 − Rc)): positive is a right-half-plane zero, negative a left one,
-    infinite when Rc = 1/gm2."""
+    infinite when Rc = 1/gm2.
+
+    Parameters
+    ----------
+    cc
+        Cc, farads.
+    gm2
+        Transconductance of the second-stage driver, siemens.
+    rc
+        Rc, ohms.
+
+    Returns
+    -------
+    float
+        ωz, rad/s.
+    """
     denominator = cc * (1.0 / gm2 - rc)
     return math.inf if denominator == 0 else 1.0 / denominator
 
@@ -72,6 +142,13 @@ def where_phase_is(response: FrequencyResponse, phase_deg: float) -> tuple[float
     """The first frequency (Hz) where the unwrapped phase falls to ``phase_deg``, and |T| there.
 
     Linear interpolation in log-frequency between samples; None if the phase never gets there.
+
+    Parameters
+    ----------
+    response
+        A loop gain.
+    phase_deg
+        The phase to find, degrees (unwrapped from DC, e.g. −155).
     """
     phase = response.phase_deg
     x = np.log10(response.frequency_hz)
