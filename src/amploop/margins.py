@@ -129,19 +129,27 @@ def _log_axes(response: FrequencyResponse) -> tuple[np.ndarray, np.ndarray, np.n
 def gain_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
     """Every 0 dB crossing of the loop gain ``response`` as (frequency Hz, phase margin
     degrees), in frequency order."""
-    x, m, p = _log_axes(response)
-    result = []
-    for i, xr in _roots(x, m, 0.0):
-        result.append((float(10.0**xr), 180.0 + _cubic_at(x, p, i, xr)))
-    return result
+    return _gain_crossings(*_log_axes(response))
+
+
+def _gain_crossings(x: np.ndarray, m: np.ndarray, p: np.ndarray) -> list[tuple[float, float]]:
+    return [(float(10.0**xr), 180.0 + _cubic_at(x, p, i, xr)) for i, xr in _roots(x, m, 0.0)]
 
 
 def phase_crossings(response: FrequencyResponse) -> list[tuple[float, float]]:
     """Every phase crossover (∠T = −180° + k·360°) of the loop gain ``response`` as
     (frequency Hz, gain margin dB), in frequency order."""
-    x, m, p = _log_axes(response)
-    turns = np.floor((p + 180.0) / 360.0)
-    levels = {-180.0 + 360.0 * k for k in range(int(turns.min()), int(turns.max()) + 2)}
+    return _phase_crossings(*_log_axes(response))
+
+
+def _phase_crossings(x: np.ndarray, m: np.ndarray, p: np.ndarray) -> list[tuple[float, float]]:
+    # only the levels −180° + k·360° that the phase reaches: it moves by at most 180°
+    # between samples (unwrapped), so each interval passes at most one of them
+    q = (p + 180.0) / 360.0
+    turns = np.floor(q)
+    passed = np.maximum(turns[:-1], turns[1:])[turns[:-1] != turns[1:]]
+    touched = q[q == turns]
+    levels = {-180.0 + 360.0 * float(k) for k in np.concatenate([passed, touched])}
     found = []
     for level in levels:
         for i, xr in _roots(x, p, level):
@@ -175,8 +183,9 @@ def loop_margins(response: FrequencyResponse) -> Margins:
     >>> round(loop_margins(FrequencyResponse(f, T)).phase_margin_deg, 2)
     51.83
     """
-    gains = gain_crossings(response)
-    phases = phase_crossings(response)
+    axes = _log_axes(response)
+    gains = _gain_crossings(*axes)
+    phases = _phase_crossings(*axes)
     dc_db = float(response.magnitude_db[0])
     if gains:
         worst = min(gains, key=lambda c: c[1])
