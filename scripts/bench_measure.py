@@ -271,7 +271,7 @@ class _Spinners:
     def __exit__(self, *exc) -> None:
         self._pool.terminate()
 
-    def speed_up(self, n: int = 1_000_000) -> float:
+    def speed_up(self, n: int = 2_000_000) -> float:
         start = time.perf_counter()
         _spin(n)
         _spin(n)
