@@ -24,6 +24,7 @@ from conftest import DEMO
 
 from amploop.cli import main
 from amploop.job import load_job
+from amploop.journal import Journal
 from amploop.measure import measure
 from amploop.outputs import OutFolder
 from amploop.pool import WorkerPool
@@ -172,6 +173,39 @@ def test_disk_full_is_a_clear_error_and_the_journal_resumes_afterwards(tmp_path)
     results = json.loads((out / "results.json").read_text())
     assert results["status"] == "converged"
     assert results["ac_analyses"]["reused"] >= 2 * recorded
+
+
+def test_a_file_a_worker_cannot_write_is_one_line_and_the_analyses_are_kept(tmp_path, capsys):
+    """With every core simulating, the workers write the corners' files themselves. When
+    they cannot (here a file stands where the loop_gain folder goes), the coordinator
+    tries again, the run ends with one line, exit 2, and the analyses stay recorded."""
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "loop_gain").write_text("in the way")
+    args = ["measure", str(DEMO / "job.toml"), "--out", str(out), "--no-report", "--quiet"]
+    assert main(args) == 2  # default --workers: the CPU count, so the workers write
+    lines = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
+    assert len(lines) == 1 and "cannot write loop_gain/" in lines[0], lines
+    (out / "loop_gain").unlink()
+    assert main(args + ["--json"]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    counts = summary["ac_analyses"]  # what was recorded before the failure is reused
+    assert counts["reused"] >= 2 and counts["run"] + counts["reused"] == 20
+    assert len(list((out / "loop_gain").glob("*.csv"))) == 10
+
+
+def test_a_journal_whose_creation_was_cut_short_is_created_again(tmp_path):
+    """A disk that fills while the journal is being created leaves an SQLite file with no
+    tables (its first page only). That is an empty journal, not somebody else's file."""
+    path = tmp_path / "journal.sqlite"
+    with sqlite3.connect(path) as db:
+        db.execute("PRAGMA journal_mode=WAL")
+    db.close()
+    assert path.stat().st_size > 0
+    with Journal(path) as journal:
+        assert journal.count() == 0
+    with Journal(path, readonly=True) as journal:
+        assert journal.count() == 0
 
 
 def test_out_folder_that_cannot_be_created_is_one_line(tmp_path, capsys):

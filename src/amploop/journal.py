@@ -121,7 +121,6 @@ class Journal:
         if readonly and not self.path.is_file():
             raise JournalError("no journal here", file=self.path,
                                hint="run measure or tune into this out folder first")
-        fresh = not readonly and (not self.path.exists() or self.path.stat().st_size == 0)
         try:
             if readonly:
                 # a journal its writer closed has no -wal file: read it as it stands,
@@ -134,8 +133,8 @@ class Journal:
                 self._db = sqlite3.connect(self.path, isolation_level=None, timeout=5.0)
                 self._db.execute("PRAGMA synchronous=NORMAL")  # first: fewer syncs below
                 self._db.execute("PRAGMA journal_mode=WAL")
-            if fresh:
-                self._create()
+                if self._is_blank():
+                    self._create()
             self._check()
         except sqlite3.DatabaseError as exc:
             self._close_quietly()
@@ -143,6 +142,14 @@ class Journal:
                 f"the journal is unreadable ({exc})", file=self.path,
                 hint="move it away to start afresh, or use another --out folder",
             ) from None
+
+    def _is_blank(self) -> bool:
+        """No tables and no amploop marks: a new file, or one whose creation was cut short
+        (a full disk leaves SQLite's first page alone)."""
+        tables = self._db.execute("SELECT COUNT(*) FROM sqlite_master").fetchone()[0]
+        app = self._db.execute("PRAGMA application_id").fetchone()[0]
+        version = self._db.execute("PRAGMA user_version").fetchone()[0]
+        return tables == 0 and app == 0 and version == 0
 
     def _create(self) -> None:
         self._db.execute("BEGIN IMMEDIATE")
