@@ -23,6 +23,7 @@ import pytest
 from conftest import DEMO
 
 from amploop.cli import main
+from amploop.errors import OutputError
 from amploop.job import load_job
 from amploop.journal import Journal
 from amploop.measure import measure
@@ -341,3 +342,23 @@ def test_corner_and_job_names_never_write_outside_the_out_folder(tmp_path, name)
     assert outside == []
     files = [p.name for p in (out / "loop_gain").iterdir()]
     assert len(files) == 1 and "/" not in files[0] and "\u0000" not in files[0]
+
+
+@pytest.mark.parametrize("workers", [1, None])  # the coordinator writes; the workers write
+def test_symbolic_links_in_the_out_folder_cannot_carry_a_write_outside(tmp_path, workers):
+    """A link where a corner's folder or file goes, pointing outside the out folder, is
+    refused with one line; what it points at is left as it was."""
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    victim = outside / "victim.cir"
+    victim.write_text("keep me")
+    job = load_job(DEMO / "job.toml")
+    first = job.corners[0].name
+    for link, target in (("loop_gain", outside), (f"decks/{first}.cir", victim)):
+        out = tmp_path / f"out-{workers}-{link.split('/')[0]}"
+        (out / link).parent.mkdir(parents=True, exist_ok=True)
+        (out / link).symlink_to(target)
+        with pytest.raises(OutputError, match="outside the out folder|symbolic links"):
+            measure(job, out=out, workers=workers, time_domain=False)
+        assert victim.read_text() == "keep me"
+        assert sorted(p.name for p in outside.iterdir()) == ["victim.cir"]

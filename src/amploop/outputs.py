@@ -145,18 +145,19 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
     OutputError
         If the target lies outside ``folder`` or cannot be written.
     """
-    target = (folder / relative).resolve()
-    if folder not in target.parents:
+    target = folder / relative
+    if target.name in ("", ".", "..") or "\0" in relative:
         raise OutputError(f"refusing to write outside the out folder: {relative!r}",
                           file=folder)
     temporary = target.with_name(f".{target.name}.tmp{os.getpid()}") if atomic else target
     try:
-        target.parent.mkdir(parents=True, exist_ok=True)
-        with open(temporary, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-            if durable:
-                handle.flush()
-                os.fsync(handle.fileno())
+        _prepare_folder(folder, target.parent, relative)
+        try:
+            _write_bytes(temporary, text.encode("utf-8"), durable=durable)
+        except FileNotFoundError:  # its folder went away since it was prepared: again
+            _PREPARED.discard(target.parent)
+            _prepare_folder(folder, target.parent, relative)
+            _write_bytes(temporary, text.encode("utf-8"), durable=durable)
         if atomic:
             os.replace(temporary, target)
     except OSError as exc:
@@ -167,6 +168,38 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
             pass
         raise OutputError(f"cannot write {relative}: {exc.strerror or exc}", file=folder) from None
     return target
+
+
+#: Folders inside out folders that this process has checked and created.
+_PREPARED: set[Path] = set()
+
+
+def _prepare_folder(folder: Path, parent: Path, relative: str) -> None:
+    """Check once per process that ``parent`` lies inside ``folder`` (symbolic links
+    followed), and create it."""
+    if parent in _PREPARED:
+        return
+    resolved = parent.resolve()
+    if resolved != folder and folder not in resolved.parents:
+        raise OutputError(f"refusing to write outside the out folder: {relative!r}",
+                          file=folder)
+    parent.mkdir(parents=True, exist_ok=True)
+    _PREPARED.add(parent)
+
+
+def _write_bytes(path: Path, data: bytes, *, durable: bool) -> None:
+    """Create or truncate ``path`` and write ``data``; a symbolic link there is refused
+    (O_NOFOLLOW), so a link cannot carry a write out of the out folder."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW | os.O_CLOEXEC
+    handle = os.open(path, flags, 0o666)
+    try:
+        view = memoryview(data)
+        while view:
+            view = view[os.write(handle, view):]
+        if durable:
+            os.fsync(handle)
+    finally:
+        os.close(handle)
 
 
 def loop_gain_csv(response: FrequencyResponse) -> str:
