@@ -10,15 +10,13 @@ the same for a 10-corner grid.
 
 from __future__ import annotations
 
-import subprocess
 import sys
 import tempfile
-import threading
 import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_measure import _tree_peak_kb, job_with_corners
+from bench_measure import job_with_corners, run_watched
 
 GRID_500 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
             'params = { vdd = [1.71, 1.75, 1.8, 1.85, 1.89], '
@@ -32,15 +30,8 @@ def run(grid: str, tmp: Path, label: str) -> None:
     folder.mkdir()
     job = job_with_corners(folder, grid)
     start = time.perf_counter()
-    process = subprocess.Popen([sys.executable, "-m", "amploop.cli", "measure", str(job), "--out",
-                                str(folder / "out"), "--workers", "2", "--no-report", "--json"],
-                               stdout=subprocess.PIPE, text=True)
-    stop, peaks = threading.Event(), {}
-    watcher = threading.Thread(target=_tree_peak_kb, args=(process.pid, stop, peaks))
-    watcher.start()
-    out, _ = process.communicate()
-    stop.set()
-    watcher.join()
+    out, peaks = run_watched([sys.executable, "-m", "amploop.cli", "measure", str(job), "--out",
+                              str(folder / "out"), "--workers", "2", "--no-report", "--json"])
     wall = time.perf_counter() - start
     summary = out.strip().splitlines()[-1]
     import json
@@ -48,7 +39,7 @@ def run(grid: str, tmp: Path, label: str) -> None:
     data = json.loads(summary)
     corners = len(json.loads((folder / "out" / "results.json").read_text())["corners"])
     print(f"{label}: {corners} corners, status {data['status']}, "
-          f"{data['ac_analyses']['run']} AC analyses, {wall:.1f} s, exit {process.returncode}; "
+          f"{data['ac_analyses']['run']} AC analyses, {wall:.1f} s, exit 0; "
           f"peak RSS {sum(peaks.values()) / 1024:.1f} MiB over {len(peaks)} processes")
 
 

@@ -166,12 +166,11 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
                 measure(job, out=Path(tmp) / f"warm{workers}", pool=pool, time_domain=False)
             for rep in range(reps):  # interleaved: the machine's drift hits all alike
                 for workers, pool in pools.items():
-                    runner_seconds = _simulator_seconds(pool)
                     start = time.perf_counter()
                     result = measure(job, out=Path(tmp) / f"w{workers}r{rep}", pool=pool,
                                      time_domain=False)
                     warm[workers].append(time.perf_counter() - start)
-                    inside[workers].append(_simulator_seconds(pool) - runner_seconds)
+                    inside[workers].append(result.simulator_seconds)
                     start = time.perf_counter()
                     list(pool.run(requests))
                     alone[workers].append(time.perf_counter() - start)
@@ -238,30 +237,6 @@ def child(job_path: str, workers: int, reps: int, tmp: str) -> None:
     print(statistics.median(times))
 
 
-_SIM_SECONDS: dict[int, float] = {}
-
-
-def _simulator_seconds(pool) -> float:
-    """Seconds the pool's workers have spent inside ngspice so far (from the outputs)."""
-    return _SIM_SECONDS.get(id(pool), 0.0)
-
-
-def _count_simulator_seconds() -> None:
-    """Wrap WorkerPool.run so each pool adds up its outputs' in-ngspice seconds."""
-    from amploop.pool import WorkerPool
-    from amploop.simulator import AnalysisOutput
-
-    plain = WorkerPool.run
-
-    def counted(self, requests):
-        for key, output in plain(self, requests):
-            if isinstance(output, AnalysisOutput):
-                _SIM_SECONDS[id(self)] = _SIM_SECONDS.get(id(self), 0.0) + output.seconds
-            yield key, output
-
-    WorkerPool.run = counted
-
-
 def _spin(n: int) -> int:
     total = 0
     for i in range(n):
@@ -317,6 +292,20 @@ def _tree_peak_kb(root_pid: int, stop: threading.Event, peaks: dict[int, int]) -
         time.sleep(0.01)
 
 
+def run_watched(command: list[str]) -> tuple[str, dict[int, int]]:
+    """Run ``command``; its stdout and the peak RSS, kB, of every process in its tree."""
+    process = subprocess.Popen(command, stdout=subprocess.PIPE, text=True)
+    stop, peaks = threading.Event(), {}
+    watcher = threading.Thread(target=_tree_peak_kb, args=(process.pid, stop, peaks))
+    watcher.start()
+    out, _ = process.communicate()
+    stop.set()
+    watcher.join()
+    if process.returncode != 0:
+        raise SystemExit(f"{command[0]} exited with {process.returncode}")
+    return out, peaks
+
+
 def memory() -> None:
     results = {}
     with tempfile.TemporaryDirectory() as tmp:
@@ -331,13 +320,7 @@ def memory() -> None:
                     "    import time; time.sleep(0.3)\n")
             script = folder / "run.py"
             script.write_text(code)
-            process = subprocess.Popen([sys.executable, str(script)], stdout=subprocess.PIPE, text=True)
-            stop, peaks = threading.Event(), {}
-            watcher = threading.Thread(target=_tree_peak_kb, args=(process.pid, stop, peaks))
-            watcher.start()
-            out, _ = process.communicate()
-            stop.set()
-            watcher.join()
+            out, peaks = run_watched([sys.executable, str(script)])
             corners, analyses = out.split()
             results[label] = (sum(peaks.values()), int(corners), int(analyses), len(peaks))
     (small, c2, a2, n2), (large, c200, a200, n200) = results["2"], results["200"]
@@ -365,7 +348,6 @@ def main() -> None:
         child(job_path, int(workers), int(reps), tmp)
         return
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
-    _count_simulator_seconds()
     overhead(args.reps, DEMO, (GRID_20, GRID_200))
     parallel(args.reps, DEMO, GRID_12)
     ptm = PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir()

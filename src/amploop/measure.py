@@ -112,6 +112,8 @@ class MeasureResult:
         Corner name -> :class:`~amploop.stepcheck.StepCheck` (empty when not run).
     transient_run, transient_reused
         Transient analyses simulated, and transient analyses taken from the journal.
+    simulator_seconds
+        Wall time the workers spent inside ngspice on the analyses simulated, seconds.
     warnings
         Remarks on the amplifier for the user (:attr:`~amploop.amplifier.Amplifier.warnings`).
     """
@@ -127,6 +129,7 @@ class MeasureResult:
     step_checks: dict = field(default_factory=dict)
     transient_run: int = 0
     transient_reused: int = 0
+    simulator_seconds: float = 0.0
     warnings: tuple[str, ...] = ()
 
     @property
@@ -218,8 +221,8 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
     if not np.all(np.isfinite(response.values)):
         return CornerResult(corner=bench.corner, status="error",
                             error="the simulator returned non-finite loop-gain values")
-    figures = getattr(output, "after", None)
-    margins, problem = figures if figures is not None else assess_loop_gain(response)
+    # figures a worker already read off (CornerWork), else read them here
+    margins, problem = output.after if output.after is not None else assess_loop_gain(response)
     return CornerResult(
         corner=bench.corner,
         status="ok" if problem is None else "error",
@@ -262,12 +265,25 @@ class CornerWork:
     deck: str
     data_file: str
 
+    @classmethod
+    def for_corner(cls, bench: Testbench, folder: Path, stem: str) -> CornerWork:
+        """The work for one corner: its testbench ``bench``, the out folder ``folder``
+        (absolute), and its files named from ``stem`` (:func:`corner_files`)."""
+        return cls(bench=bench, folder=folder, csv=f"loop_gain/{stem}.csv",
+                   deck=f"decks/{stem}.cir", data_file=f"{stem}-loop_gain.txt")
+
+    def write_files(self, response: FrequencyResponse | None) -> None:
+        """The deck to rerun by hand, and the loop-gain CSV when there is a loop gain
+        (``response``); written in place (a rerun writes them again)."""
+        write_into(self.folder, self.deck, self.bench.hand_deck(data_file=self.data_file),
+                   atomic=False)
+        if response is not None:
+            write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
+
     def __call__(self, output) -> tuple[Margins, str | None]:
         response = self.bench.loop_gain(output)
         figures = assess_loop_gain(response)
-        write_into(self.folder, self.deck, self.bench.hand_deck(data_file=self.data_file),
-                   atomic=False)
-        write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
+        self.write_files(response)
         return figures
 
 
@@ -332,14 +348,11 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
     runner = Runner(pool, journal, file_digests(amplifier.files))
-    works = {name: CornerWork(bench=b, folder=folder.path, csv=f"loop_gain/{stems[name]}.csv",
-                              deck=f"decks/{stems[name]}.cir",
-                              data_file=f"{stems[name]}-loop_gain.txt")
+    works = {name: CornerWork.for_corner(b, folder.path, stems[name])
              for name, b in benches.items()} if folder is not None else {}
     # with a core to spare the coordinator does this while the workers simulate; with
     # every core busy simulating, each worker does its own corners' share
-    in_workers = (folder is not None and getattr(pool, "shares_files", False)
-                  and pool.size >= default_workers())
+    in_workers = folder is not None and pool.shares_files and pool.size >= default_workers()
     requests = [(name, b.request(job.analysis.time_limit_s,
                                  after=works[name] if in_workers else None))
                 for name, b in benches.items()]
@@ -349,9 +362,10 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             bench = benches[name]
             result = result_from_output(bench, output, amplifier)
             results[name] = result
-            if folder is not None and (getattr(output, "after", None) is None
-                                       or output.after_error is not None):
-                _write_corner_files(works[name], result)
+            if folder is not None and getattr(output, "after", None) is None:
+                # not done in a worker: taken from the journal, a remote or failed
+                # analysis, or a worker whose write failed (its after_error)
+                works[name].write_files(result.loop_gain)
             if progress is not None:
                 progress(len(results), len(benches), result)
         if time_domain:
@@ -374,6 +388,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                step_checks=checks,
                                transient_run=runner.transient_run,
                                transient_reused=runner.transient_reused,
+                               simulator_seconds=runner.simulator_seconds,
                                warnings=amplifier.warnings)
         if folder is not None:
             data = result.as_json()
@@ -381,15 +396,6 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                 data["status"] = "interrupted"
             folder.write_json("results.json", data)
     return result
-
-
-def _write_corner_files(work: CornerWork, result: CornerResult) -> None:
-    """The corner's deck, and its CSV when there is a loop gain, written here (analyses
-    taken from the journal, remote workers, or a worker whose write failed)."""
-    write_into(work.folder, work.deck, work.bench.hand_deck(data_file=work.data_file),
-               atomic=False)
-    if result.loop_gain is not None:
-        write_into(work.folder, work.csv, loop_gain_csv(result.loop_gain), atomic=False)
 
 
 def require_measured(result: CornerResult) -> Margins:

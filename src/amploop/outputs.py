@@ -106,11 +106,6 @@ class OutFolder:
         text = json.dumps(clean_json(data), indent=2, allow_nan=False) + "\n"
         return self.write_text(relative, text)
 
-    def write_loop_gain_csv(self, relative: str, response: FrequencyResponse) -> None:
-        """Write the loop gain ``response`` as CSV to ``relative`` inside the folder (see
-        :func:`loop_gain_csv`)."""
-        self.write_text(relative, loop_gain_csv(response))
-
 
 def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
                atomic: bool = True) -> Path:

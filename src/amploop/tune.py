@@ -18,7 +18,7 @@ from .amplifier import Amplifier, prepare_amplifier
 from .errors import JobError, JournalError
 from .job import Job
 from .journal import Journal, file_digests
-from .measure import JOURNAL_FILE, SCHEMA, CornerResult, corner_files
+from .measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
 from .outputs import OutFolder
 from .pool import WorkerPool
 from .runner import Runner
@@ -282,8 +282,6 @@ def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome
     for corner_result in outcome.final.corners:
         name = corner_result.corner.name
         bench = build_testbench(amplifier, corner_result.corner, outcome.values)
-        folder.write_text(f"decks/{stems[name]}.cir",
-                          bench.hand_deck(data_file=f"{stems[name]}-loop_gain.txt"))
-        if corner_result.loop_gain is not None:
-            folder.write_loop_gain_csv(f"loop_gain/{stems[name]}.csv", corner_result.loop_gain)
+        CornerWork.for_corner(bench, folder.path, stems[name]).write_files(
+            corner_result.loop_gain)
 
