@@ -26,6 +26,7 @@ __all__ = [
     "WorstCase",
     "bounds_of",
     "meets_target",
+    "not_simulated",
     "worst_case",
 ]
 
@@ -183,6 +184,21 @@ class Outcome:
     final: PointResult | None
     message: str
     extra: dict = field(default_factory=dict)
+
+
+def not_simulated(point: PointResult, values: dict[str, float] | None = None) -> Outcome:
+    """The "failed" outcome of a point with a corner that did not simulate.
+
+    Parameters
+    ----------
+    point
+        The simulated point; its first corner error is the one reported.
+    values
+        The values to report, by role, SI; None for the point's own.
+    """
+    first = point.errors[0]
+    return Outcome("failed", point.values if values is None else values, point,
+                   f"corner {first.corner.name} did not simulate: {first.error}")
 
 
 def bounds_of(knob: Knob | None, fallback: float) -> tuple[float, float]:

@@ -17,7 +17,7 @@ from ..compmap import CompensationMap
 from ..errors import TuningError
 from ..job import Target
 from ..units import describe_values, engineering
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
+from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
 from .mapping import _round, initial_samples, samples_around
 from .mapsolve import solve_on_maps
 from .triode import in_triode, resistance_at_size, square_law_resistance
@@ -144,10 +144,9 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
         characterised = evaluator.simulate(samples, kind="characterise",
                                            note=f"round {round_number}, {device.name} "
                                            f"{device.size} = {engineering(size, 'm')}")
-        failed = [c for p in characterised for c in p.errors]
-        if failed:
-            return Outcome("failed", in_effect, characterised[0],
-                           f"corner {failed[0].corner.name} did not simulate: {failed[0].error}")
+        failed = next((p for p in characterised if p.errors), None)
+        if failed is not None:
+            return not_simulated(failed, in_effect)
         maps, rc_of = {}, {}
         for index, corner in enumerate(evaluator.corners):
             points = [(p.values["cc"], resistance[corner.name]) for p in characterised]
@@ -163,9 +162,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
                        "predicted_pm_deg": solution.phase_margin_deg})
         worst = verified.worst
         if worst is None:
-            first = verified.errors[0]
-            return Outcome("failed", verified.values, verified,
-                           f"corner {first.corner.name} did not simulate: {first.error}")
+            return not_simulated(verified)
         if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
             break
         size = point["rc"]

@@ -17,7 +17,7 @@ import math
 from ..compmap import CompensationMap
 from ..job import Target
 from ..units import describe_values, engineering
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
+from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
 from .mapsolve import MapSolution, solve_on_maps
 
 __all__ = ["initial_samples", "tune_by_map"]
@@ -107,11 +107,9 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     for round_number in range(1, max_rounds + 1):
         characterised = evaluator.simulate(samples, kind="characterise",
                                            note=f"round {round_number}")
-        failed = [c for p in characterised for c in p.errors]
-        if failed:
-            first = failed[0]
-            return Outcome("failed", in_effect, characterised[0],
-                           f"corner {first.corner.name} did not simulate: {first.error}")
+        failed = next((p for p in characterised if p.errors), None)
+        if failed is not None:
+            return not_simulated(failed, in_effect)
         maps = _maps(evaluator, characterised)
         solution = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
         # 4 significant digits: what a designer writes into the netlist, and what is verified
@@ -123,9 +121,7 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         predictions.append(solution)
         worst = verified.worst
         if worst is None:
-            first = verified.errors[0]
-            return Outcome("failed", verified.values, verified,
-                           f"corner {first.corner.name} did not simulate: {first.error}")
+            return not_simulated(verified)
         if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
             break
         samples = samples_around(solution.cc, solution.rc, cc_bounds)

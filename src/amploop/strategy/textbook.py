@@ -21,7 +21,7 @@ import math
 from ..errors import TuningError
 from ..job import Target
 from ..units import describe_values, parse_value
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target
+from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
 from .twostage import (
     effective_load,
     feedback_factor,
@@ -193,8 +193,4 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
 
 
 def _failure(point: PointResult) -> Outcome | None:
-    if point.worst is None:
-        first = point.errors[0]
-        return Outcome("failed", point.values, point,
-                       f"corner {first.corner.name} did not simulate: {first.error}")
-    return None
+    return not_simulated(point) if point.worst is None else None
