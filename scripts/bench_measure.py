@@ -11,9 +11,11 @@ Run:  .venv/bin/python scripts/bench_measure.py [--reps N]
 2. Parallel: a 12-corner measurement with 2 workers vs 1 worker. Reported as (a) the
    measurement with the workers already started, (b) the whole `amploop measure`
    command as a user runs it (Python start-up, imports and worker start-up included),
-   and (c) the measurement confined to one core (taskset, 1 worker) vs both cores (2
-   workers). Beside (a): what ngspice alone (no amploop code) gained from two processes in the same
-   reps, the time inside ngspice, and the worker pool alone on the same analyses.
+   (c) the measurement confined to one core (taskset, 1 worker) vs both cores (2
+   workers), and (d) as (a) with the out folder in memory (tmpfs), which takes the
+   disk's share out. Beside (a): what ngspice alone (no amploop code) gained from two
+   processes in the same reps, the time inside ngspice, and the worker pool alone on
+   the same analyses.
    Loop-gain measurement only: the report's step checks and PDF are left out
    (`time_domain=False`, `--no-report`).
    Target: >= 1.7x.
@@ -216,6 +218,17 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
         o, t = statistics.median(one_core), statistics.median(two_cores)
         print(f"  (c) one core vs two: the measurement confined to one core (taskset, 1 worker) "
               f"{o * 1e3:.0f} ms, on both cores (2 workers) {t * 1e3:.0f} ms, speed-up {o / t:.2f}x")
+    memory_fs = Path("/dev/shm")
+    if memory_fs.is_dir() and os.access(memory_fs, os.W_OK):
+        one_worker, two_workers = [], []
+        with tempfile.TemporaryDirectory(dir=memory_fs) as tmp:
+            job_path = job_with_corners(Path(tmp), grid, job_file)
+            for rep in range(3):  # alternated; each child reports its own median
+                one_worker.append(_warm_child([], job_path, 1, reps, tmp))
+                two_workers.append(_warm_child([], job_path, 2, reps, tmp))
+        o, t = statistics.median(one_worker), statistics.median(two_workers)
+        print(f"  (d) out folder in memory (tmpfs, /dev/shm), otherwise as (a): 1 worker "
+              f"{o * 1e3:.0f} ms, 2 workers {t * 1e3:.0f} ms, speed-up {o / t:.2f}x")
 
 
 def _warm_child(prefix: list[str], job_path: Path, workers: int, reps: int, tmp: str) -> float:
