@@ -11,12 +11,11 @@ the same for a 10-corner grid.
 from __future__ import annotations
 
 import sys
-import tempfile
 import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_measure import job_with_corners, run_watched
+from bench_measure import job_with_corners, run_watched, scratch
 
 GRID_500 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
             'params = { vdd = [1.71, 1.75, 1.8, 1.85, 1.89], '
@@ -44,7 +43,7 @@ def run(grid: str, tmp: Path, label: str) -> None:
 
 
 def main() -> None:
-    with tempfile.TemporaryDirectory() as tmp:
+    with scratch() as tmp:
         run(GRID_10, Path(tmp), "10-corner")
         run(GRID_500, Path(tmp), "500-corner")
 

@@ -42,6 +42,33 @@ from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "netlists" / "demo" / "job.toml"
+#: Where the benchmarks put their jobs and out folders: inside the project, like the demo's
+#: runs/demo (git-ignored). Not the system's temporary folder: on the shared test machine,
+#: creating a file anywhere under /tmp costs about 1 ms, against 20-25 us elsewhere on the
+#: same disk (the first line of this script's output measures both).
+SCRATCH = REPO / "runs" / "bench"
+
+
+def scratch(base: Path = SCRATCH) -> tempfile.TemporaryDirectory:
+    """A temporary folder under ``base`` (created if missing), removed when done."""
+    base.mkdir(parents=True, exist_ok=True)
+    return tempfile.TemporaryDirectory(dir=base)
+
+
+def file_creation_us(base: Path, files: int = 24, reps: int = 9) -> float:
+    """Median microseconds to create and write one 20 kB file in a new folder under
+    ``base``: what a corner's CSV or deck costs the file system there."""
+    times = []
+    for _ in range(reps):
+        with scratch(base) as folder:
+            start = time.perf_counter()
+            for i in range(files):
+                fd = os.open(os.path.join(folder, f"{i}.csv"),
+                             os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
+                os.write(fd, b"0" * 20_000)
+                os.close(fd)
+            times.append((time.perf_counter() - start) / files)
+    return statistics.median(times) * 1e6
 
 
 def job_with_corners(folder: Path, grid: str, job_file: Path = DEMO) -> Path:
@@ -115,7 +142,8 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
 
     times: dict[int, list[float]] = {}
     raw_times: list[float] = []
-    with WorkerPool(1) as pool, tempfile.TemporaryDirectory() as tmp:
+    creation: list[float] = []
+    with WorkerPool(1) as pool, scratch() as tmp:
         jobs = {}
         for grid in grids:
             folder = Path(tmp) / str(len(jobs))
@@ -134,6 +162,7 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
                 measure(job, out=Path(tmp) / f"{len(job.corners)}-{rep}", pool=pool, time_domain=False)
                 times.setdefault(len(job.corners), []).append(time.perf_counter() - start)
             raw_times.append(raw_pyspice(decks, steps, 1))
+            creation.append(file_creation_us(SCRATCH, reps=1))
     timings = {n: statistics.median(t) for n, t in times.items()}
     raw = statistics.median(raw_times)
     (n1, t1), (n2, t2) = sorted(timings.items())
@@ -144,6 +173,9 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
           f"   (+ {fixed * 1e3:.0f} ms per run: files, journal, results.json)")
     print(f"  PySpice straight, per deck  (median):           {raw * 1e3:7.2f} ms")
     print(f"  ratio: {per_corner / raw:.2f}   (target <= 1.3)")
+    print(f"  meanwhile, creating one of a corner's two files took {statistics.median(creation):.0f} us"
+          f" in the out folders' place (median of the same reps; {min(creation):.0f} to "
+          f"{max(creation):.0f} us)")
 
 
 def parallel(reps: int, job_file: Path, grid: str) -> None:
@@ -153,12 +185,13 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
     from amploop.pool import WorkerPool
     from amploop.testbench import build_testbench
 
-    with tempfile.TemporaryDirectory() as tmp:
+    with scratch() as tmp:
         job_path = job_with_corners(Path(tmp), grid, job_file)
         job = load_job(job_path)
         warm: dict[int, list[float]] = {1: [], 2: []}
         inside: dict[int, list[float]] = {1: [], 2: []}
         ceiling = []
+        creation: list[float] = []
         alone: dict[int, list[float]] = {1: [], 2: []}
         amplifier = prepare_amplifier(job)
         requests = [(c.name, build_testbench(amplifier, c, {}).request(60.0)) for c in job.corners]
@@ -181,6 +214,7 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
                         list(pool.run(requests))
                         alone[workers].append(time.perf_counter() - start)
                     ceiling.append(alone_ngspice.speed_up())
+                    creation.append(file_creation_us(SCRATCH, reps=1))
         cold: dict[int, list[float]] = {1: [], 2: []}
         for rep in range(reps):
             for workers in (1, 2):
@@ -202,6 +236,9 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
           f"{max(ceiling):.2f})")
     print(f"      time inside ngspice per measurement: {sim * 1e3:.0f} ms with 1 worker, "
           f"{statistics.median(inside[2]) * 1e3:.0f} ms summed over 2")
+    print(f"      creating one of a corner's files in the out folders' place meanwhile: "
+          f"{statistics.median(creation):.0f} us (median; {min(creation):.0f} to "
+          f"{max(creation):.0f} us)")
     a1, a2 = statistics.median(alone[1]), statistics.median(alone[2])
     print(f"      the worker pool alone, the same {len(requests)} analyses without the "
           f"per-corner work: 1 worker {a1 * 1e3:.0f} ms, 2 workers {a2 * 1e3:.0f} ms, "
@@ -210,7 +247,7 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
           f" speed-up {c1 / c2:.2f}x")
     if shutil.which("taskset") and len(os.sched_getaffinity(0)) >= 2:
         one_core, two_cores = [], []
-        with tempfile.TemporaryDirectory() as tmp:
+        with scratch() as tmp:
             job_path = job_with_corners(Path(tmp), grid, job_file)
             for rep in range(3):  # alternated; each child reports its own median
                 one_core.append(_warm_child(["taskset", "-c", "0"], job_path, 1, reps, tmp))
@@ -221,7 +258,7 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
     memory_fs = Path("/dev/shm")
     if memory_fs.is_dir() and os.access(memory_fs, os.W_OK):
         one_worker, two_workers = [], []
-        with tempfile.TemporaryDirectory(dir=memory_fs) as tmp:
+        with scratch(memory_fs) as tmp:
             job_path = job_with_corners(Path(tmp), grid, job_file)
             for rep in range(3):  # alternated; each child reports its own median
                 one_worker.append(_warm_child([], job_path, 1, reps, tmp))
@@ -330,7 +367,7 @@ def run_watched(command: list[str]) -> tuple[str, dict[int, int]]:
 
 def memory() -> None:
     results = {}
-    with tempfile.TemporaryDirectory() as tmp:
+    with scratch() as tmp:
         for label, grid in (("2", GRID_2), ("200", GRID_200)):
             folder = Path(tmp) / label
             folder.mkdir()
@@ -370,6 +407,9 @@ def main() -> None:
         child(job_path, int(workers), int(reps), tmp)
         return
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
+    print(f"file system: creating a 20 kB file takes {file_creation_us(SCRATCH):.0f} us in "
+          f"{SCRATCH.relative_to(REPO)} (the out folders here), "
+          f"{file_creation_us(Path(tempfile.gettempdir())):.0f} us in {tempfile.gettempdir()}")
     overhead(args.reps, DEMO, (GRID_20, GRID_200))
     parallel(args.reps, DEMO, GRID_12)
     ptm = PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir()

@@ -11,12 +11,11 @@ journal are counted).
 from __future__ import annotations
 
 import sys
-import tempfile
 import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_measure import DEMO, job_with_corners
+from bench_measure import DEMO, job_with_corners, scratch
 
 GRID_100 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
             'params = { vdd = [1.71, 1.8, 1.89, 1.98, 1.75], cl = ["1p", "3p"] }\n')
@@ -27,7 +26,7 @@ def main() -> None:
     from amploop.report import build_report
     from amploop.tune import tune
 
-    with tempfile.TemporaryDirectory() as tmp:
+    with scratch() as tmp:
         for label, path in (("demo (10 corners)", DEMO),
                             ("100 corners", job_with_corners(Path(tmp), GRID_100))):
             job = load_job(path)

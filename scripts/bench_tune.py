@@ -16,12 +16,12 @@ from __future__ import annotations
 
 import os
 import statistics
-import tempfile
+import sys
 import time
 from pathlib import Path
 
-REPO = Path(__file__).resolve().parents[1]
-DEMO = REPO / "netlists" / "demo" / "job.toml"
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_measure import DEMO, scratch
 
 
 def main() -> None:
@@ -36,7 +36,7 @@ def main() -> None:
           f"{job.target.phase_margin_deg:g}° ± {job.target.tolerance_deg:g}°, GM ≥ {job.target.gain_margin_db:g} dB")
     print(f"{'strategy':<10} {'status':<10} {'AC':>5} {'AC/corner':>9} {'points':>6} "
           f"{'worst PM':>9} {'worst UGF':>10}  values")
-    with tempfile.TemporaryDirectory() as tmp:
+    with scratch() as tmp:
         for strategy in ("map", "textbook", "optimizer"):
             result = tune(job, out=Path(tmp) / strategy, strategy=strategy,
                           workers=default_workers(), time_domain=False)
