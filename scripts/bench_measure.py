@@ -19,6 +19,9 @@ Run:  .venv/bin/python scripts/bench_measure.py [--reps N]
    Loop-gain measurement only: the report's step checks and PDF are left out
    (`time_domain=False`, `--no-report`).
    Target: >= 1.7x.
+   Run on the demo, on the 45 nm example, and on the 45 nm example with every
+   transistor drawn as 16 fingers (the same circuit, with analyses about eight times
+   as long, as a layout's netlist gives them).
 3. Memory: peak RSS (coordinator + worker + fork server, summed over the process tree) of
    a 200-corner measurement with one worker vs a 2-corner one, each in a fresh process.
    Target: <= 1.5x.
@@ -397,6 +400,40 @@ GRID_PTM_100 = ('[corner_grid]\ntemp = [-40, 0, 27, 85, 125]\n'
 GRID_20 = '[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 27, 125, 85, 0]\nparams = { vdd = [1.71, 1.89], cl = ["2p"] }\n'
 
 
+def fingered_job(folder: Path, fingers: int) -> Path:
+    """The 45 nm example with every transistor drawn as ``fingers`` parallel devices of
+    1/``fingers`` the width (areas and perimeters scaled alike; the first keeps the
+    device's name), as a layout's netlist lists them: the same circuit, with analyses
+    that cost what a netlist of eight times sixteen BSIM4 instances does. Invented
+    benchmark data, made here; written into ``folder`` with a copy of the job."""
+    from amploop.units import parse_value, spice_number
+
+    source = PTM45.parent / "two_stage_45.cir"
+    lines = []
+    for line in source.read_text().splitlines():
+        words = line.split()
+        if not words or words[0][0].lower() != "m":
+            lines.append(line)
+            continue
+        for k in range(fingers):
+            name = words[0] if k == 0 else f"{words[0]}f{k + 1}"
+            scaled = []
+            for word in words[6:]:
+                key, _, value = word.partition("=")
+                if key.lower() in ("w", "ad", "as", "pd", "ps"):
+                    word = f"{key}={spice_number(parse_value(value) / fingers)}"
+                scaled.append(word)
+            lines.append(" ".join([name, *words[1:6], *scaled]))
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / source.name).write_text("\n".join(lines) + "\n")
+    text = PTM45.read_text()
+    match = re.search(r'^models = "([^"]+)"', text, re.MULTILINE)
+    models = (PTM45.parent / match.group(1)).resolve()
+    job = folder / "job.toml"
+    job.write_text(text.replace(match.group(0), f'models = "{models}"'))
+    return job
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--reps", type=int, default=7)
@@ -416,6 +453,8 @@ def main() -> None:
     if ptm:  # BSIM4 cards: analyses that cost what real ones do
         overhead(args.reps, PTM45, (GRID_PTM_20, GRID_PTM_100))
         parallel(args.reps, PTM45, GRID_PTM_12)
+        with scratch() as tmp:  # the same circuit, as a layout's netlist lists its devices
+            parallel(args.reps, fingered_job(Path(tmp) / "ptm45-16-fingers", 16), GRID_PTM_12)
     else:
         print("(the 45 nm BSIM4 runs need ../shared/models/ptm45 and netlists/ptm45: skipped)")
     memory()

@@ -85,6 +85,27 @@ def test_after_work_runs_in_the_worker_and_a_failure_there_keeps_the_analysis():
     assert np.array_equal(results["fails"].reads[0]["v(b)"], results["fine"].reads[0]["v(b)"])
 
 
+def test_no_analysis_waits_behind_a_long_one_while_a_worker_is_free():
+    """Two warm workers, a long transient and two short AC runs, in that order: the short
+    ones go to the free worker (neither is queued behind the long one), so the long one
+    finishes last. Queueing a second task behind a running one is only worth its round
+    trip while more tasks wait than there are workers."""
+    from amploop.pool import WorkerPool
+
+    step_rc = RC.replace("ac 1", "ac 1 pulse(0 1 0 1u 1u 1 2)")
+    short = AnalysisRequest("short", RC, (Step("ac dec 10 1 10meg", ("v(b)",)),))
+    long = AnalysisRequest("long", step_rc, (Step("tran 10n 2m 0 10n", ("v(b)",)),))
+    with WorkerPool(2) as pool:
+        for _ in range(500):  # until both workers have started their ngspice
+            list(pool.run([(i, short) for i in range(4)]))
+            if len(pool._workers) == 2 and all(w.ready for w in pool._workers):
+                break
+        assert len(pool._workers) == 2 and all(w.ready for w in pool._workers)
+        order = [key for key, _ in pool.run([("long", long), ("short 1", short),
+                                             ("short 2", short)])]
+    assert order == ["short 1", "short 2", "long"]
+
+
 def test_corner_files_are_the_same_whether_the_workers_or_the_coordinator_write_them(tmp_path):
     """With every core simulating the workers write each corner's CSV and deck; with a
     core to spare (or remote workers) the coordinator does. Same bytes either way."""

@@ -188,20 +188,36 @@ class WorkerPool:
         return sum(len(w.queue) for w in self._workers)
 
     def _feed(self, pending: deque) -> None:
-        """Top up every ready worker's queue from ``pending``."""
+        """Hand tasks from ``pending`` to the ready workers: first one to each worker that
+        has none, then one more queued behind the running one of each busy worker (so it
+        starts the next while the coordinator records the last), but only while at least
+        as many tasks wait as there are workers. The last tasks thus go to whichever
+        worker is free first, and no worker idles at the end while another still has an
+        analysis queued (with analyses of tens of milliseconds, that tail costs more than
+        the round trip the queue saves)."""
         for worker in self._workers:
-            while worker.ready and pending and len(worker.queue) < self.depth:
-                key, request, attempt = pending.popleft()
-                self._next_id += 1
-                task = _Task(self._next_id, key, request, attempt)
-                try:
-                    worker.conn.send((task.task_id, request))
-                except OSError:  # it died between two looks; its sentinel will tell
-                    pending.appendleft((key, request, attempt))
+            if worker.ready and pending and not worker.queue:
+                self._send(worker, pending)
+        for worker in self._workers:
+            while (worker.ready and len(pending) >= self.size
+                   and 0 < len(worker.queue) < self.depth):
+                if not self._send(worker, pending):
                     break
-                if not worker.queue:
-                    worker.head_since = time.monotonic()
-                worker.queue.append(task)
+
+    def _send(self, worker: _Worker, pending: deque) -> bool:
+        """Send the first task of ``pending`` to ``worker``; False if it has died."""
+        key, request, attempt = pending.popleft()
+        self._next_id += 1
+        task = _Task(self._next_id, key, request, attempt)
+        try:
+            worker.conn.send((task.task_id, request))
+        except OSError:  # it died between two looks; its sentinel will tell
+            pending.appendleft((key, request, attempt))
+            return False
+        if not worker.queue:
+            worker.head_since = time.monotonic()
+        worker.queue.append(task)
+        return True
 
     def run(
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
