@@ -46,9 +46,10 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "netlists" / "demo" / "job.toml"
 #: Where the benchmarks put their jobs and out folders: inside the project, like the demo's
-#: runs/demo (git-ignored). Not the system's temporary folder: on the shared test machine,
-#: creating a file anywhere under /tmp costs about 1 ms, against 20-25 us elsewhere on the
-#: same disk (the first line of this script's output measures both).
+#: runs/demo (git-ignored), where a user's out folders would be. On the shared test
+#: machine, creating a file costs from 20 us to over 1 ms of kernel time depending on the
+#: folder and the minute (the same disk under /tmp, /work, ...); the output says what it
+#: cost here while each figure was measured.
 SCRATCH = REPO / "runs" / "bench"
 
 
