@@ -199,7 +199,7 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
         alone: dict[int, list[float]] = {1: [], 2: []}
         amplifier = prepare_amplifier(job)
         requests = [(c.name, build_testbench(amplifier, c, {}).request(60.0)) for c in job.corners]
-        steps = [s.command for s in build_testbench(amplifier, job.corners[0], {}).steps]
+        steps = [step.command for step in requests[0][1].steps]
         with WorkerPool(1) as one, WorkerPool(2) as two:
             pools = {1: one, 2: two}
             for workers, pool in pools.items():

@@ -88,8 +88,8 @@ def test_after_work_runs_in_the_worker_and_a_failure_there_keeps_the_analysis():
 def test_no_analysis_waits_behind_a_long_one_while_a_worker_is_free():
     """Two warm workers, a long transient and two short AC runs, in that order: the short
     ones go to the free worker (neither is queued behind the long one), so the long one
-    finishes last. Queueing a second task behind a running one is only worth its round
-    trip while more tasks wait than there are workers."""
+    finishes last. A second task is queued behind a running one only while at least as
+    many tasks wait as there are workers."""
     from amploop.pool import WorkerPool
 
     step_rc = RC.replace("ac 1", "ac 1 pulse(0 1 0 1u 1u 1 2)")
