@@ -54,10 +54,20 @@ def samples_around(cc: float, rc: float, cc_bounds) -> list[dict[str, float]]:
     return [{"cc": v, "rc": rc} for v in values]
 
 
+def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
+    """A point on the map, ``{"cc", "rc"}``, as the values to simulate by role.
+
+    Without an Rc to tune, the map's Rc coordinate is 0: Z = 1/(sCc), and whatever fixed Rc
+    the netlist holds is part of the map's coefficients (Z_netlist = Rc_fixed + Z is affine
+    in Z, so the loop gain stays bilinear in Z). Only Cc is then set in the netlist.
+    """
+    return dict(point) if has_rc else {"cc": point["cc"]}
+
+
 def _maps(evaluator: Evaluator, results: list[PointResult]) -> dict[str, CompensationMap]:
     maps = {}
     for index, corner in enumerate(evaluator.corners):
-        samples = [(p.values["cc"], p.values["rc"]) for p in results]
+        samples = [(p.values["cc"], p.values.get("rc", 0.0)) for p in results]
         responses = [p.corners[index].loop_gain for p in results]
         maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
     return maps
@@ -93,8 +103,9 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         return tune_device_by_map(evaluator, target, max_rounds=max(max_rounds, 4))
     knobs = evaluator.amplifier.job.compensation
     in_effect = evaluator.full_values({})
+    has_rc = "rc" in knobs
     cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])
-    rc_now = in_effect.get("rc", 0.0)
+    rc_now = in_effect.get("rc", 0.0) if has_rc else 0.0
     rc_bounds = bounds_of(knobs.get("rc"), rc_now)
     rc_sample = min(max(rc_now, rc_bounds[0]), rc_bounds[1])
     aim = target.phase_margin_deg + 0.1 * target.tolerance_deg
@@ -105,7 +116,8 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     verified: PointResult | None = None
     predictions = []
     for round_number in range(1, max_rounds + 1):
-        characterised = evaluator.simulate(samples, kind="characterise",
+        characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
+                                           kind="characterise",
                                            note=f"round {round_number}")
         failed = next((p for p in characterised if p.errors), None)
         if failed is not None:
