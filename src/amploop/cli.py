@@ -126,8 +126,22 @@ def _figure(value, fmt: str) -> str:
     return "–" if value is None else format(value, fmt)
 
 
-def corner_table(corners) -> str:
-    """The per-corner table printed by ``measure`` (and by ``tune`` at the end)."""
+def _corner_note(corner, target) -> str:
+    """``ok``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956 dB < 10 dB``)."""
+    if corner.status != "ok":
+        return "ERROR"
+    if target is not None:
+        from .strategy.common import corner_shortfall
+
+        missed = corner_shortfall(corner, target)
+        if missed:
+            return missed
+    return "ok"
+
+
+def corner_table(corners, target=None) -> str:
+    """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
+    corner that misses the ``target`` says which margin and by how much)."""
     header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover", "note"]
     rows = []
     for c in corners:
@@ -139,7 +153,7 @@ def corner_table(corners) -> str:
             _figure(m and m.phase_margin_deg, ".2f"),
             _figure(m and m.gain_margin_db, ".2f"),
             engineering(m and m.phase_crossover_hz, "Hz"),
-            "ok" if c.status == "ok" else "ERROR",
+            _corner_note(c, target),
         ])
     return _table(rows, header)
 
@@ -275,12 +289,14 @@ def _run_tune(args) -> ExitCode:
     elif not args.quiet:
         values = _values_line(job, result.outcome.values)
         print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
-        print(corner_table(result.corners))
+        print(corner_table(result.corners, job.target))
         print(result.outcome.message)
         print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, "
               f"{len(result.history)} points in {result.seconds:.1f} s; results in {result.out}")
         if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
             print(f"compensated netlist: {data['compensated_netlist']['path']}")
+        elif result.status != "converged":
+            print(f"no compensated netlist written: the run is {result.status}")
     if not args.no_report and result.outcome.final is not None:
         _write_report(result.out, quiet=args.quiet or args.json)
     if not args.quiet:

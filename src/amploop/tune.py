@@ -52,8 +52,8 @@ class TuneResult:
     seconds
         Wall time of the run, seconds.
     compensated
-        The compensated netlist: ``{"path", "files", "diff"}``; None without a verified
-        point.
+        The compensated netlist: ``{"path", "files", "diff"}``; None unless the run
+        converged (a run that misses its target writes none).
     loop_gains
         (history step, corner name) -> the loop gain simulated there.
     simulator_seconds
@@ -257,8 +257,11 @@ def tune(
             if own_pool:
                 pool.close()
         compensated = None
-        if outcome.final is not None:
+        if outcome.status == "converged":
             compensated = compensated_netlist(amplifier, outcome.values, folder)
+        else:
+            _remove_compensated(folder, amplifier)
+        if outcome.final is not None:
             _write_final_files(folder, amplifier, outcome)
         result = TuneResult(job=job, strategy=strategy, outcome=outcome,
                             history=tuple(evaluator.history), ac_run=runner.ac_run,
@@ -272,6 +275,15 @@ def tune(
                             warnings=amplifier.warnings + _step_warnings(checks))
         folder.write_json("results.json", result.as_json())
     return result
+
+
+def _remove_compensated(folder: OutFolder, amplifier: Amplifier) -> None:
+    """Remove compensated copies an earlier run wrote into this out folder: a run that did
+    not meet its target writes none, and an old copy would read as this run's answer."""
+    for path in amplifier.netlist.files:
+        stale = folder.path / "compensated" / path.name
+        if stale.is_file():
+            stale.unlink()
 
 
 def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> None:

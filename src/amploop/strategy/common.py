@@ -25,7 +25,9 @@ __all__ = [
     "PointResult",
     "WorstCase",
     "bounds_of",
+    "corner_shortfall",
     "meets_target",
+    "missed_target",
     "not_simulated",
     "worst_case",
 ]
@@ -82,6 +84,72 @@ def meets_target(worst: WorstCase | None, target: Target) -> bool:
     if target.gain_margin_db is not None and worst.gain_margin_db is not None:
         return worst.gain_margin_db >= target.gain_margin_db
     return True
+
+
+def _below(value: float, bound: float, unit: str) -> str:
+    """``value`` with as many decimals (2 to 6) as it takes to read below ``bound``."""
+    for decimals in range(2, 7):
+        text = f"{value:.{decimals}f}"
+        if float(text) < bound:
+            break
+    return f"{text}{unit}"
+
+
+def corner_shortfall(corner: CornerResult, target: Target) -> str | None:
+    """What one measured corner misses of ``target``, e.g. ``"GM 9.9956 dB < 10 dB"``;
+    None when it meets it or did not measure.
+
+    Parameters
+    ----------
+    corner
+        One corner's result.
+    target
+        The phase margin (degrees) and the minimum gain margin (dB) every corner must reach.
+    """
+    m = corner.margins
+    if corner.status != "ok" or m is None:
+        return None
+    missed = []
+    if m.phase_margin_deg is not None and m.phase_margin_deg < target.phase_margin_deg:
+        missed.append(f"PM {_below(m.phase_margin_deg, target.phase_margin_deg, '°')} "
+                      f"< {target.phase_margin_deg:g}°")
+    if target.gain_margin_db is not None and m.gain_margin_db is not None and \
+            m.gain_margin_db < target.gain_margin_db:
+        missed.append(f"GM {_below(m.gain_margin_db, target.gain_margin_db, ' dB')} "
+                      f"< {target.gain_margin_db:g} dB")
+    return ", ".join(missed) or None
+
+
+def missed_target(corners: tuple[CornerResult, ...], target: Target) -> str | None:
+    """One sentence on which target the verified corners miss, naming the margin and the
+    corner; None when every corner meets it.
+
+    Parameters
+    ----------
+    corners
+        One point's verified results, one per corner.
+    target
+        The phase margin (degrees) and the minimum gain margin (dB) every corner must reach.
+    """
+    measured = [c for c in corners if c.status == "ok" and c.margins is not None]
+    missed = []
+    pms = [c for c in measured if c.margins.phase_margin_deg is not None]
+    if pms:
+        worst = min(pms, key=lambda c: c.margins.phase_margin_deg)
+        if worst.margins.phase_margin_deg < target.phase_margin_deg:
+            missed.append(
+                f"the verified phase margin "
+                f"{_below(worst.margins.phase_margin_deg, target.phase_margin_deg, '°')} at "
+                f"corner {worst.corner.name} misses the target {target.phase_margin_deg:g}°")
+    gms = [c for c in measured if c.margins.gain_margin_db is not None]
+    if target.gain_margin_db is not None and gms:
+        worst = min(gms, key=lambda c: c.margins.gain_margin_db)
+        if worst.margins.gain_margin_db < target.gain_margin_db:
+            missed.append(
+                f"the verified gain margin "
+                f"{_below(worst.margins.gain_margin_db, target.gain_margin_db, ' dB')} at "
+                f"corner {worst.corner.name} misses the target {target.gain_margin_db:g} dB")
+    return "; ".join(missed) or None
 
 
 @dataclass(frozen=True)

@@ -17,9 +17,9 @@ from ..compmap import CompensationMap
 from ..errors import TuningError
 from ..job import Target
 from ..units import describe_values, engineering
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
-from .mapping import _round, initial_samples, samples_around
-from .mapsolve import solve_on_maps
+from .common import Evaluator, Outcome, PointResult, bounds_of, missed_target, not_simulated
+from .mapping import initial_samples, samples_around
+from .mapsolve import round_on_maps, solve_on_maps
 from .triode import in_triode, resistance_at_size, square_law_resistance
 
 __all__ = ["device_operating_points", "model_card", "tune_device_by_map"]
@@ -154,9 +154,11 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
                 points, [p.corners[index].loop_gain for p in characterised])
             rc_of[corner.name] = (lambda s, r=resistance[corner.name], s0=size:
                                   resistance_at_size(r, s0, s, device.size))
-        solution = solve_on_maps(maps, cc_bounds, size_bounds, aim, target.gain_margin_db,
-                                 rc_of=rc_of)
-        point = {"cc": _round(solution.cc, cc_bounds), "rc": _round(solution.rc, size_bounds)}
+        optimum = solve_on_maps(maps, cc_bounds, size_bounds, aim, target.gain_margin_db,
+                                rc_of=rc_of)
+        solution = round_on_maps(maps, optimum, cc_bounds, size_bounds, aim,
+                                 target.gain_margin_db, rc_of=rc_of)
+        point = {"cc": solution.cc, "rc": solution.rc}
         verified = evaluator.simulate([point], kind="verify", note=f"round {round_number}")[0]
         rounds.append({"size": size, "resistance_ohm": resistance,
                        "predicted_pm_deg": solution.phase_margin_deg})
@@ -185,10 +187,9 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
                        f"the maps and the simulation still disagree by "
                        f"{abs(worst.phase_margin_deg - solution.phase_margin_deg):.2f}° after "
                        f"{len(rounds)} rounds", extra)
-    if not meets_target(worst, target):
-        return Outcome("failed", verified.values, verified,
-                       f"the verified worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                       f"misses the target {target.phase_margin_deg:g}°", extra)
+    missed = missed_target(verified.corners, target)
+    if missed is not None:
+        return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° (corner "
                    f"{worst.limiting_corner}) at {values_text}", extra)

@@ -16,9 +16,9 @@ import math
 
 from ..compmap import CompensationMap
 from ..job import Target
-from ..units import describe_values, engineering
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
-from .mapsolve import MapSolution, solve_on_maps
+from ..units import describe_values
+from .common import Evaluator, Outcome, PointResult, bounds_of, missed_target, not_simulated
+from .mapsolve import MapSolution, round_on_maps, solve_on_maps
 
 __all__ = ["initial_samples", "tune_by_map"]
 
@@ -123,11 +123,11 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         if failed is not None:
             return not_simulated(failed, in_effect)
         maps = _maps(evaluator, characterised)
-        solution = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
-        # 4 significant digits: what a designer writes into the netlist, and what is verified
-        point = {"cc": _round(solution.cc, cc_bounds)}
-        if "rc" in in_effect:
-            point["rc"] = _round(solution.rc, rc_bounds)
+        optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        # 4 significant digits, what a designer writes into the netlist and what is
+        # verified, chosen on the maps so that rounding keeps every constraint met
+        solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        point = knob_values({"cc": solution.cc, "rc": solution.rc}, has_rc)
         verified = evaluator.simulate([point], kind="verify",
                                       note=f"round {round_number}")[0]
         predictions.append(solution)
@@ -155,31 +155,10 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             f"{abs(worst.phase_margin_deg - solution.phase_margin_deg):.2f}° after "
             f"{len(predictions)} rounds (does the operating point depend on Cc or Rc?)", extra,
         )
-    if not meets_target(worst, target):
-        return Outcome("failed", verified.values, verified,
-                       f"the verified worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                       f"misses the target {target.phase_margin_deg:g}°", extra)
+    missed = missed_target(verified.corners, target)
+    if missed is not None:
+        return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                   f"(corner {worst.limiting_corner}) at " + describe_values(verified.values)
-                   + _at_bounds(verified.values, {"cc": cc_bounds, "rc": rc_bounds}), extra)
-
-
-def _at_bounds(values: dict[str, float], bounds: dict[str, tuple[float, float]]) -> str:
-    """A note for values that sit on a bound: a wider bound might give more bandwidth."""
-    notes = []
-    for role, value in values.items():
-        low, high = bounds.get(role, (None, None))
-        unit = "F" if role == "cc" else "Ω"
-        name = "Cc" if role == "cc" else "Rc"
-        if high is not None and high > low and value >= high * (1 - 1e-9):
-            notes.append(f"{name} is at its upper bound {engineering(high, unit, 4)}")
-        elif low is not None and high > low and value <= low * (1 + 1e-9) and low > 0:
-            notes.append(f"{name} is at its lower bound {engineering(low, unit, 4)}")
-    return f" ({'; '.join(notes)}: a wider bound may give more bandwidth)" if notes else ""
-
-
-def _round(value: float, bounds: tuple[float, float]) -> float:
-    """``value`` to 4 significant digits, kept inside ``bounds``."""
-    rounded = float(f"{value:.4g}")
-    return min(max(rounded, bounds[0]), bounds[1])
+                   f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
+                   extra)

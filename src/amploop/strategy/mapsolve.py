@@ -7,19 +7,23 @@ phase margin ≥ the aim and gain margin ≥ its minimum. A coarse grid over the
 the vectorised :func:`~amploop.margins.grid_margins`, then four zoom levels refine around
 the best point; the final figures come from the exact :func:`~amploop.margins.loop_margins`.
 When no point is feasible, the same search minimises the shortfall instead.
+:func:`round_on_maps` then picks the point with 4 significant digits (what a designer
+writes into the netlist) next to the optimum that stays on its feasible side.
 Pure functions: no files, no simulator.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from ..compmap import CompensationMap
 from ..margins import grid_margins, loop_margins
 
-__all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "solve_on_maps"]
+__all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
+           "rounded_neighbours", "solve_on_maps"]
 
 
 @dataclass(frozen=True)
@@ -201,3 +205,81 @@ def solve_on_maps(
     pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
                        unity_gain_hz=ugf, gain_margin_db=gm, limiting_corner=limiting)
+
+
+def rounded_neighbours(value: float, bounds: tuple[float, float], digits: int = 4,
+                       reach: int = 2) -> list[float]:
+    """Values with ``digits`` significant digits around ``value``, kept inside ``bounds``.
+
+    ``reach`` steps of the last digit below and above: with ``reach`` = 2 and
+    ``value`` = 2.95812e-13, [2.957e-13, 2.958e-13, 2.959e-13, 2.96e-13] (sorted, without
+    repeats; a value clipped to a bound is the bound itself). 0 and non-finite values are
+    only clipped.
+
+    Parameters
+    ----------
+    value
+        The value, SI.
+    bounds
+        (min, max), SI.
+    digits
+        Significant digits of the neighbours.
+    reach
+        How many steps of the last digit to go each way.
+    """
+    low, high = bounds
+    if value == 0 or not math.isfinite(value):
+        return [min(max(value, low), high)]
+    step = 10.0 ** (math.floor(math.log10(abs(value))) - digits + 1)
+    down, up = math.floor(value / step), math.ceil(value / step)
+    candidates = [(down - k) * step for k in range(reach)] + [(up + k) * step for k in range(reach)]
+    return sorted({min(max(float(f"{v:.{digits}g}"), low), high) for v in candidates})
+
+
+def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
+                  cc_bounds: tuple[float, float], rc_bounds: tuple[float, float],
+                  aim_pm: float, gm_min: float | None = None, *, digits: int = 4,
+                  rc_of: dict | None = None) -> MapSolution:
+    """The point with ``digits`` significant digits next to ``solution`` that keeps its
+    constraints met on the maps.
+
+    The optimum usually sits on a constraint (the phase-margin aim, or the gain-margin
+    minimum, which has no slack), so rounding each value to its nearest neighbour can
+    step just outside it (9.9956 dB against 10 dB). Instead, every pair of
+    :func:`rounded_neighbours` of Cc and Rc (two steps each way) is evaluated exactly on
+    the maps (:func:`predicted_worst`) and the best is chosen as in the search: the largest
+    worst-corner unity-gain frequency among the feasible pairs, else the least shortfall.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    solution
+        The optimum found by :func:`solve_on_maps`.
+    cc_bounds, rc_bounds
+        (min, max) in F and Ω (sizes with ``rc_of``).
+    aim_pm
+        Worst-corner phase margin to reach, degrees.
+    gm_min
+        Worst-corner gain margin to reach, dB (None: no constraint).
+    digits
+        Significant digits of the values.
+    rc_of
+        As for :func:`solve_on_maps`.
+
+    Returns
+    -------
+    MapSolution
+        The rounded point with its predicted figures; ``feasible`` is that of ``solution``
+        (whether the problem has an answer within the bounds).
+    """
+    cc_values = rounded_neighbours(solution.cc, cc_bounds, digits)
+    rc_values = rounded_neighbours(solution.rc, rc_bounds, digits)
+    figures = [[predicted_worst(maps, cc, rc, rc_of) for rc in rc_values] for cc in cc_values]
+    pm = np.array([[f[0] for f in row] for row in figures])
+    ugf = np.array([[f[1] for f in row] for row in figures])
+    gm = np.array([[np.inf if f[2] is None else f[2] for f in row] for row in figures])
+    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min)
+    best_pm, best_ugf, best_gm, limiting = figures[i][j]
+    return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,
+                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, limiting_corner=limiting)

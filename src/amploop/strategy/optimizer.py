@@ -16,7 +16,7 @@ from scipy.optimize import minimize
 
 from ..job import Target
 from ..units import describe_values
-from .common import Evaluator, Outcome, bounds_of, meets_target
+from .common import Evaluator, Outcome, bounds_of, meets_target, missed_target
 
 __all__ = ["tune_by_optimizer"]
 
@@ -86,7 +86,10 @@ def tune_by_optimizer(evaluator: Evaluator, target: Target, *, max_evaluations: 
     feasible = [p for p in cache.values() if meets_target(p.worst, target)]
     if not feasible:
         best = max(cache.values(), key=lambda p: p.worst.phase_margin_deg if p.worst else -1e9)
-        return Outcome("failed", best.values, best, "the optimiser found no point meeting the target")
+        missed = missed_target(best.corners, target) or "a corner did not measure"
+        return Outcome("failed", best.values, best,
+                       "the optimiser found no point meeting the target; at its best, "
+                       + describe_values(best.values) + f", {missed}")
     best = max(feasible, key=lambda p: p.worst.unity_gain_hz)
     return Outcome("converged", best.values, best,
                    f"worst-corner phase margin {best.worst.phase_margin_deg:.2f}° at "

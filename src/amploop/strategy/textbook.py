@@ -21,7 +21,15 @@ import math
 from ..errors import TuningError
 from ..job import Target
 from ..units import describe_values, parse_value
-from .common import Evaluator, Outcome, PointResult, bounds_of, meets_target, not_simulated
+from .common import (
+    Evaluator,
+    Outcome,
+    PointResult,
+    bounds_of,
+    meets_target,
+    missed_target,
+    not_simulated,
+)
 from .twostage import (
     effective_load,
     feedback_factor,
@@ -181,15 +189,15 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
         if failed:
             return failed
     worst = current.worst
-    if meets_target(worst, target):
+    missed = missed_target(current.corners, target)
+    if missed is None:
         return Outcome("converged", current.values, current,
                        f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
                        f"(corner {worst.limiting_corner}) at " + describe_values(current.values))
     # the procedure cannot prove that nothing works, so this is a failure, not "infeasible"
     return Outcome("failed", current.values, current,
-                   f"the textbook procedure ends at worst-corner phase margin "
-                   f"{worst.phase_margin_deg:.2f}° (corner {worst.limiting_corner}) at "
-                   + describe_values(current.values))
+                   "the textbook procedure ends at " + describe_values(current.values)
+                   + f": {missed}")
 
 
 def _failure(point: PointResult) -> Outcome | None:
