@@ -11,7 +11,7 @@ from __future__ import annotations
 import difflib
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from .amplifier import Amplifier, prepare_amplifier
@@ -27,6 +27,7 @@ from .strategy import STRATEGIES, Evaluator, Outcome
 from .strategy.common import Evaluator as _Evaluator
 from .strategy.common import HistoryEntry, bounds_of
 from .strategy.mapping import initial_samples
+from .strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
 
 __all__ = ["TuneResult", "tune"]
 
@@ -238,6 +239,7 @@ def tune(
         evaluator.progress = progress
         try:
             outcome = STRATEGIES[strategy](evaluator, job.target)
+            outcome, remarks = _with_remarks(evaluator, outcome)
             if outcome.final is not None and time_domain and not any(
                     h.kind == "characterise" for h in evaluator.history):
                 # the report's map page needs three samples per corner; journalled like the
@@ -272,9 +274,25 @@ def tune(
                             transient_run=runner.transient_run,
                             transient_reused=runner.transient_reused,
                             values_in_netlist=amplifier.values_in_effect({}),
-                            warnings=amplifier.warnings + _step_warnings(checks))
+                            warnings=amplifier.warnings + remarks + _step_warnings(checks))
         folder.write_json("results.json", result.as_json())
     return result
+
+
+def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tuple[str, ...]]:
+    """The outcome with a note on values at or near their bounds added to its message, and
+    the warning on a lead zero below the unity-gain frequency (when the job names the
+    second-stage device and tunes a resistor for Rc)."""
+    if outcome.final is None or outcome.final.worst is None:
+        return outcome, ()
+    job = evaluator.amplifier.job
+    outcome = replace(outcome, message=outcome.message
+                      + bound_remark(outcome.values, job.compensation))
+    if "rc" not in job.compensation:
+        return outcome, ()
+    gm2 = second_stage_gm(evaluator)
+    lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
+    return outcome, (lead,) if lead else ()
 
 
 def _remove_compensated(folder: OutFolder, amplifier: Amplifier) -> None:

@@ -26,6 +26,7 @@ __all__ = [
     "WorstCase",
     "bounds_of",
     "corner_shortfall",
+    "gm_quantity",
     "meets_target",
     "missed_target",
     "not_simulated",
@@ -267,6 +268,12 @@ def not_simulated(point: PointResult, values: dict[str, float] | None = None) ->
     first = point.errors[0]
     return Outcome("failed", point.values if values is None else values, point,
                    f"corner {first.corner.name} did not simulate: {first.error}")
+
+
+def gm_quantity(device: str) -> str:
+    """ngspice's name of the operating-point gm of MOSFET ``device`` inside the amplifier
+    instance X1."""
+    return f"@m.x1.{device.lower()}[gm]"
 
 
 def bounds_of(knob: Knob | None, fallback: float) -> tuple[float, float]:

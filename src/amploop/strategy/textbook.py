@@ -26,6 +26,7 @@ from .common import (
     Outcome,
     PointResult,
     bounds_of,
+    gm_quantity,
     meets_target,
     missed_target,
     not_simulated,
@@ -103,11 +104,9 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
     has_rc = "rc" in in_effect
     rc_bounds = bounds_of(knobs.get("rc"), in_effect.get("rc", 0.0))
 
-    def device(name: str) -> str:
-        return f"@m.x1.{name.lower()}[gm]"
-
     gms = evaluator.device_quantities(
-        {"gm1": device(amp.input_device), "gm2": device(amp.second_stage_device)}, in_effect)
+        {"gm1": gm_quantity(amp.input_device), "gm2": gm_quantity(amp.second_stage_device)},
+        in_effect)
     fb = job.feedback
     starts = []
     for corner in evaluator.corners:
