@@ -8,6 +8,7 @@ margins the tuning reported.
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import signal
@@ -73,6 +74,26 @@ def test_fresh_measurement_of_the_compensated_netlist_agrees(demo_tuned, tmp_pat
         assert corner.margins.phase_margin_deg == pytest.approx(reported[corner.corner.name],
                                                                 abs=0.05)
     assert fresh.values == pytest.approx(data["values"])
+
+
+def test_a_lead_zero_below_the_unity_gain_frequency_is_flagged_and_settles_slowly(demo_tuned):
+    """At 292.8 fF and 20 kΩ the lead zero 1/(2π·Cc·(Rc − 1/gm2)) sits below the unity-gain
+    frequency of the fast corners: the warning names the corner, and there the simulated
+    step settles (to 0.1 %) far slower than a one-pole loop of that bandwidth,
+    ln(1000)/(2π·f_u) (common practice), and close to ln(1000) times the doublet's time
+    constant the warning gives (the tail's amplitude is below 1, so a little less)."""
+    _, result = demo_tuned
+    warning = next((w for w in result.warnings if "lead zero" in w), None)
+    assert warning is not None, result.warnings
+    corner_name = re.search(r"at corner (\S+)", warning).group(1)
+    corner = next(c for c in result.corners if c.corner.name == corner_name)
+    zero_hz = float(re.search(r"= ([\d.]+) MHz sits below", warning).group(1)) * 1e6
+    assert zero_hz < corner.margins.unity_gain_hz
+    settling = result.step_checks[corner_name].metrics.settling_s
+    one_pole = math.log(1000) / (2 * math.pi * corner.margins.unity_gain_hz)
+    doublet = math.log(1000) / (2 * math.pi * zero_hz)
+    assert settling > 2.5 * one_pole
+    assert 0.7 * doublet < settling < 1.05 * doublet
 
 
 def test_rerun_reuses_every_analysis_and_lands_on_the_same_values(demo_tuned):

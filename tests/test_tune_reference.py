@@ -231,6 +231,36 @@ def test_infeasible_is_an_answer(tmp_path):
     assert data["status"] == "infeasible"
 
 
+def test_cc_alone_around_a_fixed_rc_is_confirmed_by_the_exact_model(tmp_path):
+    """No rc entry and Rc = 1.5 kΩ fixed in the netlist: the map (Z = 1/(sCc), the fixed
+    Rc inside its coefficients) tunes Cc alone. Each corner's verified phase margin equals
+    the exact nodal model's at (Cc, 1.5 kΩ) within 0.05°, the worst lands in the target
+    window, and a Cc 1 % smaller (more bandwidth) would miss the target on the exact model
+    (the margin rises with Cc on this loop)."""
+    job_path = write_job(tmp_path / "job")
+    text = job_path.read_text()
+    job_path.write_text("\n".join(line for line in text.splitlines()
+                                  if not line.startswith("rc = ")))
+    netlist = tmp_path / "job" / "macro.cir"
+    netlist.write_text(netlist.read_text().replace(".param cc=1p rc=0", ".param cc=1p rc=1500"))
+    result = tune(load_job(job_path), out=tmp_path / "out", workers=2, time_domain=False)
+    assert result.status == "converged", result.outcome.message
+    assert set(result.outcome.values) == {"cc"}
+    cc = result.outcome.values["cc"]
+    worst = result.outcome.final.worst
+    assert TARGET_PM <= worst.phase_margin_deg <= TARGET_PM + TOLERANCE
+    exact_pms = []
+    for corner in result.corners:
+        model = CORNERS[corner.corner.name]
+        pm, _, _ = _dense_margins(exact_loop_gain(model.with_(cc=cc, rc=1500.0), _F)[None, :])
+        assert pm[0] == pytest.approx(corner.margins.phase_margin_deg, abs=0.05)
+        smaller, _, _ = _dense_margins(
+            exact_loop_gain(model.with_(cc=0.99 * cc, rc=1500.0), _F)[None, :])
+        exact_pms.append((pm[0], smaller[0]))
+    assert min(p for p, _ in exact_pms) >= TARGET_PM - 0.05
+    assert min(s for _, s in exact_pms) < TARGET_PM + 0.1 * TOLERANCE
+
+
 # --- textbook facts (common practice) ---------------------------------------------------
 
 
