@@ -134,22 +134,17 @@ def missed_target(corners: tuple[CornerResult, ...], target: Target) -> str | No
     """
     measured = [c for c in corners if c.status == "ok" and c.margins is not None]
     missed = []
-    pms = [c for c in measured if c.margins.phase_margin_deg is not None]
-    if pms:
-        worst = min(pms, key=lambda c: c.margins.phase_margin_deg)
-        if worst.margins.phase_margin_deg < target.phase_margin_deg:
-            missed.append(
-                f"the verified phase margin "
-                f"{_below(worst.margins.phase_margin_deg, target.phase_margin_deg, '°')} at "
-                f"corner {worst.corner.name} misses the target {target.phase_margin_deg:g}°")
-    gms = [c for c in measured if c.margins.gain_margin_db is not None]
-    if target.gain_margin_db is not None and gms:
-        worst = min(gms, key=lambda c: c.margins.gain_margin_db)
-        if worst.margins.gain_margin_db < target.gain_margin_db:
-            missed.append(
-                f"the verified gain margin "
-                f"{_below(worst.margins.gain_margin_db, target.gain_margin_db, ' dB')} at "
-                f"corner {worst.corner.name} misses the target {target.gain_margin_db:g} dB")
+    for what, attribute, bound, unit in (
+            ("phase margin", "phase_margin_deg", target.phase_margin_deg, "°"),
+            ("gain margin", "gain_margin_db", target.gain_margin_db, " dB")):
+        have = [c for c in measured if getattr(c.margins, attribute) is not None]
+        if bound is None or not have:
+            continue
+        worst = min(have, key=lambda c: getattr(c.margins, attribute))
+        value = getattr(worst.margins, attribute)
+        if value < bound:
+            missed.append(f"the verified {what} {_below(value, bound, unit)} at corner "
+                          f"{worst.corner.name} misses the target {bound:g}{unit}")
     return "; ".join(missed) or None
 
 
