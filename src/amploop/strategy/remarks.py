@@ -67,7 +67,7 @@ def bound_remark(values: dict[str, float], knobs: dict[str, Knob],
             if share <= 1e-9:
                 notes.append(f"{name} is at its {side} bound {engineering(bound, unit, 4)}")
             elif share <= near:
-                notes.append(f"{name} = {engineering(value, unit, 4)} is within {share:.1%} "
+                notes.append(f"{name} = {engineering(value, unit, 4)} is within {share * 100:.1f} % "
                              f"of its {side} bound {engineering(bound, unit, 4)}")
             else:
                 continue
