@@ -12,6 +12,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
+from .deckfiles import files_read
 from .errors import NetlistError, did_you_mean
 from .job import Job, Knob
 from .netlist import (
@@ -90,8 +91,10 @@ class Amplifier:
     sites
         Role (``"cc"``, ``"rc"``) -> where the netlist keeps that value.
     control_blocks
-        ``(file, line)`` of each ``.control`` block in the user's files and the models file
-        (empty unless they were allowed).
+        ``(file, line)`` of each line that makes ngspice run commands (a ``.control``
+        block, a ``*#`` line...) in the files a testbench reads (empty unless allowed).
+    reads
+        Every file a testbench reads, transitively (:func:`amploop.deckfiles.files_read`).
     device
         The MOSFET that stands in for Rc; None when Rc is not a device.
     warnings
@@ -103,6 +106,7 @@ class Amplifier:
     subckt: Subckt
     sites: dict[str, KnobSite]
     control_blocks: tuple[tuple[Path, int], ...] = ()
+    reads: tuple[Path, ...] = ()
     device: Device | None = None
     warnings: tuple[str, ...] = ()
 
@@ -127,12 +131,10 @@ class Amplifier:
 
     @property
     def files(self) -> tuple[Path, ...]:
-        """Every file a testbench of this amplifier reads, for hashing and bundling."""
-        files = list(self.netlist.dependencies())
-        files += list(self.job.amplifier.includes)
-        if self.job.amplifier.models is not None:
-            files.append(self.job.amplifier.models)
-        return tuple(dict.fromkeys(files))
+        """Every file a testbench of this amplifier reads, transitively, for hashing and
+        bundling: the netlist's files, the job's includes, the models file and every file
+        any of them reads."""
+        return self.reads
 
     def find_word(self, word: str) -> Statement | None:
         """The first statement of the user's files that uses ``word`` (case-insensitive)."""
@@ -305,22 +307,17 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         or a file holds a ``.control`` block and ``allow_control`` is False.
     """
     netlist = read_netlist(job.amplifier.netlist)
+    inlined = frozenset(netlist.files)  # the testbench writes these into the deck as text
     for include in job.amplifier.includes:
         netlist.files.setdefault(include, read_source(include))
-    checked = list(netlist.files.values())
-    if job.amplifier.models is not None:  # read whole: a block in any section would run
-        checked += _model_files(job.amplifier.models)
-    control = tuple(
-        (source.path, s.line)
-        for source in checked
-        for s in source.statements
-        if s.keyword == ".control"
-    )
-    if control and not allow_control:
-        path, line = control[0]
+    sections = tuple(dict.fromkeys(c.lib for c in job.corners if c.lib is not None))
+    reads = files_read(netlist, includes=job.amplifier.includes, models=job.amplifier.models,
+                       sections=sections, inlined=inlined)
+    control = tuple((path, line) for path, line, _ in reads.commands)
+    if reads.commands and not allow_control:
+        path, line, what = reads.commands[0]
         raise NetlistError(
-            "holds a .control block, which can run shell commands and write files",
-            file=path, place=line,
+            f"holds {what}", file=path, place=line,
             hint="remove it, or pass --allow-control if you wrote it and trust it",
         )
     subckt = netlist.subckt(job.amplifier.subckt)
@@ -338,7 +335,8 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         if warning:
             warnings.append(warning)
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
-                     control_blocks=control, device=device, warnings=tuple(warnings))
+                     control_blocks=control, reads=reads.files, device=device,
+                     warnings=tuple(warnings))
 
 
 def _device(job: Job, subckt: Subckt, site: KnobSite, scope: dict) -> tuple[Device, str | None]:
@@ -366,25 +364,6 @@ def _device(job: Job, subckt: Subckt, site: KnobSite, scope: dict) -> tuple[Devi
             "signal; put it between the first-stage output and Cc"
         )
     return device, warning
-
-
-def _model_files(models: Path) -> list:
-    """The models file and every file its sections include (for the .control check)."""
-    from .netlist import _include_target
-
-    sources, queue, seen = [], [models], set()
-    while queue:
-        path = queue.pop()
-        if path in seen or not path.is_file():
-            continue
-        seen.add(path)
-        source = read_source(path)
-        sources.append(source)
-        for statement in source.statements:
-            target = _include_target(statement)
-            if target is not None:
-                queue.append(target[0])
-    return sources
 
 
 def _check_ports(job: Job, subckt: Subckt) -> None:

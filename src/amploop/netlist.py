@@ -20,6 +20,7 @@ from pathlib import Path
 
 from .errors import NetlistError, did_you_mean
 from .expressions import evaluate
+from .ngread import command_line, deck_text, dot_command, not_a_file
 
 __all__ = [
     "LogicalLine",
@@ -27,6 +28,8 @@ __all__ = [
     "SourceFile",
     "Statement",
     "Subckt",
+    "check_target",
+    "include_target",
     "lib_sections",
     "read_netlist",
     "read_source",
@@ -48,8 +51,9 @@ ANALYSIS_COMMANDS = frozenset(
     }
 )
 
-# Files a netlist reaches through these commands are read by ngspice when it loads the deck.
-_INCLUDE_COMMANDS = frozenset({".include", ".inc", ".incl"})
+# Files a netlist reaches through this command (any word ngspice takes for it: .inc, .incl,
+# .incfoo; see ngread.dot_command) are read by ngspice when it loads the deck.
+_INCLUDE_COMMANDS = frozenset({".include"})
 
 
 @dataclass(frozen=True)
@@ -112,7 +116,9 @@ def split_logical_lines(text: str) -> list[LogicalLine]:
     Parameters
     ----------
     text
-        The whole file. Line endings may be ``\\n`` or ``\\r\\n``.
+        The whole file. Every character that ends a line for ngspice or for
+        :meth:`str.splitlines` ends one here (``\\n``, ``\\r\\n``, ``\\r``, form feed,
+        U+2028, ...: :data:`amploop.ngread.LINE_BREAKS`).
 
     Returns
     -------
@@ -120,9 +126,7 @@ def split_logical_lines(text: str) -> list[LogicalLine]:
         In file order; every physical line belongs to exactly one logical line, so
         joining all ``raw`` tuples gives the file back.
     """
-    physical = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
-    if physical and physical[-1] == "":
-        physical.pop()
+    physical = text.splitlines()
     logical: list[LogicalLine] = []
     for number, line in enumerate(physical, start=1):
         stripped = line.strip()
@@ -324,8 +328,9 @@ class Statement:
 
     @property
     def keyword(self) -> str:
-        """The first token in lower case: an element name or a dot-command."""
-        return self.tokens[0].lower()
+        """The first token in lower case: an element name, or the dot-command ngspice takes
+        it for (``.incfoo`` is ``.include``: :func:`amploop.ngread.dot_command`)."""
+        return dot_command(self.tokens[0])
 
     @property
     def where(self) -> str:
@@ -345,11 +350,20 @@ class SourceFile:
     statements
         The statements of those lines, in file order, without comment and blank lines or
         the insides of ``.control`` blocks.
+    commands
+        ``(line, what)`` for each line that makes ngspice run commands: a ``.control``
+        block, a ``*#`` comment line, a ``.title`` naming ``*ng_script``
+        (:func:`amploop.ngread.command_line`).
+    bom
+        The file began with a UTF-8 byte-order mark (left out of ``lines``); ngspice 39
+        cannot read such a file itself, so the testbench inlines it.
     """
 
     path: Path
     lines: tuple[LogicalLine, ...]
     statements: tuple[Statement, ...]
+    commands: tuple[tuple[int, str], ...] = ()
+    bom: bool = False
 
 
 @dataclass(frozen=True)
@@ -414,7 +428,7 @@ def _assignments(tokens: tuple[str, ...] | list[str]) -> list[tuple[str, str]]:
     return pairs
 
 
-def _include_target(statement: Statement) -> tuple[Path, str | None] | None:
+def include_target(statement: Statement) -> tuple[Path, str | None] | None:
     """The file (and section) an ``.include`` / ``.lib file section`` statement reads."""
     keyword = statement.keyword
     tokens = statement.tokens
@@ -449,16 +463,13 @@ def _resolve(statement: Statement, name: str) -> Path:
                            file=statement.file, place=statement.line) from None
 
 
-def _is_file(statement: Statement, path: Path) -> bool:
-    """``path.is_file()``, with a NetlistError naming the statement for a name the system
-    refuses (too long, say) instead of an OSError."""
-    try:
-        return path.is_file()
-    except (OSError, ValueError) as exc:
-        problem = getattr(exc, "strerror", None) or str(exc)
-        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: cannot use "
-                           f"{_shown(str(path))} ({problem})", file=statement.file,
-                           place=statement.line) from None
+def check_target(statement: Statement, path: Path) -> None:
+    """A NetlistError naming ``statement`` unless ``path`` (the file it includes) is a regular
+    file: missing, a directory, a device and a FIFO each get their own message."""
+    problem = not_a_file(path)
+    if problem is not None:
+        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: {problem} "
+                           f"({_shown(str(path))})", file=statement.file, place=statement.line)
 
 
 def read_source(path: Path, text: str | None = None) -> SourceFile:
@@ -492,24 +503,33 @@ def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceF
             raise NetlistError("file not found", file=path) from None
         except OSError as exc:
             raise NetlistError(f"cannot read: {exc.strerror}", file=path) from None
+    bom = text.startswith("\ufeff")
+    text = text.removeprefix("\ufeff")
+    if "\0" in text:  # ngspice's C strings end there: ".control\0x" opens a block
+        raise NetlistError("holds a NUL byte, which ngspice reads as the end of the line",
+                           file=path, place=len((text[: text.index("\0")] + "x").splitlines()),
+                           hint="netlists are text files")
     lines = tuple(split_logical_lines(text))
     statements: list[Statement] = []
+    commands: list[tuple[int, str]] = []
     subckt_stack: list[tuple[str, int]] = []
     section: tuple[str, int] | None = None
     in_control: int | None = None
     for index, logical in enumerate(lines):
+        commands.extend(_command_lines(logical))
         if not logical.text:
             continue
         tokens = tuple(tokenize(logical.text))
         if not tokens:
             continue
-        keyword = tokens[0].lower()
+        keyword = dot_command(tokens[0])
         if in_control is not None:
             if keyword == ".endc":
                 in_control = None
             continue
         if keyword == ".control":
             in_control = logical.number
+            commands.append((logical.number, _CONTROL_BLOCK))
         statement = Statement(
             file=path,
             index=index,
@@ -546,7 +566,21 @@ def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceF
         )
     if in_control is not None:
         raise NetlistError(".control block is never closed by .endc", file=path, place=in_control)
-    return SourceFile(path=path, lines=lines, statements=tuple(statements))
+    return SourceFile(path=path, lines=lines, statements=tuple(statements),
+                      commands=tuple(commands), bom=bom)
+
+
+_CONTROL_BLOCK = "a .control block, which can run shell commands and write files"
+
+
+def _command_lines(logical: LogicalLine) -> list[tuple[int, str]]:
+    """``(line, what)`` of the physical lines of ``logical`` that ngspice runs as commands."""
+    found = []
+    for offset, raw in enumerate(logical.raw):
+        what = command_line(raw)
+        if what is not None:
+            found.append((logical.number + offset, what))
+    return found
 
 
 def lib_sections(path: Path) -> dict[str, Statement]:
@@ -641,16 +675,10 @@ def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> 
         if statement.subckt is None and statement.keyword == ".param":
             for name, expr in _assignments(statement.tokens[1:]):
                 netlist.global_params[name.lower()] = (statement, expr)
-        target = _include_target(statement)
+        target = include_target(statement)
         if target is not None:
             target_path, target_section = target
-            if not _is_file(statement, target_path):
-                raise NetlistError(
-                    f"{statement.tokens[0]} {_shown(statement.tokens[1])}: file not found "
-                    f"({_shown(str(target_path))})",
-                    file=statement.file,
-                    place=statement.line,
-                )
+            check_target(statement, target_path)
             _read_into(netlist, target_path, target_section, seen)
             sections = _sections(netlist.files[target_path])
             if target_section is not None and target_section not in sections:
@@ -835,8 +863,8 @@ def render_file(
     text, notes
         The rendered text and one note per line that was left out.
 
-    Included files (and ``.lib file section`` sections) that hold an edit, or read a file
-    that does, are inlined (rendered recursively; a ``.end`` in them is commented out, as
+    Included files (and ``.lib file section`` sections) that hold an edit or begin with a
+    byte-order mark, or read a file that does, are inlined (rendered recursively; a ``.end`` in them is commented out, as
     ngspice ignores it there); the others stay as ``.include`` / ``.lib`` lines with
     absolute paths.
     """
@@ -846,8 +874,12 @@ def render_file(
 
 
 def _units_to_inline(netlist: Netlist, edits: dict[tuple[Path, int], str]) -> set:
-    """``(file, section)`` units whose text changes: they hold an edit or read one that does."""
-    needed: set[tuple[Path, str | None]] = set()
+    """``(file, section)`` units whose text changes: they hold an edit, begin with a byte-order
+    mark (ngspice 39 cannot read one), or read such a unit."""
+    needed: set[tuple[Path, str | None]] = {
+        (path, section) for path, source in netlist.files.items() if source.bom
+        for section in (None, *_sections(source))
+    }
     for file, index in edits:
         source = netlist.files.get(file)
         if source is None:
@@ -866,7 +898,7 @@ def _units_to_inline(netlist: Netlist, edits: dict[tuple[Path, int], str]) -> se
             if (path, section) in needed:
                 continue
             for statement in _active_statements(netlist.files[path], section):
-                if _include_target(statement) in needed:
+                if include_target(statement) in needed:
                     needed.add((path, section))
                     changed = True
                     break
@@ -905,14 +937,15 @@ def _render(
             out.append(edits[(path, index)])
             continue
         keyword = statement.keyword
-        target = _include_target(statement)
+        target = include_target(statement)
         if target is not None:
             target_path, target_section = target
             if target in inline and target not in active:
                 text, inner_notes = _render(netlist, target_path, target_section, edits,
                                             top_level=False, inline=inline,
                                             active=active | {target})
-                what = f"{target_path}" + (f" section {target_section}" if target_section else "")
+                what = _deck_path(statement, target_path) + (
+                    f" section {target_section}" if target_section else "")
                 out.append(f"* ---- begin {what} (inlined: amploop set values in it)")
                 out.append(text)
                 out.append(f"* ---- end {what}")
@@ -944,7 +977,7 @@ def _include_line(statement: Statement, path: Path, section: str | None) -> str:
     ones when it holds a double quote; ngspice 39 and the reader take either) and the section
     as written. NetlistError if that line would not read back the same (a path holding both
     kinds of quote, a section token that reads as a comment)."""
-    text = str(path)
+    text = _deck_path(statement, path)
     parts = [statement.tokens[0], f"'{text}'" if '"' in text else f'"{text}"']
     if section is not None:
         parts.append(statement.tokens[2])
@@ -954,6 +987,13 @@ def _include_line(statement: Statement, path: Path, section: str | None) -> str:
                            f"an include line that reads back the same for {text!r}",
                            file=statement.file, place=statement.line)
     return line
+
+
+def _deck_path(statement: Statement, path: Path) -> str:
+    """``path`` (resolved: a symbolic link may point anywhere) as deck text, or a NetlistError
+    naming ``statement`` when it holds a line break or control character."""
+    return deck_text(str(path), what=f"the file {statement.tokens[1]!r} resolves to a path that",
+                     file=statement.file, place=statement.line, error=NetlistError)
 
 
 def value_of(expression: str, params: dict[str, str], *, where: str) -> float:
