@@ -43,6 +43,18 @@ def one_corner_demo(folder: Path) -> Path:
     return folder / "job.toml"
 
 
+def demo_with_canary(tmp_path_factory) -> tuple[Path, Path, Path]:
+    """A fresh folder with :func:`one_corner_demo` in it, and the canary a payload touches."""
+    folder = tmp_path_factory.mktemp("job")
+    return folder, one_corner_demo(folder), folder / "canary"
+
+
+def assert_refused(code: int, err: list[str], canary: Path, words: str) -> None:
+    """Nothing ran; exit 2 with one line that holds ``words``."""
+    assert not canary.exists()
+    assert code == 2 and len(err) == 1 and words in err[0], err
+
+
 def run(job: Path, out: Path, capsys, *extra: str) -> tuple[int, list[str]]:
     capsys.readouterr()
     code = main(["measure", str(job), "--out", str(out), "--no-report", "--quiet", *extra])
@@ -72,14 +84,11 @@ def inject(job: Path, field: str, tail: str) -> None:
 @FEW
 @given(field=st.sampled_from(sorted(FIELDS)), sep=st.sampled_from(SEPARATORS))
 def test_a_line_break_in_a_job_value_never_reaches_the_shell(tmp_path_factory, capsys, field, sep):
-    folder = tmp_path_factory.mktemp("job")
-    job = one_corner_demo(folder)
-    canary = folder / "canary"
+    folder, job, canary = demo_with_canary(tmp_path_factory)
     inject(job, field, f"{sep}.control{sep}shell touch {canary}{sep}.endc{sep}*")
     code, err = run(job, folder / "out", capsys)
-    assert not canary.exists()
-    assert code == 2 and len(err) == 1, err
-    assert "line break or control character" in err[0] and "job.toml" in err[0]
+    assert_refused(code, err, canary, "line break or control character")
+    assert "job.toml" in err[0]
 
 
 @pytest.mark.parametrize("field", sorted(FIELDS))
@@ -145,36 +154,26 @@ def test_each_dialect_payload_is_live_and_refused(tmp_path, capsys, name):
         job = one_corner_demo(folder)
         canary = folder / "canary"
         place_payload(job, place, DIALECT[name].format(c=canary))
-        code, err = run(job, folder / "out", capsys)
-        assert not canary.exists()
-        assert code == 2 and len(err) == 1 and "--allow-control" in err[0], err
-        code, err = run(job, folder / "out-allowed", capsys, "--allow-control")
+        assert_refused(*run(job, folder / "out", capsys), canary, "--allow-control")
+        _, err = run(job, folder / "out-allowed", capsys, "--allow-control")
         assert canary.exists(), f"{name} in {place}: ngspice did not run it ({err})"
 
 
 @FEW
 @given(name=st.sampled_from(sorted(DIALECT)), place=st.sampled_from(PLACES))
 def test_no_dialect_payload_anywhere_reaches_the_shell(tmp_path_factory, capsys, name, place):
-    folder = tmp_path_factory.mktemp("job")
-    job = one_corner_demo(folder)
-    canary = folder / "canary"
+    folder, job, canary = demo_with_canary(tmp_path_factory)
     place_payload(job, place, DIALECT[name].format(c=canary))
-    code, err = run(job, folder / "out", capsys)
-    assert not canary.exists()
-    assert code == 2 and len(err) == 1 and "--allow-control" in err[0], err
+    assert_refused(*run(job, folder / "out", capsys), canary, "--allow-control")
 
 
 @FEW
 @given(sep=st.sampled_from(SEPARATORS), place=st.sampled_from(PLACES))
 def test_a_line_break_inside_a_comment_line_never_hides_a_control_block(tmp_path_factory,
                                                                          capsys, sep, place):
-    folder = tmp_path_factory.mktemp("job")
-    job = one_corner_demo(folder)
-    canary = folder / "canary"
+    folder, job, canary = demo_with_canary(tmp_path_factory)
     place_payload(job, place, f"* a note{sep}.control\nshell touch {canary}\n.endc")
-    code, err = run(job, folder / "out", capsys)
-    assert not canary.exists()
-    assert code == 2 and len(err) == 1 and ".control block" in err[0], err
+    assert_refused(*run(job, folder / "out", capsys), canary, ".control block")
 
 
 def test_a_form_feed_in_a_comment_line_opens_a_control_block_for_ngspice(tmp_path, capsys):
