@@ -221,3 +221,12 @@ def test_a_title_that_makes_the_deck_a_script_is_refused(tmp_path, capsys):
     code, err = run(job, tmp_path / "out", capsys)
     assert not canary.exists() and code == 2 and len(err) == 1
     assert "ng_script" in err[0] and "amp.cir" in err[0], err
+
+
+@pytest.mark.parametrize("field", ["job name", "corner name"])
+@pytest.mark.parametrize("tail", ["nul\u0000byte", "bell\u0007\u001b[2J"])
+def test_a_control_character_in_a_name_is_refused(tmp_path, capsys, field, tail):
+    job = one_corner_demo(tmp_path)
+    inject(job, field, tail)
+    assert_refused(*run(job, tmp_path / "out", capsys), tmp_path / "canary",
+                   "line break or control character")

@@ -326,8 +326,7 @@ def test_allow_control_runs_a_block_its_author_trusts(tmp_path, capsys):
     assert marker.exists()
 
 
-@pytest.mark.parametrize("name", ["../../escaped", "a/b/c", "/etc/evil", "nul\u0000byte",
-                                  "bell\u0007\u001b[2J", "..", ".", "CON"])
+@pytest.mark.parametrize("name", ["../../escaped", "a/b/c", "/etc/evil", "..", ".", "CON"])
 def test_corner_and_job_names_never_write_outside_the_out_folder(tmp_path, name):
     def edit(text: str) -> str:
         text = text.replace('name = "demo_two_stage_sc_gain2"', f'name = {json.dumps(name)}')

@@ -366,9 +366,12 @@ def netlist_like_text(draw) -> str:
 
 
 def physical_lines(text: str) -> list[str]:
-    """The physical lines of ``text`` (``\\n``, ``\\r\\n`` or ``\\r`` end a line; a last line
-    needs no ending), as the docstring of split_logical_lines describes them."""
-    lines = re.split(r"\r\n|\r|\n", text)
+    """The physical lines of ``text``, as the docstring of split_logical_lines describes them:
+    a last line needs no ending, and every line boundary of Python's ``str.splitlines``
+    ends one (the table in the Python documentation of ``str.splitlines``: ``\\n``,
+    ``\\r\\n``, ``\\r``, ``\\v``, ``\\f``, ``\\x1c``, ``\\x1d``, ``\\x1e``, ``\\x85``, U+2028,
+    U+2029)."""
+    lines = re.split(r"\r\n|[\n\r\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029]", text)
     if lines and lines[-1] == "":
         lines.pop()
     return lines
@@ -674,7 +677,10 @@ _value = st.one_of(
                      "{a>=b?1p:2p}", "{(rc+1)*2}", "1k$x", "{a;b}", "'a;b'", "{x $ y}",
                      "{ a // b }"]),
 )
-_COMMENT_CHARS = list("abc XYZ 019 '\"{}()[];$/*+=,.\t\\µΩé中😀\u00a0\u2028\x85\x0b\x0c\x00")
+# no line breaks of any kind (str.splitlines' set) and no NUL: inside a comment they would end
+# it (a NUL is refused), so a generated valid netlist leaves them out
+_NOT_IN_COMMENTS = "\r\n\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029\x00"
+_COMMENT_CHARS = list("abc XYZ 019 '\"{}()[];$/*+=,.\t\\µΩé中😀\u00a0\u200b\x1b\x7f")
 
 
 class Writer:
@@ -706,13 +712,13 @@ class Writer:
             if rng.random() < 0.2:  # any code point but surrogates and line ends
                 code = rng.randrange(0x110000)
                 ch = chr(code) if not 0xD800 <= code <= 0xDFFF else "?"
-                chars.append(ch if ch not in "\r\n" else " ")
+                chars.append(ch if ch not in _NOT_IN_COMMENTS else " ")
             else:
                 chars.append(rng.choice(_COMMENT_CHARS))
         return "".join(chars)
 
     def comment_line(self) -> str:
-        kind = self.rng.choice(("*", "  *", "", "   ", "\t", "\x0c", ";", "$ ", "//", "*+"))
+        kind = self.rng.choice(("*", "  *", "", "   ", "\t", "\u00a0", ";", "$ ", "//", "*+"))
         return kind + self.comment_text() if kind.strip() else kind
 
     def comment_lines(self, most: int) -> list[str]:

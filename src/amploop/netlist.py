@@ -429,7 +429,13 @@ def _assignments(tokens: tuple[str, ...] | list[str]) -> list[tuple[str, str]]:
 
 
 def include_target(statement: Statement) -> tuple[Path, str | None] | None:
-    """The file (and section) an ``.include`` / ``.lib file section`` statement reads."""
+    """The file (and section) an ``.include`` / ``.lib file section`` statement reads.
+
+    Parameters
+    ----------
+    statement
+        Any statement; None is returned for one that reads no file.
+    """
     keyword = statement.keyword
     tokens = statement.tokens
     if keyword in _INCLUDE_COMMANDS and len(tokens) >= 2:

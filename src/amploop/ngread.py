@@ -61,8 +61,16 @@ _COMMENT_COMMANDS = ("*#", ";#", "$#")
 def dot_command(token: str) -> str:
     """The command ngspice takes ``token`` (a statement's first word) for, in lower case.
 
-    ``.controlx`` -> ``.control``, ``.incfoo`` -> ``.include``, ``.library`` -> ``.lib``;
-    any other token is returned in lower case.
+    Parameters
+    ----------
+    token
+        The first word of a statement, as written.
+
+    Returns
+    -------
+    str
+        ``.controlx`` -> ``.control``, ``.incfoo`` -> ``.include``, ``.library`` ->
+        ``.lib``; any other token in lower case.
     """
     lowered = token.lower()
     if lowered.startswith("."):
@@ -130,6 +138,11 @@ def not_a_file(path: Path) -> str | None:
 
     A directory, a device, a FIFO or a socket each get their own reason: ngspice would
     crash or wait forever on some of them. The path is only looked at, never opened.
+
+    Parameters
+    ----------
+    path
+        The file an ``.include`` or ``.lib`` line names (absolute).
     """
     try:
         mode = os.stat(path).st_mode
