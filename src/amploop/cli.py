@@ -126,17 +126,12 @@ def _figure(value, fmt: str) -> str:
     return "–" if value is None else format(value, fmt)
 
 
-def _status_cell(status: str, warnings) -> str:
-    """``ok``, ``SUSPECT`` or ``ERROR``, with ``gmin`` when the operating point needed gmin
-    stepping."""
-    text = {"ok": "ok", "suspect": "SUSPECT"}.get(status, "ERROR")
-    return text + (" gmin" if any("gmin stepping" in w for w in warnings) else "")
-
-
 def _corner_note(corner, target) -> str:
     """``ok``, ``SUSPECT``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956
     dB < 10 dB``); followed by ``gmin`` where its operating point needed gmin stepping."""
-    label = _status_cell(corner.status, corner.warnings)
+    from .oppoint import status_label
+
+    label = status_label(corner.status, corner.warnings)
     if corner.status == "ok" and target is not None:
         from .strategy.common import corner_shortfall
 
@@ -339,6 +334,7 @@ def _run_tune(args) -> ExitCode:
     if not args.quiet:
         for warning in data.get("warnings", []):
             print(f"amploop: warning: {warning}", file=sys.stderr)
+        print_corner_remarks(result.corners)
         device = data.get("device")
         if device and not args.json:
             print(f"{device['name']} at {device['size']} = {engineering(device['value'], 'm', 4)}:"

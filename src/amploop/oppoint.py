@@ -42,6 +42,7 @@ __all__ = [
     "corner_status",
     "device_vector",
     "read_limits",
+    "status_label",
     "warning_advice",
 ]
 
@@ -317,13 +318,13 @@ def corner_status(response: FrequencyResponse, margins: Margins, op: OperatingPo
 #: What a simulator warning means and what to check, said once per run.
 _ADVICE = {
     "gmin stepping": (
-        "ngspice found no DC operating point directly and reached one by gmin stepping "
-        "(a conductance from every node to ground, removed step by step); that point can "
-        "be right, but a circuit that needs it often has a node with almost no DC path "
-        "(a large dc_path or bias resistor, gate leakage) or more than one DC solution: "
-        "check each such corner's DC output against the common mode and its devices' "
-        "regions (results.json \"operating_point\"), and measure again at a nearby "
-        "temperature or supply"),
+        "ngspice's direct Newton iteration found no DC operating point and gmin stepping "
+        "(a conductance from every node to ground, removed step by step) reached one; that "
+        "point can be right, but a circuit that needs it often has a node with almost no "
+        "DC path (a large dc_path or bias resistor, gate leakage) or more than one DC "
+        "solution: amploop checked the output against the common mode and the named "
+        "devices' regions (a corner that fails is SUSPECT), so check the other devices' "
+        "regions and look for such a node"),
     "transient fallback": (
         "ngspice reached the DC operating point only through a transient run, so it "
         "depends slightly on the capacitors, Cc included: check the corner's DC output "
@@ -335,3 +336,10 @@ def warning_advice(warning: str) -> str | None:
     """What the simulator warning ``warning`` means and what to check; None when there is
     nothing to add to the warning itself."""
     return next((text for key, text in _ADVICE.items() if key in warning), None)
+
+
+def status_label(status: str, warnings) -> str:
+    """A corner's status for a table: ``ok``, ``SUSPECT`` or ``ERROR``, followed by
+    ``gmin`` when one of its ``warnings`` says the operating point needed gmin stepping."""
+    text = {"ok": "ok", "suspect": "SUSPECT"}.get(status, "ERROR")
+    return text + (" gmin" if any("gmin stepping" in w for w in warnings) else "")
