@@ -51,6 +51,10 @@ OP_PLOT = "op1"
 #: The deck line that keeps it.
 KEEP_OP_LINE = ".options keepopinfo"
 
+#: How far an input must sit from the common mode to count as moved, volts (a choice:
+#: well above the offsets of a working amplifier's loop, well below a latched one's).
+INPUT_SHIFT_V = 1e-3
+
 _ROLES = ("input_device", "second_stage_device")
 _KEYS = {"min_dc_loop_gain", "max_output_shift"}
 
@@ -145,6 +149,8 @@ class OperatingPoint:
         The DC output voltage, volts; None when it could not be read.
     common_mode_v
         The input common mode, volts.
+    inverting_input_v
+        The inverting input's DC voltage, volts.
     supply_span_v
         The highest minus the lowest voltage of the supply ports and ground, volts; None
         without a voltage source on a port.
@@ -156,6 +162,7 @@ class OperatingPoint:
     common_mode_v: float | None
     supply_span_v: float | None
     devices: tuple[DeviceRegion, ...] = ()
+    inverting_input_v: float | None = None
 
     @property
     def output_shift_v(self) -> float | None:
@@ -164,10 +171,27 @@ class OperatingPoint:
             return None
         return self.output_v - self.common_mode_v
 
+    @property
+    def drives_like_positive_feedback(self) -> bool | None:
+        """True when the output has moved off the common mode the same way as the
+        inverting input (each by more than :data:`INPUT_SHIFT_V`): an amplifier whose
+        inverting input really is inverting, driven into a rail, has its inverting input
+        on the other side of the common mode (it takes v(in_p) − v(in_n) of the output's
+        sign to hold the output there), so this is what swapped inputs that latched the
+        loop look like. None when a voltage is unknown."""
+        shift = self.output_shift_v
+        if shift is None or self.inverting_input_v is None:
+            return None
+        input_shift = self.inverting_input_v - self.common_mode_v
+        return bool(abs(input_shift) > INPUT_SHIFT_V and abs(shift) > INPUT_SHIFT_V
+                    and (shift > 0) == (input_shift > 0))
+
     def as_json(self) -> dict:
         """The corner's ``operating_point`` entry in results.json."""
         return {"output_v": self.output_v, "common_mode_v": self.common_mode_v,
-                "output_shift_v": self.output_shift_v, "supply_span_v": self.supply_span_v,
+                "output_shift_v": self.output_shift_v,
+                "inverting_input_v": self.inverting_input_v,
+                "supply_span_v": self.supply_span_v,
                 "devices": [d.as_json() for d in self.devices]}
 
     def problems(self, limits: OperatingPointLimits) -> list[str]:
@@ -199,8 +223,8 @@ class OperatingPointProbe:
 
     Attributes
     ----------
-    output, common_mode
-        The vectors of the output and the common-mode source's node.
+    output, common_mode, inverting_input
+        The vectors of the output, the common-mode source's node and the inverting input.
     supplies
         The vectors of the ports driven by voltage sources.
     devices
@@ -214,6 +238,7 @@ class OperatingPointProbe:
     supplies: tuple[str, ...]
     devices: tuple[tuple[str, str], ...]
     limits: OperatingPointLimits
+    inverting_input: str = "v(tb_inn)"
 
     @classmethod
     def for_amplifier(cls, amplifier: Amplifier) -> OperatingPointProbe:
@@ -232,7 +257,7 @@ class OperatingPointProbe:
         """The command that reads the operating point after the AC runs (optional: a
         model without ``vdsat`` leaves that device's region unknown, never the loop gain
         unread)."""
-        reads = [self.output, self.common_mode, *self.supplies]
+        reads = [self.output, self.common_mode, self.inverting_input, *self.supplies]
         for _, name in self.devices:
             reads += [device_vector(name, "vds"), device_vector(name, "vdsat")]
         return Step(f"setplot {OP_PLOT}", tuple(dict.fromkeys(reads)), optional=True)
@@ -253,7 +278,8 @@ class OperatingPointProbe:
                                      value(device_vector(name, "vdsat")))
                         for role, name in self.devices)
         return OperatingPoint(output_v=value(self.output), common_mode_v=value(self.common_mode),
-                              supply_span_v=span or None, devices=devices)
+                              supply_span_v=span or None, devices=devices,
+                              inverting_input_v=value(self.inverting_input))
 
 
 _BROKEN_ADVICE = ("check what sets the DC level at the inverting input (a dc_path too large "
@@ -285,7 +311,14 @@ def corner_status(response: FrequencyResponse, margins: Margins, op: OperatingPo
         and the loop gain is above 0 dB at DC: what a swap of a working amplifier gives.
     """
     broken = op.problems(limits) if op is not None else []
-    cause = f"; the operating point is broken ({'; '.join(broken)}): {_BROKEN_ADVICE}"
+    if broken and op.drives_like_positive_feedback:
+        cause = (f"; the operating point is latched ({'; '.join(broken)}), the output "
+                 f"{engineering(abs(op.output_shift_v), 'V')} and the inverting input "
+                 f"{engineering(abs(op.inverting_input_v - op.common_mode_v), 'V')} both "
+                 f"{'above' if op.output_shift_v > 0 else 'below'} the common mode: positive "
+                 f"feedback; are in_p and in_n swapped?")
+    else:
+        cause = f"; the operating point is broken ({'; '.join(broken)}): {_BROKEN_ADVICE}"
     f0, f1 = response.frequency_hz[0], response.frequency_hz[-1]
     dc_db, dc_phase = margins.dc_loop_gain_db, float(response.phase_deg[0])
     if abs(dc_phase) > 90.0:
@@ -305,8 +338,7 @@ def corner_status(response: FrequencyResponse, margins: Margins, op: OperatingPo
             return "error", start + cause
         return "error", start + "; widen [analysis].start/stop or check the feedback network"
     if broken:
-        return "suspect", (f"the operating point is broken ({'; '.join(broken)}), so these "
-                           f"margins do not describe the amplifier: {_BROKEN_ADVICE}")
+        return "suspect", "these margins do not describe the amplifier" + cause
     if dc_db < limits.min_dc_loop_gain_db:
         return "suspect", (f"the DC loop gain is only {dc_db:.1f} dB (below "
                            f"{limits.min_dc_loop_gain_db:g} dB, [operating_point]."
