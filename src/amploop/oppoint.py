@@ -135,6 +135,7 @@ class DeviceRegion:
         return "saturation" if self.saturated else "triode"
 
     def as_json(self) -> dict:
+        """The device's entry in ``operating_point.devices`` of results.json."""
         return {"role": self.role, "name": self.name, "vds_v": self.vds_v,
                 "vdsat_v": self.vdsat_v, "region": self.region}
 
@@ -195,7 +196,8 @@ class OperatingPoint:
                 "devices": [d.as_json() for d in self.devices]}
 
     def problems(self, limits: OperatingPointLimits) -> list[str]:
-        """What is wrong with it, one clause each (empty: nothing found)."""
+        """What is wrong with it against ``limits`` (the job's ``[operating_point]``), one
+        clause each (empty: nothing found)."""
         found = []
         shift = self.output_shift_v
         span = self.supply_span_v
@@ -263,8 +265,8 @@ class OperatingPointProbe:
         return Step(f"setplot {OP_PLOT}", tuple(dict.fromkeys(reads)), optional=True)
 
     def read(self, values: dict[str, np.ndarray]) -> OperatingPoint | None:
-        """The operating point from the vectors the :meth:`step` read; None when none
-        were read."""
+        """The operating point from ``values``, the vectors the :meth:`step` read (name ->
+        array); None when none were read."""
         if not values:
             return None
 
@@ -371,7 +373,7 @@ def warning_advice(warning: str) -> str | None:
 
 
 def status_label(status: str, warnings) -> str:
-    """A corner's status for a table: ``ok``, ``SUSPECT`` or ``ERROR``, followed by
+    """A corner's ``status`` for a table: ``ok``, ``SUSPECT`` or ``ERROR``, followed by
     ``gmin`` when one of its ``warnings`` says the operating point needed gmin stepping."""
     text = {"ok": "ok", "suspect": "SUSPECT"}.get(status, "ERROR")
     return text + (" gmin" if any("gmin stepping" in w for w in warnings) else "")
