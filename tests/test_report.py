@@ -105,6 +105,8 @@ cc = {{ param = "cc" }}
 [transient]
 step = "1m"
 stop = "{20 * tau!r}"
+[operating_point]
+min_dc_loop_gain = 3   # this loop's DC loop gain, gm·(R ∥ 40 kΩ)·1/4 = 5.7 dB, is by design
 """)
     result = measure(load_job(folder / "job.toml"), out=tmp_path / "out", workers=1,
                      overrides={"cc": 1e-18})

@@ -127,25 +127,29 @@ def _figure(value, fmt: str) -> str:
 
 
 def _corner_note(corner, target) -> str:
-    """``ok``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956 dB < 10 dB``)."""
-    if corner.status != "ok":
-        return "ERROR"
-    if target is not None:
+    """``ok``, ``SUSPECT``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956
+    dB < 10 dB``); followed by ``gmin`` where its operating point needed gmin stepping."""
+    from .oppoint import status_label
+
+    label = status_label(corner.status, corner.warnings)
+    if corner.status == "ok" and target is not None:
         from .strategy.common import corner_shortfall
 
         missed = corner_shortfall(corner, target)
         if missed:
-            return missed
-    return "ok"
+            return missed + label[len("ok"):]
+    return label
 
 
 def corner_table(corners, target=None) -> str:
     """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
     corner that misses the ``target`` says which margin and by how much)."""
-    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover", "note"]
+    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover",
+              "out - CM", "note"]
     rows = []
     for c in corners:
         m = c.margins
+        op = c.operating_point
         rows.append([
             c.corner.name,
             _figure(m and m.dc_loop_gain_db, ".1f"),
@@ -153,9 +157,34 @@ def corner_table(corners, target=None) -> str:
             _figure(m and m.phase_margin_deg, ".2f"),
             _figure(m and m.gain_margin_db, ".2f"),
             engineering(m and m.phase_crossover_hz, "Hz"),
+            engineering(op and op.output_shift_v, "V"),
             _corner_note(c, target),
         ])
     return _table(rows, header)
+
+
+_SUSPECT_LINES = 5  # suspect corners named one by one; the rest are counted
+
+
+def print_corner_remarks(corners) -> None:
+    """On stderr: each suspect corner's reason, then each simulator warning once with the
+    corners it hit and what it means."""
+    from .oppoint import warning_advice
+
+    suspect = [c for c in corners if c.status == "suspect"]
+    for c in suspect[:_SUSPECT_LINES]:
+        print(f"amploop: suspect: corner {c.corner.name}: {c.suspect_reason}", file=sys.stderr)
+    if len(suspect) > _SUSPECT_LINES:
+        print(f"amploop: suspect: {len(suspect) - _SUSPECT_LINES} more corners (each one's "
+              "reason is in results.json)", file=sys.stderr)
+    by_warning: dict[str, list[str]] = {}
+    for c in corners:
+        for warning in c.warnings:
+            by_warning.setdefault(warning, []).append(c.corner.name)
+    for warning, names in by_warning.items():
+        advice = warning_advice(warning)
+        print(f"amploop: warning: {warning} ({_who(names, len(corners))})"
+              + (f": {advice}" if advice else ""), file=sys.stderr)
 
 
 def _progress_printer(quiet: bool):
@@ -184,19 +213,22 @@ def _values_line(job, values: dict) -> str:
     return ", ".join(parts)
 
 
+def _who(names: list[str], total: int) -> str:
+    """``corner a``, ``corners a, b``, ``corners a, b, c and 4 more``, ``all 9 corners``."""
+    if len(names) == total and total > 1:
+        return f"all {total} corners"
+    if len(names) > 3:
+        return f"corners {', '.join(names[:3])} and {len(names) - 3} more"
+    return ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
+
+
 def _print_corner_errors(failed, total: int) -> None:
     """One line per distinct problem, naming the corners it hit."""
     by_problem: dict[str, list[str]] = {}
     for c in failed:
         by_problem.setdefault(c.error or "failed", []).append(c.corner.name)
     for problem, names in by_problem.items():
-        if len(names) == total and total > 1:
-            who = f"all {total} corners"
-        elif len(names) > 3:
-            who = f"corners {', '.join(names[:3])} and {len(names) - 3} more"
-        else:
-            who = ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
-        print(f"amploop: error: {problem} ({who})", file=sys.stderr)
+        print(f"amploop: error: {problem} ({_who(names, total)})", file=sys.stderr)
 
 
 def _cluster_pool(args):
@@ -220,11 +252,13 @@ def _run_measure(args) -> ExitCode:
         result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
                          pool=pool, allow_control=args.allow_control,
                          progress=_progress_printer(args.quiet), time_domain=not args.no_report)
-    failed = [c for c in result.corners if c.status != "ok"]
+    failed = [c for c in result.corners if c.status == "error"]
+    suspect = [c for c in result.corners if c.status == "suspect"]
     if args.json:
         summary = result.as_json()
         print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
                          | {"failed_corners": [c.corner.name for c in failed],
+                            "suspect_corners": [c.corner.name for c in suspect],
                             "out": str(result.out)}))
     elif not args.quiet:
         values = _values_line(job, result.values)
@@ -235,17 +269,15 @@ def _run_measure(args) -> ExitCode:
     if not args.quiet:
         for warning in result.warnings:
             print(f"amploop: warning: {warning}", file=sys.stderr)
-        for c in result.corners:
-            for warning in c.warnings:
-                print(f"amploop: warning: corner {c.corner.name}: {warning}", file=sys.stderr)
+        print_corner_remarks(result.corners)
     _print_corner_errors(failed, len(result.corners))
-    if not args.no_report and any(c.status == "ok" for c in result.corners):
+    if not args.no_report and any(c.margins is not None for c in result.corners):
         _write_report(result.out, quiet=args.quiet or args.json)
     if failed:
         if all(c.error and "parse error" in c.error for c in failed):
             return ExitCode.BAD_INPUT
         return ExitCode.SIMULATOR_FAILURE
-    return ExitCode.OK
+    return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
 
 
 def _tune_progress(quiet: bool, total_corners: int):
@@ -302,6 +334,7 @@ def _run_tune(args) -> ExitCode:
     if not args.quiet:
         for warning in data.get("warnings", []):
             print(f"amploop: warning: {warning}", file=sys.stderr)
+        print_corner_remarks(result.corners)
         device = data.get("device")
         if device and not args.json:
             print(f"{device['name']} at {device['size']} = {engineering(device['value'], 'm', 4)}:"

@@ -17,6 +17,7 @@ from typing import Any, Literal
 
 from .errors import JobError, did_you_mean
 from .expressions import evaluate
+from .oppoint import OperatingPointLimits, read_limits
 from .units import parse_value
 
 __all__ = [
@@ -288,6 +289,9 @@ class Job:
         The ``[target]`` table; None when left out (enough for measure, not for tune).
     transient
         The ``[transient]`` table (defaults when it is left out).
+    operating_point
+        The ``[operating_point]`` limits that make a measured corner suspect (defaults
+        when it is left out).
     raw
         The TOML data as read.
     """
@@ -302,6 +306,7 @@ class Job:
     corners: tuple[Corner, ...]
     target: Target | None = None
     transient: Transient = field(default_factory=Transient)
+    operating_point: OperatingPointLimits = field(default_factory=OperatingPointLimits)
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -313,7 +318,7 @@ class Job:
 
 _TOP_KEYS = {
     "name", "amplifier", "bias", "feedback", "compensation", "analysis", "corners",
-    "corner_grid", "target", "params", "transient",
+    "corner_grid", "target", "params", "transient", "operating_point",
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
@@ -580,6 +585,8 @@ def _build_job(path: Path, data: dict) -> Job:
         corners=corners,
         target=target,
         transient=transient,
+        operating_point=read_limits(r, r.table(data, "operating_point", "[operating_point]",
+                                               required=False)),
         raw=data,
     )
     _check_corner_libs(r, job)

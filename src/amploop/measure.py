@@ -18,11 +18,11 @@ from .job import Corner, Job, safe_filename
 from .journal import Journal, file_digests
 from .loopgain import FrequencyResponse
 from .margins import Margins, loop_margins
+from .oppoint import OperatingPoint, OperatingPointLimits, corner_status
 from .outputs import OutFolder, loop_gain_csv, write_into
 from .pool import WorkerPool, default_workers
 from .runner import Runner
 from .testbench import Testbench, build_testbench
-from .units import engineering
 
 __all__ = [
     "CornerResult",
@@ -42,24 +42,30 @@ JOURNAL_FILE = "journal.sqlite"
 class CornerResult:
     """One corner's measurement.
 
-    ``status`` is ``"ok"`` or ``"error"``; on error ``error`` says why and the margins
-    hold what could still be read (possibly nothing).
+    ``status`` is ``"ok"``, ``"suspect"`` or ``"error"``. On error ``error`` says why and
+    the margins hold what could still be read (possibly nothing). A suspect corner has its
+    margins, but the operating point behind them is broken or its DC loop gain too low
+    (:func:`~amploop.oppoint.corner_status`); ``suspect_reason`` says which.
 
     Attributes
     ----------
     corner
         The corner measured.
     status
-        ``"ok"`` or ``"error"``.
+        ``"ok"``, ``"suspect"`` or ``"error"``.
     error
         Why the corner failed (the simulator's problem, or why its loop gain is unusable);
-        None when it is ``"ok"``.
+        None unless it is ``"error"``.
     margins
         The margins read off the loop gain; None when there is no loop gain.
     loop_gain
         The measured loop gain; None when the analysis failed or its output was unusable.
     warnings
         The simulator's warnings of its analysis (gmin stepping, transient-op fallback).
+    operating_point
+        The DC operating point of its analysis; None when it could not be read.
+    suspect_reason
+        Why a ``"suspect"`` corner's margins cannot be trusted (one sentence); else None.
     """
 
     corner: Corner
@@ -68,6 +74,13 @@ class CornerResult:
     margins: Margins | None = None
     loop_gain: FrequencyResponse | None = field(default=None, repr=False)
     warnings: tuple[str, ...] = ()
+    operating_point: OperatingPoint | None = None
+    suspect_reason: str | None = None
+
+    @property
+    def problem(self) -> str | None:
+        """Why the corner is not ``"ok"`` (its error or its suspect reason); None when it is."""
+        return self.error or self.suspect_reason
 
     def as_json(self) -> dict:
         """The corner's entry in results.json: the corner, status, error, figures, warnings."""
@@ -83,7 +96,9 @@ class CornerResult:
             "params": dict(self.corner.params),
             "status": self.status,
             "error": self.error,
+            "suspect_reason": self.suspect_reason,
             **figures,
+            "operating_point": self.operating_point and self.operating_point.as_json(),
             "warnings": list(self.warnings),
         }
 
@@ -134,7 +149,11 @@ class MeasureResult:
 
     @property
     def status(self) -> str:
-        return "ok" if all(c.status == "ok" for c in self.corners) else "failed"
+        """``"failed"`` when a corner failed, else ``"suspect"`` when one is suspect, else
+        ``"ok"``."""
+        if any(c.status == "error" for c in self.corners):
+            return "failed"
+        return "suspect" if any(c.status == "suspect" for c in self.corners) else "ok"
 
     def as_json(self) -> dict:
         """The content of results.json for this measurement."""
@@ -161,33 +180,33 @@ class MeasureResult:
         }
 
 
-def assess_loop_gain(response: FrequencyResponse) -> tuple[Margins, str | None]:
-    """Margins of a measured loop gain, and the reason it cannot be used (None if fine).
+def assess_loop_gain(response: FrequencyResponse, op: OperatingPoint | None = None,
+                     limits: OperatingPointLimits | None = None
+                     ) -> tuple[Margins, str, str | None]:
+    """Margins of a measured loop gain, the corner's status and the reason for it.
 
     A loop that is positive feedback at DC (phase near ±180° at the lowest frequency) or
-    never crosses 0 dB within the sweep gives a reason; the figures that exist are kept.
+    never crosses 0 dB within the sweep is an error; one whose margins exist but whose
+    operating point ``op`` is broken, or whose DC loop gain is below the limit, is suspect
+    (:func:`~amploop.oppoint.corner_status`). The figures that exist are kept.
 
     Parameters
     ----------
     response
         The measured loop gain of one corner.
+    op
+        Its DC operating point (None: not read).
+    limits
+        The job's ``[operating_point]`` limits (None: the defaults).
+
+    Returns
+    -------
+    margins, status, reason
+        ``status`` is ``"ok"`` (``reason`` None), ``"suspect"`` or ``"error"``.
     """
     margins = loop_margins(response)
-    dc_phase = float(response.phase_deg[0])
-    f0, f1 = response.frequency_hz[0], response.frequency_hz[-1]
-    if abs(dc_phase) > 90.0:
-        return margins, (
-            f"the loop gain is negative at {engineering(f0, 'Hz')} (phase {dc_phase:.0f}°): "
-            "positive feedback; are in_p and in_n swapped?"
-        )
-    if margins.unity_gain_hz is None:
-        mags = response.magnitude_db
-        return margins, (
-            f"the loop gain never crosses 0 dB between {engineering(f0, 'Hz')} and "
-            f"{engineering(f1, 'Hz')} (|T| from {mags[0]:.1f} dB to {mags[-1]:.1f} dB); "
-            "widen [analysis].start/stop or check the feedback network"
-        )
-    return margins, None
+    status, reason = corner_status(response, margins, op, limits or OperatingPointLimits())
+    return margins, status, reason
 
 
 def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
@@ -221,15 +240,19 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
     if not np.all(np.isfinite(response.values)):
         return CornerResult(corner=bench.corner, status="error",
                             error="the simulator returned non-finite loop-gain values")
+    op = bench.operating_point(output)
     # figures a worker already read off (CornerWork), else read them here
-    margins, problem = output.after if output.after is not None else assess_loop_gain(response)
+    margins, status, reason = output.after if output.after is not None else \
+        assess_loop_gain(response, op, bench.op_probe and bench.op_probe.limits)
     return CornerResult(
         corner=bench.corner,
-        status="ok" if problem is None else "error",
-        error=problem,
+        status=status,
+        error=reason if status == "error" else None,
         margins=margins,
         loop_gain=response,
         warnings=output.warnings,
+        operating_point=op,
+        suspect_reason=reason if status == "suspect" else None,
     )
 
 
@@ -241,7 +264,7 @@ class CornerWork:
 
     Done in the worker that ran the analysis, so that with as many workers as cores the
     coordinator only records results and never becomes the bottleneck. Paths are
-    relative to ``folder`` (absolute). Returns ``(margins, problem)``; a write that fails
+    relative to ``folder`` (absolute). Returns ``(margins, status, reason)``; a write that fails
     raises :class:`~amploop.errors.OutputError` there, which comes back as the output's
     ``after_error``, and the coordinator then does the work itself and reports it.
 
@@ -280,9 +303,11 @@ class CornerWork:
         if response is not None:
             write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
 
-    def __call__(self, output) -> tuple[Margins, str | None]:
+    def __call__(self, output) -> tuple[Margins, str, str | None]:
         response = self.bench.loop_gain(output)
-        figures = assess_loop_gain(response)
+        probe = self.bench.op_probe
+        figures = assess_loop_gain(response, self.bench.operating_point(output),
+                                   probe and probe.limits)
         self.write_files(response)
         return figures
 
@@ -371,9 +396,8 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
         if time_domain:
             ok = tuple(results[c.name].corner for c in job.corners
                        if c.name in results and results[c.name].status == "ok")
-            stop_s = step_stop_s(amplifier, [results[c.name].margins.unity_gain_hz for c in
-                                             job.corners if c.name in results and
-                                             results[c.name].margins is not None])
+            stop_s = step_stop_s(amplifier, [results[c.name].margins.unity_gain_hz
+                                             for c in ok])
             checks = run_step_checks(amplifier, ok, values, runner, stop_s,
                                      job.analysis.time_limit_s)
     finally:
@@ -401,5 +425,5 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
 def require_measured(result: CornerResult) -> Margins:
     """The margins of a corner that measured, or a MeasurementError saying why not."""
     if result.status != "ok" or result.margins is None:
-        raise MeasurementError(result.error or "not measured", place=result.corner.name)
+        raise MeasurementError(result.problem or "not measured", place=result.corner.name)
     return result.margins

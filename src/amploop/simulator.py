@@ -66,10 +66,15 @@ class Step:
     read
         Vector names as ngspice knows them in that plot: ``"frequency"``, ``"v(tb_out)"``,
         ``"i(vprobe)"``, ``"@m.x1.m1[gm]"``.
+    optional
+        For a command that is not an analysis: its rejection, or a vector it cannot find,
+        leaves out what it could not read instead of failing the analysis (the
+        operating-point read-out after the loop gain, where a model may lack a quantity).
     """
 
     command: str
     read: tuple[str, ...] = ()
+    optional: bool = False
 
     @property
     def is_analysis(self) -> bool:
@@ -303,6 +308,9 @@ class NgspiceSession:
                     if any("gmin stepping" in line.lower() for line in lines):
                         warnings.append("operating point needed gmin stepping")
                 elif rc != 0 or any(p.search(line) for line in err for p in _FATAL):
+                    if step.optional:
+                        reads.append({})
+                        continue
                     raise SimulatorError(f"command {step.command!r} rejected: "
                                          f"{summarise_failure(err)}", place=request.label)
                 values: dict[str, np.ndarray] = {}
@@ -310,6 +318,8 @@ class NgspiceSession:
                     plot = self._current_plot()
                     for name in step.read:
                         vector = self._vector(plot, name)
+                        if vector is None and step.optional:
+                            continue
                         if vector is None:
                             raise SimulatorError(f"vector {name} not found in plot {plot}",
                                                  place=request.label)

@@ -25,6 +25,7 @@ from .amplifier import Amplifier
 from .job import Corner
 from .loopgain import FrequencyResponse
 from .ngread import deck_text
+from .oppoint import KEEP_OP_LINE, OperatingPoint, OperatingPointProbe
 from .probe import Probe, make_probe
 from .simulator import AnalysisOutput, AnalysisRequest, Step
 from .units import parse_value, spice_number
@@ -72,6 +73,9 @@ class Testbench:
         Lines of the user's netlist left out of the testbench, and similar remarks.
     label
         Names the analysis in messages and in the journal (empty: the corner's name).
+    op_probe
+        What the deck reads of its operating point after the AC runs (the last step);
+        None when it reads none.
     """
 
     corner: Corner
@@ -82,6 +86,7 @@ class Testbench:
     files: tuple[Path, ...]
     notes: tuple[str, ...] = ()
     label: str = ""
+    op_probe: OperatingPointProbe | None = None
 
     def request(self, time_limit_s: float, after=None) -> AnalysisRequest:
         """The analysis request for a worker, hung after ``time_limit_s`` seconds (``after``:
@@ -92,6 +97,13 @@ class Testbench:
     def loop_gain(self, output: AnalysisOutput) -> FrequencyResponse:
         """The loop gain from ``output``, a finished analysis of this testbench."""
         return self.probe.loop_gain(output.reads, NODE_AMP, NODE_FEEDBACK)
+
+    def operating_point(self, output: AnalysisOutput) -> OperatingPoint | None:
+        """The DC operating point read in ``output`` (None when the deck reads none or
+        ngspice gave none)."""
+        if self.op_probe is None or len(output.reads) < len(self.steps):
+            return None
+        return self.op_probe.read(output.reads[-1])
 
     def hand_deck(self, data_file: str = "loop_gain.txt") -> str:
         """The deck with a ``.control`` block, to rerun by hand: ``ngspice -b FILE``.
@@ -104,10 +116,11 @@ class Testbench:
         data_file
             The file the deck writes, relative to where ngspice runs.
         """
+        steps = self.steps[:-1] if self.op_probe is not None else self.steps
         lines = [
             ".control",
             "set num_threads=1",
-            *[step.command for step in self.steps],
+            *[step.command for step in steps],
         ]
         if self.probe.name == "double-injection":
             ac = [i for i, s in enumerate(self.steps) if s.is_ac]
@@ -117,8 +130,11 @@ class Testbench:
             )
         else:
             lines.append(f"let loop_gain = -v({NODE_AMP})/v({NODE_FEEDBACK})")
+        lines.append(f"wrdata {data_file} loop_gain")
+        if self.op_probe is not None:  # the operating point, printed
+            op = self.steps[-1]
+            lines += [op.command, "print " + " ".join(op.read)]
         lines += [
-            f"wrdata {data_file} loop_gain",
             "quit",
             ".endc",
         ]
@@ -183,12 +199,16 @@ def build_testbench(
     probe = probe or make_probe(job.analysis.probe)
     ac_command = ac_command or job.analysis.ac_command()
     full_values = amplifier.values_in_effect(values)
-    loop = probe.elements(NODE_AMP, NODE_FEEDBACK)
+    # the AC analysis keeps its operating point as a plot, read after the AC runs
+    loop = [*probe.elements(NODE_AMP, NODE_FEEDBACK), KEEP_OP_LINE]
     deck, notes = closed_loop_deck(amplifier, corner, full_values, loop_elements=loop,
                                    title=f"amploop loop gain: job {job.name}, corner {corner.name}")
-    steps = tuple(extra_steps) + probe.steps(ac_command, NODE_AMP, NODE_FEEDBACK)
+    op_probe = OperatingPointProbe.for_amplifier(amplifier)
+    steps = (tuple(extra_steps) + probe.steps(ac_command, NODE_AMP, NODE_FEEDBACK)
+             + (op_probe.step(),))
     return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, probe=probe,
-                     files=amplifier.files, notes=tuple(notes), label=label or corner.name)
+                     files=amplifier.files, notes=tuple(notes), label=label or corner.name,
+                     op_probe=op_probe)
 
 
 @dataclass(frozen=True)

@@ -238,7 +238,7 @@ def tune(
         evaluator = Evaluator(amplifier, job.corners, runner, job.analysis.time_limit_s)
         evaluator.progress = progress
         try:
-            outcome = STRATEGIES[strategy](evaluator, job.target)
+            outcome = _refuse_suspect(STRATEGIES[strategy](evaluator, job.target))
             outcome, remarks = _with_remarks(evaluator, outcome)
             if outcome.final is not None and time_domain and not any(
                     h.kind == "characterise" for h in evaluator.history):
@@ -248,9 +248,9 @@ def tune(
                                    note="samples for the report's compensation map")
             checks = {}
             if outcome.final is not None and time_domain:
-                stop_s = step_stop_s(amplifier, [c.margins and c.margins.unity_gain_hz
-                                                 for c in outcome.final.corners])
                 ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
+                stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
+                                                 outcome.final.corners if c.status == "ok"])
                 device = outcome.extra.get("device")
                 vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
                 checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
@@ -302,6 +302,19 @@ def _remove_compensated(folder: OutFolder, amplifier: Amplifier) -> None:
         stale = folder.path / "compensated" / path.name
         if stale.is_file():
             stale.unlink()
+
+
+def _refuse_suspect(outcome: Outcome) -> Outcome:
+    """``outcome``, or "failed" when it claims convergence with a corner that is not "ok"
+    (a suspect corner's margins describe a broken operating point)."""
+    if outcome.status != "converged" or outcome.final is None:
+        return outcome
+    bad = next((c for c in outcome.final.corners if c.status != "ok"), None)
+    if bad is None:
+        return outcome
+    return Outcome("failed", outcome.values, outcome.final,
+                   f"not converged: corner {bad.corner.name} is {bad.status}: {bad.problem}",
+                   outcome.extra)
 
 
 def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> None:

@@ -167,7 +167,7 @@ def load_report_data(out: str | Path) -> ReportData:
             final_key = corner.get("analysis")
             if final_step is not None:
                 final_key = next(h for h in story if h["step"] == final_step)["analyses"].get(name)
-            if final_key and corner.get("status") == "ok":
+            if final_key and corner.get("status") in ("ok", "suspect"):
                 final = loop_gain(final_key)
                 data.finals[name] = final
                 label = "final" if data.command == "tune" else "as in the netlist"

@@ -9,6 +9,7 @@ import numpy as np
 from matplotlib.ticker import LogLocator
 
 from ..margins import grid_margins, loop_margins
+from ..oppoint import status_label, warning_advice
 from ..strategy.mapsolve import cc_grid
 from ..units import describe_values, engineering
 from . import style
@@ -56,7 +57,7 @@ def _corner_rows(data: ReportData) -> list[list[str]]:
             _fmt(c.get("gain_margin_db"), ".1f"),
             _fmt(c.get("overshoot_pct"), ".2f"),
             _fmt(c.get("settling_time_s"), "", "s"),
-            "ok" if c.get("status") == "ok" else "ERROR",
+            status_label(c.get("status", "error"), c.get("warnings", ())),
         ])
     return rows
 
@@ -83,9 +84,12 @@ def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:
         if row == 0:
             cell.set_text_props(weight="bold", color="#333333")
             cell.set_facecolor("#f0f0f0")
+        elif rows[row - 1][-1].startswith("SUSPECT"):
+            cell.set_text_props(color=style.SUSPECT, weight="bold" if row - 1 in limiting_rows
+                                else "normal")
         elif row - 1 in limiting_rows:
             cell.set_text_props(color=style.LIMIT, weight="bold")
-        elif rows[row - 1][-1] == "ERROR":
+        elif rows[row - 1][-1].startswith("ERROR"):
             cell.set_text_props(color=style.LIMIT)
 
 
@@ -108,7 +112,8 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
     fig = _figure()
     fig.text(0.05, 0.94, f"amploop report — {r['job']}", fontsize=17, weight="bold")
     status = r.get("status", "?")
-    colour = style.FINAL if status in ("ok", "converged") else style.LIMIT
+    colour = {"ok": style.FINAL, "converged": style.FINAL, "suspect": style.SUSPECT}.get(
+        status, style.LIMIT)
     what = ("tuned with the " + r.get("strategy", "map") + " strategy") if data.command == "tune" \
         else "measured at the netlist's values"
     fig.text(0.05, 0.905, f"{date}   ·   {len(rows)} corners {what}", fontsize=10,
@@ -136,6 +141,7 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
     lines.append(f"AC analyses: {ac.get('run', 0)} run, {ac.get('reused', 0)} reused;  "
                  f"step transients: {tr.get('run', 0)} run, {tr.get('reused', 0)} reused;  "
                  f"wall time {r.get('seconds', 0):.1f} s")
+    lines += _status_notes(r["corners"])
     y = 0.86
     for line in lines:
         for part in textwrap.wrap(line, 150):
@@ -159,6 +165,52 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
         _footer(fig)
         figures.append(fig)
     return figures
+
+
+def _status_notes(corners: list[dict]) -> list[str]:
+    """Under the summary's header: how many corners are suspect and why that matters, and
+    each simulator warning once with what it means (the table's ``gmin`` marks)."""
+    notes = []
+    suspect = [c["name"] for c in corners if c.get("status") == "suspect"]
+    if suspect:
+        notes.append(f"SUSPECT ({len(suspect)} of {len(corners)} corners): the margins were read, "
+                     "but the operating point behind them is broken or the DC loop gain is below "
+                     "the limit, so they do not describe the amplifier; each corner's page says "
+                     "why (first: " + suspect[0] + ").")
+    by_warning: dict[str, int] = {}
+    for c in corners:
+        for warning in c.get("warnings", ()):
+            by_warning[warning] = by_warning.get(warning, 0) + 1
+    for warning, count in by_warning.items():
+        mark = "gmin: " if "gmin stepping" in warning else ""
+        advice = warning_advice(warning)
+        notes.append(f"{mark}{warning} at {count} of {len(corners)} corners"
+                     + (f": {advice}." if advice else "."))
+    return notes
+
+
+def _corner_status_lines(corner: dict) -> list[str]:
+    """The corner page's lines on its status, operating point and simulator warnings."""
+    lines = []
+    if corner.get("status") == "suspect":
+        lines.append(f"SUSPECT: {corner.get('suspect_reason')}")
+    op = corner.get("operating_point")
+    if op:
+        shift = op.get("output_shift_v")
+        lines.append(f"DC output {_fmt(op.get('output_v'), '', 'V')} against the common mode "
+                     f"{_fmt(op.get('common_mode_v'), '', 'V')}"
+                     + (f" ({'+' if shift > 0 else '−'}{engineering(abs(shift), 'V')})"
+                        if shift else ""))
+        for d in op.get("devices", ()):
+            region = d.get("region") or "region unknown (the model gives no VDS/VDSAT)"
+            figures = "" if d.get("region") is None else (
+                f", |VDS| {engineering(abs(d['vds_v']), 'V')}, VDSAT "
+                f"{engineering(abs(d['vdsat_v']), 'V')}")
+            lines.append(f"{d['name']} ({d['role'].replace('_', ' ')}): {region}{figures}")
+    for warning in corner.get("warnings", ()):
+        advice = warning_advice(warning)
+        lines.append(f"{warning}" + (f": {advice}" if advice else ""))
+    return lines
 
 
 def _footer(fig, extra: str = "") -> None:
@@ -189,6 +241,10 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     lib = f"lib {corner['lib']}, " if corner.get("lib") else ""
     fig.text(0.06, 0.922, f"{lib}{corner.get('temp', 27):g} °C" + (f", {params}" if params else ""),
              fontsize=9, color=style.MUTED)
+    status = corner.get("status", "error")
+    fig.text(0.95, 0.95, status.upper(), fontsize=12, color="white", weight="bold", ha="right",
+             bbox=dict(boxstyle="round,pad=0.35", edgecolor="none", facecolor={
+                 "ok": style.FINAL, "suspect": style.SUSPECT}.get(status, style.LIMIT)))
     mag = fig.add_axes((0.07, 0.52, 0.6, 0.36))
     phase = fig.add_axes((0.07, 0.1, 0.6, 0.36), sharex=mag)
     curves = data.curves.get(name, [])
@@ -267,6 +323,13 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
         settle = _fmt(step.metrics.settling_s, "", "s")
         fig.text(0.695, y - 0.01, f"step response: overshoot {step.metrics.overshoot_pct:.2f} %,\n"
                  f"settles to ±{step.metrics.band:.1%} in {settle}", fontsize=9, va="top")
+        y -= 0.07
+    y -= 0.01
+    for line in _corner_status_lines(corner):
+        colour = style.SUSPECT if line.startswith("SUSPECT") else "black"
+        for part in textwrap.wrap(line, 56):
+            fig.text(0.695, y, part, fontsize=7.5, color=colour)
+            y -= 0.019
     return fig
 
 

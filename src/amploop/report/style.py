@@ -17,6 +17,8 @@ START = "#8a8a8a"
 STEPS = colormaps["YlOrBr"]
 #: targets, limits and the margins read against them
 LIMIT = "#b8322b"
+#: a corner whose operating point is broken (status "suspect")
+SUSPECT = "#c51b7d"
 #: where every corner meets the target
 FEASIBLE = "#d7ecd9"
 #: the textbook procedure's path

@@ -251,7 +251,8 @@ class Outcome:
 
 
 def not_simulated(point: PointResult, values: dict[str, float] | None = None) -> Outcome:
-    """The "failed" outcome of a point with a corner that did not simulate.
+    """The "failed" outcome of a point with a corner that did not simulate or is suspect
+    (its operating point broken: tuning on it would mean nothing).
 
     Parameters
     ----------
@@ -261,8 +262,12 @@ def not_simulated(point: PointResult, values: dict[str, float] | None = None) ->
         The values to report, by role, SI; None for the point's own.
     """
     first = point.errors[0]
-    return Outcome("failed", point.values if values is None else values, point,
-                   f"corner {first.corner.name} did not simulate: {first.error}")
+    if first.status == "suspect":
+        what = f"corner {first.corner.name} is suspect: " \
+            f"{first.suspect_reason}"
+    else:
+        what = f"corner {first.corner.name} did not simulate: {first.error}"
+    return Outcome("failed", point.values if values is None else values, point, what)
 
 
 def gm_quantity(device: str) -> str:
