@@ -37,7 +37,7 @@ import numpy as np
 from .errors import JournalError
 from .simulator import AnalysisOutput, AnalysisRequest
 
-__all__ = ["JOURNAL_SCHEMA", "Journal", "analysis_key", "file_digests", "record_checksum"]
+__all__ = ["JOURNAL_SCHEMA", "Journal", "analysis_key", "file_digests"]
 
 #: Bump when the stored format changes; schema 1 is upgraded, other ones are refused.
 JOURNAL_SCHEMA = 2
@@ -91,7 +91,7 @@ def _pack(output: AnalysisOutput) -> bytes:
     return len(head).to_bytes(4, "little") + head + b"".join(chunks)
 
 
-def record_checksum(key: str, data: bytes, warnings: str, transient_op: int,
+def _record_checksum(key: str, data: bytes, warnings: str, transient_op: int,
                     seconds: float) -> str:
     """sha256 of a record's key and of every stored field :meth:`Journal.get` reads back."""
     h = hashlib.sha256()
@@ -235,6 +235,11 @@ class Journal:
         (None, and an entry in :attr:`set_aside`), so that the caller recomputes it and
         :meth:`put` replaces it.
 
+        Parameters
+        ----------
+        key
+            The analysis's key (:func:`analysis_key`).
+
         Raises
         ------
         JournalError
@@ -250,7 +255,7 @@ class Journal:
         data, warnings, transient_op, seconds, checksum, label = row
         if checksum is None:
             why = "no checksum (recorded by an older amploop)"
-        elif checksum != record_checksum(key, data, warnings, transient_op, seconds):
+        elif checksum != _record_checksum(key, data, warnings, transient_op, seconds):
             why = "checksum mismatch"
         else:
             try:
@@ -301,7 +306,7 @@ class Journal:
         """
         blob = _pack(output)
         warnings = json.dumps(list(output.warnings))
-        checksum = record_checksum(key, blob, warnings, int(output.transient_op), output.seconds)
+        checksum = _record_checksum(key, blob, warnings, int(output.transient_op), output.seconds)
         try:
             if self._open_since is None:
                 self._db.execute("BEGIN IMMEDIATE")
