@@ -5,7 +5,10 @@ so every analysis runs in a worker process and the coordinator only exchanges re
 and results with it over a pipe. A worker that dies (a crash inside ngspice, a kill) is
 replaced and its analysis retried a bounded number of times; one that runs past the
 analysis's time limit is killed and replaced, and that analysis reports a time-out.
-Results come back as they finish, so callers can record them at once.
+Answers are read without blocking (:mod:`amploop.frames`): a worker whose answer has begun
+to arrive but is still incomplete at the time limit (stopped half-way through sending it)
+is killed, replaced and its analysis retried, as a crashed one is. Results come back as
+they finish, so callers can record them at once.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from multiprocessing.connection import wait
 from typing import Self
 
 from .errors import SimulatorError
+from .frames import FrameReader, send_frame
 from .simulator import AnalysisOutput, AnalysisRequest
 
 __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
@@ -68,9 +72,9 @@ def _worker_main(conn) -> None:
     try:
         session = NgspiceSession()
     except Exception as exc:  # noqa: BLE001 - reported to the coordinator, which decides
-        conn.send(("fatal", f"cannot start ngspice: {exc}"))
+        send_frame(conn, ("fatal", f"cannot start ngspice: {exc}"))
         return
-    conn.send(("ready", os.getpid()))
+    send_frame(conn, ("ready", os.getpid()))
     while True:
         try:
             message = conn.recv()
@@ -85,7 +89,7 @@ def _worker_main(conn) -> None:
             reply = (task_id, "error", exc.problem)
         except Exception as exc:  # noqa: BLE001 - an unexpected failure of one analysis
             reply = (task_id, "error", f"internal error in the worker: {exc!r}")
-        conn.send(reply + (session.broken,))
+        send_frame(conn, reply + (session.broken,))
         if session.broken:
             conn.close()
             os._exit(0)  # ngspice cannot recover in this process; the pool starts another
@@ -113,6 +117,7 @@ class _Task:
 class _Worker:
     process: mp.process.BaseProcess
     conn: object
+    reader: FrameReader
     queue: deque = field(default_factory=deque)  # tasks sent, in the order it runs them
     head_since: float = 0.0  # when the first task in the queue became the running one
     ready: bool = False
@@ -159,7 +164,7 @@ class WorkerPool:
         process.start()
         child.close()
         self.started_workers += 1
-        return _Worker(process=process, conn=parent)
+        return _Worker(process=process, conn=parent, reader=FrameReader(parent))
 
     def _retire(self, worker: _Worker, *, kill: bool) -> None:
         if kill and worker.process.is_alive():
@@ -237,21 +242,30 @@ class WorkerPool:
             self._feed(pending)
             yield from self._collect(pending)
 
-    def _requeue(self, worker: _Worker, pending: deque, *, crashed: bool = True
-                 ) -> Iterator[tuple[Hashable, object]]:
-        """A worker is gone: retry its running task (bounded) if it crashed under it, and
-        put the tasks that never started back in line."""
+    def _requeue(self, worker: _Worker, pending: deque, *, crashed: bool = True,
+                 stalled: bool = False) -> Iterator[tuple[Hashable, object]]:
+        """A worker is gone (or ``stalled`` half-way through an answer: it is killed):
+        retry its running task (bounded) if it crashed or stalled under it, and put the
+        tasks that never started back in line."""
+        if stalled:
+            worker.process.kill()  # SIGKILL ends a stopped process too
         worker.process.join(timeout=2)  # reap it, so the exit code is known
         code = worker.process.exitcode
         tasks = list(worker.queue)
         worker.queue.clear()
         self._retire(worker, kill=True)
+        crashed = crashed or stalled
         for task in reversed(tasks[1:] if crashed else tasks):
             pending.appendleft((task.key, task.request, task.attempt))
         if tasks and crashed:
             head = tasks[0]
             if head.attempt < self.retries:
                 pending.appendleft((head.key, head.request, head.attempt + 1))
+            elif stalled:
+                yield head.key, SimulatorError(
+                    "its worker process stopped half-way through sending the answer, "
+                    f"past the time limit of {head.request.time_limit_s:g} s "
+                    f"({head.attempt + 1} attempts)", place=head.request.label)
             else:
                 how = f"signal {-code}" if code is not None and code < 0 else f"code {code}"
                 yield head.key, SimulatorError(
@@ -275,13 +289,8 @@ class WorkerPool:
             if id(worker) in handled or worker not in self._workers:
                 continue
             handled.add(id(worker))
-            died = exited = False
-            while worker.conn.poll():
-                try:
-                    message = worker.conn.recv()
-                except (EOFError, OSError):
-                    died = True
-                    break
+            exited = False
+            for message in worker.reader.read():
                 if message[0] == "ready":
                     worker.ready = True
                     self._failed_starts = 0
@@ -299,7 +308,7 @@ class WorkerPool:
             if exited:
                 yield from self._requeue(worker, pending, crashed=False)
                 continue
-            if not died and worker.process.is_alive():
+            if not worker.reader.closed and worker.process.is_alive():
                 self._feed(pending)  # keep the worker busy before recording results
                 continue
             if not worker.ready:
@@ -322,6 +331,9 @@ class WorkerPool:
         now = time.monotonic()
         for worker in list(self._workers):
             if worker.queue and now - worker.head_since > worker.queue[0].request.time_limit_s:
+                if worker.reader.partial:  # its answer stopped half-way: as a crash
+                    yield from self._requeue(worker, pending, stalled=True)
+                    continue
                 head = worker.queue.popleft()
                 for task in reversed(worker.queue):
                     pending.appendleft((task.key, task.request, task.attempt))
