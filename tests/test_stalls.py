@@ -17,6 +17,7 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
+import numpy as np
 from stopping import StopHalfwayThroughTheAnswer
 
 from amploop.pool import WorkerPool
@@ -59,3 +60,58 @@ def test_a_worker_stopped_half_way_through_its_answer_is_replaced_and_retried(tm
     assert isinstance(output, AnalysisOutput), output
     assert output.after == bytes(stall.size)  # the retry's answer, whole
     assert started_workers == 2  # the stopped worker was replaced
+
+
+# -- on a Dask cluster ---------------------------------------------------------------------
+
+# an RC driven by a sine: a `tran` of about a quarter of a second
+SHORT = AnalysisRequest("short", "* short\nV1 a 0 sin(0 1 1meg)\nR1 a b 1k\nC1 b 0 1n\n.end\n",
+                        (Step("tran 1n 20u 19u", ("v(b)",)),), time_limit_s=2.0)
+
+
+def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(tmp_path):
+    """SIGSTOP a Dask worker process that holds an analysis: within twice the time limit
+    plus the grace, its analyses are handed to the other worker; every analysis gives the
+    arrays of an undisturbed local run."""
+    import pytest
+
+    pytest.importorskip("distributed")
+    from test_cluster import local_cluster
+
+    from amploop.cluster import ClusterPool
+
+    with WorkerPool(1) as local:
+        [(_, reference)] = list(local.run([(0, SHORT)]))
+    assert isinstance(reference, AnalysisOutput), reference
+    requests = [(n, replace(SHORT, label=f"short-{n}")) for n in range(8)]
+    stopped: list[int] = []
+    results: dict = {}
+    with local_cluster(tmp_path) as running, \
+            ClusterPool(running.scheduler_address, grace_s=2.0) as pool:
+        list(pool.run([(n, SHORT) for n in range(4)]))  # every worker's ngspice started
+        pids = pool.client.run(os.getpid)
+
+        def run() -> None:
+            for key, output in pool.run(requests):
+                results[key] = output
+                if not stopped:
+                    busy = [a for a, keys in pool.client.processing().items() if keys]
+                    os.kill(pids[busy[0]], signal.SIGSTOP)
+                    stopped.append(pids[busy[0]])
+
+        started = time.monotonic()
+        runner = threading.Thread(target=run, daemon=True)
+        runner.start()
+        runner.join(timeout=60)
+        hung = runner.is_alive()
+        seconds = time.monotonic() - started
+        for pid in stopped:
+            os.kill(pid, signal.SIGCONT)  # lets the cluster (and a stuck run) end
+        runner.join(timeout=60)
+    assert stopped
+    assert not hung, "the run hung on a stopped Dask worker"
+    assert seconds < 30, seconds  # the deadline: 2 x 2 s + 2 s, plus the analyses
+    assert sorted(results) == list(range(8))
+    for output in results.values():
+        assert isinstance(output, AnalysisOutput), output
+        np.testing.assert_array_equal(output.reads[0]["v(b)"], reference.reads[0]["v(b)"])
