@@ -115,3 +115,62 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
     for output in results.values():
         assert isinstance(output, AnalysisOutput), output
         np.testing.assert_array_equal(output.reads[0]["v(b)"], reference.reads[0]["v(b)"])
+
+
+# a LocalCluster on 127.0.0.1 in a process of its own (so that it can be killed): prints
+# the scheduler's address, then waits
+CLUSTER_PROCESS = """
+import sys, time
+import distributed
+if __name__ == "__main__":
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  host="127.0.0.1", dashboard_address=None,
+                                  scheduler_kwargs={"dashboard_address": ":0"},
+                                  local_directory=sys.argv[1]) as cluster:
+        print(cluster.scheduler_address, flush=True)
+        while True:
+            time.sleep(1)
+"""
+
+
+def test_a_lost_scheduler_ends_the_run_in_one_line(tmp_path):
+    """SIGKILL the scheduler (and its workers) while `measure --cluster` has analyses on
+    it: the command ends within seconds, with one line on stderr and no traceback."""
+    import subprocess
+    import sys
+
+    import pytest
+
+    pytest.importorskip("distributed")
+    from test_faults import demo_copy, slow
+
+    job = demo_copy(tmp_path / "job", job_edit=slow)
+    (tmp_path / "dask").mkdir()
+    cluster = subprocess.Popen([sys.executable, "-c", CLUSTER_PROCESS, str(tmp_path / "dask")],
+                               stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
+                               start_new_session=True)
+    try:
+        address = cluster.stdout.readline().strip()
+        assert address.startswith("tcp://127.0.0.1:"), address
+        out = tmp_path / "out"
+        run = subprocess.Popen([sys.executable, "-m", "amploop.cli", "measure", str(job),
+                                "--out", str(out), "--no-report", "--cluster", address],
+                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        waited = time.monotonic()
+        while not (out / "journal.sqlite").exists() and time.monotonic() - waited < 60:
+            time.sleep(0.1)
+        time.sleep(1.0)  # analyses handed to the cluster (each takes seconds)
+        assert run.poll() is None, run.communicate()
+    finally:
+        os.killpg(cluster.pid, signal.SIGKILL)  # the scheduler and its workers
+        cluster.wait()
+    lost = time.monotonic()
+    try:
+        _, err = run.communicate(timeout=60)
+    finally:
+        run.kill()
+    assert time.monotonic() - lost < 30
+    assert run.returncode != 0
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1 and "Traceback" not in err, err
+    assert "lost the connection to the Dask scheduler" in lines[0] and address in lines[0]

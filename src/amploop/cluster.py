@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import atexit
 import hashlib
+import logging
 import multiprocessing as mp
 import os
 import posixpath
@@ -400,12 +401,21 @@ class ClusterPool:
         When ``distributed`` is not installed, the scheduler cannot be reached, it has no
         worker, or a worker cannot import amploop (or has another version of it).
 
+    Notes
+    -----
+    The ``distributed.client`` logger is set to show critical records only: when the
+    scheduler is lost it would print its reconnection tracebacks, while the run ends with
+    one line saying so.
+
     Use as a context manager; :meth:`run` may be called many times.
     """
 
     def __init__(self, address: str, *, timeout_s: float = CONNECT_TIMEOUT_S,
                  retries: int = 2, grace_s: float = GRACE_S) -> None:
         distributed = _distributed()
+        # the client logs a lost scheduler with its reconnection tracebacks; the run
+        # reports it in one line (deadlines.py), so only its critical records are shown
+        logging.getLogger("distributed.client").setLevel(logging.CRITICAL)
         self.address = address
         self.retries = retries
         self.grace_s = grace_s

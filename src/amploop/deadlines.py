@@ -131,8 +131,8 @@ def run_with_deadlines(
 
 def _lost(address: str) -> SimulatorError:
     return SimulatorError(f"lost the connection to the Dask scheduler at {address}",
-                          hint="finished analyses are in the journal; rerun with --resume "
-                          "once the scheduler is back")
+                          hint="finished analyses are kept in the journal: the same command "
+                          "reuses them once the scheduler is back")
 
 
 def _first_done(client, futures: list, timeout_s: float, address: str) -> list:
