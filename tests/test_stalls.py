@@ -27,6 +27,20 @@ FAST = AnalysisRequest("fast", "* fast\nV1 a 0 dc 1\nR1 a 0 1k\n.end\n",
                        (Step("op", ("i(v1)",)),), time_limit_s=2.0)
 
 
+def run_watched(work, timeout_s: float, release) -> tuple[bool, float]:
+    """Run ``work()`` in a thread for at most ``timeout_s``; then call ``release()`` (which
+    lets a stuck ``work`` end) and wait for it. Whether it hung, and its seconds."""
+    started = time.monotonic()
+    runner = threading.Thread(target=work, daemon=True)
+    runner.start()
+    runner.join(timeout=timeout_s)
+    hung = runner.is_alive()
+    seconds = time.monotonic() - started
+    release()
+    runner.join(timeout=timeout_s)
+    return hung, seconds
+
+
 def kill_if_left(marker: Path) -> None:
     """SIGKILL the worker that stopped itself (named in ``marker``), if it still exists."""
     try:
@@ -44,14 +58,8 @@ def test_a_worker_stopped_half_way_through_its_answer_is_replaced_and_retried(tm
         def run() -> None:
             results.update(pool.run([("stalls", request)]))
 
-        started = time.monotonic()
-        runner = threading.Thread(target=run, daemon=True)
-        runner.start()
-        runner.join(timeout=30)
-        hung = runner.is_alive()
-        seconds = time.monotonic() - started
-        kill_if_left(marker)  # lets a coordinator stuck in a read go on
-        runner.join(timeout=30)
+        # killing the stopped worker lets a coordinator stuck in a read go on
+        hung, seconds = run_watched(run, 30, lambda: kill_if_left(marker))
         started_workers = pool.started_workers
     assert marker.exists()  # the first try did stop itself
     assert not hung, "the coordinator hung on a half-sent answer"
@@ -99,15 +107,11 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
                     os.kill(pids[busy[0]], signal.SIGSTOP)
                     stopped.append(pids[busy[0]])
 
-        started = time.monotonic()
-        runner = threading.Thread(target=run, daemon=True)
-        runner.start()
-        runner.join(timeout=60)
-        hung = runner.is_alive()
-        seconds = time.monotonic() - started
-        for pid in stopped:
-            os.kill(pid, signal.SIGCONT)  # lets the cluster (and a stuck run) end
-        runner.join(timeout=60)
+        def resume() -> None:  # lets the cluster (and a stuck run) end
+            for pid in stopped:
+                os.kill(pid, signal.SIGCONT)
+
+        hung, seconds = run_watched(run, 60, resume)
     assert stopped
     assert not hung, "the run hung on a stopped Dask worker"
     assert seconds < 30, seconds  # the deadline: 2 x 2 s + 2 s, plus the analyses
