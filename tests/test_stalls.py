@@ -70,6 +70,31 @@ def test_a_worker_stopped_half_way_through_its_answer_is_replaced_and_retried(tm
     assert started_workers == 2  # the stopped worker was replaced
 
 
+
+def test_a_large_deck_queued_behind_a_large_answer_does_not_deadlock(tmp_path):
+    """A 4 MB deck (a large netlist, inlined) queued for a worker that is sending a 4 MB
+    answer (a long sweep): neither fits in the pipe. The coordinator's sends go through a
+    thread, so it reads the answer while the deck waits; both analyses complete."""
+    marker = tmp_path / "never-stops"
+    marker.touch()  # the stopper then only makes the large answer
+    big_answer = replace(FAST, label="big-answer",
+                         after=StopHalfwayThroughTheAnswer(str(marker), size=4 << 20))
+    padding = "* a line of a large netlist, padding the deck\n" * 100_000
+    big_deck = replace(FAST, label="big-deck", deck="* big\n" + padding + FAST.deck)
+    assert len(big_deck.deck) > 4 << 20
+    results: dict = {}
+    with WorkerPool(1) as pool:
+        def run() -> None:
+            results.update(pool.run([("answer", big_answer), ("deck", big_deck)]))
+
+        hung, seconds = run_watched(run, 30, lambda: [w.process.kill() for w in pool._workers])
+    assert not hung, "the coordinator and its worker waited on each other"
+    assert seconds < 15
+    assert isinstance(results["answer"], AnalysisOutput) and len(results["answer"].after) == 4 << 20
+    assert isinstance(results["deck"], AnalysisOutput), results["deck"]
+    assert results["deck"].reads[0]["i(v1)"] == results["answer"].reads[0]["i(v1)"]
+
+
 # -- on a Dask cluster ---------------------------------------------------------------------
 
 # an RC driven by a sine: a `tran` of about a quarter of a second

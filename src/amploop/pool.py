@@ -24,7 +24,7 @@ from multiprocessing.connection import wait
 from typing import Self
 
 from .errors import SimulatorError
-from .frames import FrameReader, send_frame
+from .frames import FrameReader, Sender, send_frame
 from .simulator import AnalysisOutput, AnalysisRequest
 
 __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
@@ -118,6 +118,7 @@ class _Worker:
     process: mp.process.BaseProcess
     conn: object
     reader: FrameReader
+    sender: Sender
     queue: deque = field(default_factory=deque)  # tasks sent, in the order it runs them
     head_since: float = 0.0  # when the first task in the queue became the running one
     ready: bool = False
@@ -164,26 +165,21 @@ class WorkerPool:
         process.start()
         child.close()
         self.started_workers += 1
-        return _Worker(process=process, conn=parent, reader=FrameReader(parent))
+        return _Worker(process=process, conn=parent, reader=FrameReader(parent),
+                       sender=Sender(parent))
 
     def _retire(self, worker: _Worker, *, kill: bool) -> None:
         if kill and worker.process.is_alive():
             worker.process.kill()
         worker.process.join(timeout=5)
-        try:
-            worker.conn.close()
-        except OSError:
-            pass
+        worker.sender.close()  # its thread closes the pipe once done with it
         if worker in self._workers:
             self._workers.remove(worker)
 
     def close(self) -> None:
         """Stop every worker."""
         for worker in list(self._workers):
-            try:
-                worker.conn.send(None)
-            except OSError:
-                pass
+            worker.sender.send(None)
         deadline = time.monotonic() + 2
         for worker in list(self._workers):
             worker.process.join(timeout=max(0.0, deadline - time.monotonic()))
@@ -206,23 +202,19 @@ class WorkerPool:
         for worker in self._workers:
             while (worker.ready and len(pending) >= self.size
                    and 0 < len(worker.queue) < self.depth):
-                if not self._send(worker, pending):
-                    break
+                self._send(worker, pending)
 
-    def _send(self, worker: _Worker, pending: deque) -> bool:
-        """Send the first task of ``pending`` to ``worker``; False if it has died."""
+    def _send(self, worker: _Worker, pending: deque) -> None:
+        """Send the first task of ``pending`` to ``worker`` (its sender thread writes it;
+        should the worker have died meanwhile, its sentinel tells and the task is put back
+        in line)."""
         key, request, attempt = pending.popleft()
         self._next_id += 1
         task = _Task(self._next_id, key, request, attempt)
-        try:
-            worker.conn.send((task.task_id, request))
-        except OSError:  # it died between two looks; its sentinel will tell
-            pending.appendleft((key, request, attempt))
-            return False
+        worker.sender.send((task.task_id, request))
         if not worker.queue:
             worker.head_since = time.monotonic()
         worker.queue.append(task)
-        return True
 
     def run(
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
