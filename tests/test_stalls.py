@@ -41,6 +41,15 @@ def run_watched(work, timeout_s: float, release) -> tuple[bool, float]:
     return hung, seconds
 
 
+def resume(pids: list[int]) -> None:
+    """SIGCONT each of ``pids`` that still exists."""
+    for pid in pids:
+        try:
+            os.kill(pid, signal.SIGCONT)
+        except ProcessLookupError:
+            pass
+
+
 def kill_if_left(marker: Path) -> None:
     """SIGKILL the worker that stopped itself (named in ``marker``), if it still exists."""
     try:
@@ -95,6 +104,55 @@ def test_a_large_deck_queued_behind_a_large_answer_does_not_deadlock(tmp_path):
     assert results["deck"].reads[0]["i(v1)"] == results["answer"].reads[0]["i(v1)"]
 
 
+
+class StopAtStart(threading.Thread):
+    """SIGSTOPs each of the first ``times`` workers the pool starts, before it is ready."""
+
+    def __init__(self, pool: WorkerPool, times: int) -> None:
+        super().__init__(daemon=True)
+        self.pool, self.times, self.stopped = pool, times, []
+        self.done = threading.Event()
+
+    def run(self) -> None:
+        while not self.done.is_set() and len(self.stopped) < self.times:
+            for worker in list(self.pool._workers):
+                pid = worker.process.pid
+                if not worker.ready and pid not in self.stopped:
+                    os.kill(pid, signal.SIGSTOP)
+                    self.stopped.append(pid)
+            time.sleep(0.0005)
+
+
+def test_a_worker_stopped_before_it_is_ready_is_replaced(tmp_path):
+    with WorkerPool(1, start_limit_s=2.0) as pool:
+        stopper = StopAtStart(pool, times=1)
+        stopper.start()
+        results: dict = {}
+        hung, seconds = run_watched(lambda: results.update(pool.run([("fast", FAST)])), 30,
+                                    lambda: resume(stopper.stopped))
+        stopper.done.set()
+        started_workers = pool.started_workers
+    assert len(stopper.stopped) == 1
+    assert not hung, "the pool waited for ever for a stopped worker to start"
+    assert seconds < 15
+    assert isinstance(results["fast"], AnalysisOutput), results["fast"]
+    assert started_workers == 2
+
+
+def test_workers_that_never_start_end_the_run_in_one_line(tmp_path):
+    import pytest
+
+    from amploop.errors import SimulatorError
+
+    with WorkerPool(1, start_limit_s=1.0) as pool:
+        stopper = StopAtStart(pool, times=3)
+        stopper.start()
+        with pytest.raises(SimulatorError, match="do not start within 1 s"):
+            list(pool.run([("fast", FAST)]))
+        stopper.done.set()
+    assert len(stopper.stopped) == 3
+
+
 # -- on a Dask cluster ---------------------------------------------------------------------
 
 # an RC driven by a sine: a `tran` of about a quarter of a second
@@ -132,11 +190,8 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
                     os.kill(pids[busy[0]], signal.SIGSTOP)
                     stopped.append(pids[busy[0]])
 
-        def resume() -> None:  # lets the cluster (and a stuck run) end
-            for pid in stopped:
-                os.kill(pid, signal.SIGCONT)
-
-        hung, seconds = run_watched(run, 60, resume)
+        # resuming the stopped worker lets the cluster (and a stuck run) end
+        hung, seconds = run_watched(run, 60, lambda: resume(stopped))
     assert stopped
     assert not hung, "the run hung on a stopped Dask worker"
     assert seconds < 30, seconds  # the deadline: 2 x 2 s + 2 s, plus the analyses

@@ -34,6 +34,11 @@ __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
 _PRELOAD = ["amploop.simulator", "amploop.measure", "numpy", "PySpice.Spice.NgSpice.Shared"]
 
 
+#: Seconds a new worker may take to start ngspice and report ready (tens of milliseconds
+#: as a rule; seconds on a loaded machine).
+START_LIMIT_S = 60.0
+
+
 def _context():
     context = mp.get_context("forkserver")
     context.set_forkserver_preload(_PRELOAD)
@@ -122,6 +127,7 @@ class _Worker:
     queue: deque = field(default_factory=deque)  # tasks sent, in the order it runs them
     head_since: float = 0.0  # when the first task in the queue became the running one
     ready: bool = False
+    started: float = field(default_factory=time.monotonic)  # when it was started
 
 
 class WorkerPool:
@@ -136,12 +142,18 @@ class WorkerPool:
     depth
         Analyses queued per worker, so that a worker starts the next one while the
         coordinator is still recording the last.
+    start_limit_s
+        Seconds a new worker may take to start its ngspice and say so; one that takes
+        longer (stopped, or hanging in ngspice's start) is killed and counts as a failed
+        start (three in a row end the run).
 
     Use as a context manager; :meth:`run` may be called many times on the same workers.
     """
 
-    def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2) -> None:
+    def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2,
+                 start_limit_s: float = START_LIMIT_S) -> None:
         self.size = workers or default_workers()
+        self.start_limit_s = start_limit_s
         #: workers see the coordinator's files, and have every core to themselves: they
         #: then do a request's ``after`` work (see :class:`AnalysisRequest`)
         self.shares_files = True
@@ -264,10 +276,22 @@ class WorkerPool:
                     f"ngspice crashed: its worker process ended with {how} "
                     f"({head.attempt + 1} attempts)", place=head.request.label)
 
+    def _failed_start(self, worker: _Worker, how: str) -> None:
+        """Count a worker that never became ready; the third in a row ends the run."""
+        self._failed_starts += 1
+        if self._failed_starts >= 3:
+            self._retire(worker, kill=True)
+            raise SimulatorError(
+                f"ngspice worker processes {how}",
+                hint="check that ngspice's shared library is installed; a script "
+                "that calls amploop needs the `if __name__ == \"__main__\":` guard",
+            )
+
     def _collect(self, pending: deque) -> Iterator[tuple[Hashable, object]]:
         now = time.monotonic()
         limits = [w.head_since + w.queue[0].request.time_limit_s - now
                   for w in self._workers if w.queue]
+        limits += [w.started + self.start_limit_s - now for w in self._workers if not w.ready]
         timeout = max(0.0, min(limits)) if limits else None
         waitables = {}
         for worker in self._workers:
@@ -304,23 +328,20 @@ class WorkerPool:
                 self._feed(pending)  # keep the worker busy before recording results
                 continue
             if not worker.ready:
-                self._failed_starts += 1
-                if self._failed_starts >= 3:
-                    code = worker.process.exitcode
-                    self._retire(worker, kill=True)
-                    raise SimulatorError(
-                        f"ngspice worker processes keep dying at start (exit code {code})",
-                        hint="check that ngspice's shared library is installed; a script "
-                        "that calls amploop needs the `if __name__ == \"__main__\":` guard",
-                    )
+                self._failed_start(worker, f"keep dying at start (exit code "
+                                           f"{worker.process.exitcode})")
             yield from self._requeue(worker, pending)
         for task, status, payload in finished:
             if status == "ok":
                 yield task.key, payload
             else:
                 yield task.key, SimulatorError(payload, place=task.request.label)
-        # time limits: the running (head) task of each worker
+        # time limits: the start of each new worker, the running (head) task of each other
         now = time.monotonic()
+        for worker in list(self._workers):
+            if not worker.ready and now - worker.started > self.start_limit_s:
+                self._retire(worker, kill=True)
+                self._failed_start(worker, f"do not start within {self.start_limit_s:g} s")
         for worker in list(self._workers):
             if worker.queue and now - worker.head_since > worker.queue[0].request.time_limit_s:
                 if worker.reader.partial:  # its answer stopped half-way: as a crash
