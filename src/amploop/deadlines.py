@@ -31,7 +31,15 @@ __all__ = ["deadline_s", "run_with_deadlines"]
 def deadline_s(request: AnalysisRequest, grace_s: float) -> float:
     """Seconds an analysis handed to the cluster may take to come back: its own time
     limit, once for an analysis it may wait behind and once for itself, plus ``grace_s``
-    for the network, the files and the start of the worker's ngspice process."""
+    for the network, the files and the start of the worker's ngspice process.
+
+    Parameters
+    ----------
+    request
+        The analysis (its ``time_limit_s``).
+    grace_s
+        Seconds added.
+    """
     return 2 * request.time_limit_s + grace_s
 
 
