@@ -17,6 +17,7 @@ the coordinator keeps a deadline of its own for every analysis it hands over:
 
 from __future__ import annotations
 
+import threading
 import time
 from collections import deque
 from collections.abc import Callable, Hashable, Iterable, Iterator
@@ -94,11 +95,13 @@ def run_with_deadlines(
     flying: dict[str, _Attempt] = {}
     left_out: set[str] = set()
     workers: list[str] | None = None  # None: any worker
+    wake = threading.Event()  # set (in the client's thread) whenever a future finishes
 
     def top_up() -> None:
         while waiting and len(flying) < slots:
             attempt = waiting.popleft()
             attempt.future = submit(attempt.request, workers)
+            attempt.future.add_done_callback(lambda _: wake.set())
             attempt.deadline = time.monotonic() + deadline_s(attempt.request, grace_s)
             flying[attempt.future.key] = attempt
 
@@ -107,8 +110,7 @@ def run_with_deadlines(
             top_up()
             nearest = min(a.deadline for a in flying.values())
             done = [flying.pop(future.key) for future in _first_done(
-                client, [a.future for a in flying.values()],
-                max(0.0, nearest - time.monotonic()), address)]
+                client, [a.future for a in flying.values()], wake, nearest, address)]
             now = time.monotonic()
             late = [a for a in flying.values() if a.deadline <= now]
             given_up = []
@@ -143,20 +145,18 @@ def _lost(address: str) -> SimulatorError:
                           "reuses them once the scheduler is back")
 
 
-def _first_done(client, futures: list, timeout_s: float, address: str) -> list:
-    """The futures that are done after waiting up to ``timeout_s`` for the first one."""
-    from distributed import wait
-
-    if client.status != "running":
-        raise _lost(address)
-    try:
-        wait(futures, timeout=timeout_s, return_when="FIRST_COMPLETED")
-    except TimeoutError:
-        pass
-    except Exception:  # noqa: BLE001 - cancelled futures raise here: their status says
+def _first_done(client, futures: list, wake: threading.Event, until: float,
+                address: str) -> list:
+    """The futures that are done, waiting for the first one until ``until`` (monotonic
+    clock; ``wake`` is set whenever one finishes)."""
+    while True:
+        wake.clear()
+        done = [f for f in futures if f.status != "pending"]
         if client.status != "running":
-            raise _lost(address) from None
-    return [f for f in futures if f.status != "pending"]
+            raise _lost(address)
+        if done or time.monotonic() >= until:
+            return done
+        wake.wait(max(0.0, until - time.monotonic()))
 
 
 def _holders(client, keys: set[str]) -> set[str]:
