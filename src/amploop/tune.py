@@ -67,8 +67,8 @@ class TuneResult:
     values_in_netlist
         The compensation values the netlist holds, by role, SI.
     warnings
-        Remarks on the amplifier, then the step checks' warnings, then the journal's
-        (damaged records recomputed).
+        Remarks on the amplifier and on the tuned point, then the step checks' warnings,
+        then the journal's notes (damaged records recomputed).
     """
 
     job: Job
