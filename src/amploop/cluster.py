@@ -19,8 +19,10 @@ for the next analysis that bundles the same files. It points the deck's absolute
 at the copies and runs the analysis through a local :class:`~amploop.pool.WorkerPool` of one process kept
 for the life of the Dask worker process. The Dask worker itself never loads ngspice: its
 child does, which isolates crashes and enforces the analysis's time limit inside the task
-(a running Dask task cannot be cancelled). A Dask worker that dies has its task re-run
-elsewhere by the scheduler; after ``distributed.scheduler.allowed-failures`` deaths the
+(a running Dask task cannot be cancelled). The coordinator keeps a deadline of its own
+for every analysis, so that a Dask worker that stops or is cut off costs a deadline, not
+the run: its analyses are handed to the other workers (:mod:`amploop.deadlines`). A Dask
+worker that dies has its task re-run elsewhere by the scheduler; after ``distributed.scheduler.allowed-failures`` deaths the
 task ends with ``KilledWorker``, reported here as that analysis's SimulatorError, and the
 run goes on.
 
@@ -33,6 +35,7 @@ from __future__ import annotations
 
 import atexit
 import hashlib
+import logging
 import multiprocessing as mp
 import os
 import posixpath
@@ -48,6 +51,7 @@ from dataclasses import replace
 from typing import Self
 
 from . import __version__
+from .deadlines import run_with_deadlines
 from .errors import JobError, SimulatorError
 from .simulator import AnalysisOutput, AnalysisRequest
 
@@ -55,6 +59,9 @@ __all__ = ["ClusterPool", "FileBundler", "include_targets", "run_analysis", "wor
 
 #: Seconds to wait for the scheduler (and for its first worker) before giving up.
 CONNECT_TIMEOUT_S = 10.0
+#: Seconds an analysis may take beyond twice its time limit before it is handed over
+#: again (the network, the files, the start of a worker's ngspice process).
+GRACE_S = 10.0
 
 # .include / .inc / .incl FILE, and .lib FILE SECTION (".lib NAME" alone opens a section
 # of a library file and reads nothing). The path may be quoted with " or '.
@@ -383,6 +390,10 @@ class ClusterPool:
         The scheduler, e.g. ``"tcp://scheduler-host:8786"``.
     timeout_s
         How long to wait for the scheduler, and for at least one worker.
+    retries
+        How many times an analysis that misses its deadline is handed over again.
+    grace_s
+        Seconds added to every deadline (:func:`amploop.deadlines.deadline_s`).
 
     Raises
     ------
@@ -390,12 +401,24 @@ class ClusterPool:
         When ``distributed`` is not installed, the scheduler cannot be reached, it has no
         worker, or a worker cannot import amploop (or has another version of it).
 
+    Notes
+    -----
+    The ``distributed.client`` logger is set to show critical records only: when the
+    scheduler is lost it would print its reconnection tracebacks, while the run ends with
+    one line saying so.
+
     Use as a context manager; :meth:`run` may be called many times.
     """
 
-    def __init__(self, address: str, *, timeout_s: float = CONNECT_TIMEOUT_S) -> None:
+    def __init__(self, address: str, *, timeout_s: float = CONNECT_TIMEOUT_S,
+                 retries: int = 2, grace_s: float = GRACE_S) -> None:
         distributed = _distributed()
+        # the client logs a lost scheduler with its reconnection tracebacks; the run
+        # reports it in one line (deadlines.py), so only its critical records are shown
+        logging.getLogger("distributed.client").setLevel(logging.CRITICAL)
         self.address = address
+        self.retries = retries
+        self.grace_s = grace_s
         self._bundler = FileBundler()
         self._token = uuid.uuid4().hex[:12]
         self._count = 0
@@ -458,30 +481,31 @@ class ClusterPool:
         """Run every request on the cluster; yield ``(key, output or SimulatorError)`` as
         each finishes. Analyses still queued are cancelled if the caller stops early.
 
+        Each analysis has a deadline here as well as its time limit inside the task; one
+        that misses it is handed to the other workers (:mod:`amploop.deadlines`).
+
         Parameters
         ----------
         requests
             ``(key, request)`` pairs; the key comes back with the request's result. Each
             request travels with the files its deck includes, without its ``after``.
+
+        Raises
+        ------
+        SimulatorError
+            When the connection to the scheduler is lost.
         """
-        distributed = _distributed()
-        futures = {}
-        for key, request in requests:
+        _distributed()
+
+        def submit(request: AnalysisRequest, workers: list[str] | None):
             bundled = replace(request, files=self._bundler.bundle(request.deck), after=None)
             self._count += 1
-            future = self._client.submit(run_analysis, bundled, pure=False,
-                                         key=f"amploop-analysis-{self._token}-{self._count}")
-            futures[future.key] = (future, key, request)
-        if not futures:
-            return
-        try:
-            for future in distributed.as_completed([f for f, _, _ in futures.values()],
-                                                  loop=self._client.loop):
-                _, key, request = futures.pop(future.key)
-                yield key, self._outcome(future, request)
-        finally:
-            if futures:
-                self._client.cancel([f for f, _, _ in futures.values()])
+            return self._client.submit(run_analysis, bundled, pure=False, workers=workers,
+                                       key=f"amploop-analysis-{self._token}-{self._count}")
+
+        yield from run_with_deadlines(self._client, requests, submit, self._outcome,
+                                      slots=2 * self.size, retries=self.retries,
+                                      grace_s=self.grace_s, address=self.address)
 
     @staticmethod
     def _outcome(future, request: AnalysisRequest) -> AnalysisOutput | SimulatorError:

@@ -12,6 +12,14 @@ of the application; explicit ``BEGIN IMMEDIATE`` transactions; the connection is
 in the coordinator after the workers' fork server exists and is never shared with them).
 Result arrays are stored as raw bytes behind a JSON header, never as pickles, so opening a
 journal from elsewhere can never execute code.
+
+Every record carries a sha256 checksum of its key and everything :meth:`Journal.get` gives
+back. SQLite's own check covers its pages, not the bytes inside a stored array: bytes
+damaged there would otherwise be reused as a result that looks fine. A record whose
+checksum does not match is set aside: the caller recomputes it, the new record replaces
+it, and :meth:`Journal.notes` says so in one line. A journal of schema 1 (written before
+checksums) is upgraded in place when opened for writing; its records cannot be verified,
+so they are set aside the same way, as each is asked for.
 """
 
 from __future__ import annotations
@@ -31,8 +39,12 @@ from .simulator import AnalysisOutput, AnalysisRequest
 
 __all__ = ["JOURNAL_SCHEMA", "Journal", "analysis_key", "file_digests"]
 
-#: Bump when the stored format or the meaning of a key changes; older journals are refused.
-JOURNAL_SCHEMA = 1
+#: Bump when the stored format changes; schema 1 is upgraded, other ones are refused.
+JOURNAL_SCHEMA = 2
+#: The schema that had no checksums (upgraded in place by a writer).
+_UNCHECKED_SCHEMA = 1
+#: Part of every key: bump when the meaning of a key changes (every old record then misses).
+_KEY_VERSION = 1
 _APPLICATION_ID = 0x616D706C  # "ampl"
 
 
@@ -53,7 +65,7 @@ def analysis_key(request: AnalysisRequest, digests: dict[str, str]) -> str:
     """The hash that identifies ``request``: deck, commands, read vectors, bundled files, and
     the contents of the files it reads as ``digests`` (path -> sha256) gives them."""
     h = hashlib.sha256()
-    h.update(f"amploop-journal-{JOURNAL_SCHEMA}\n".encode())
+    h.update(f"amploop-journal-{_KEY_VERSION}\n".encode())
     h.update(request.deck.encode("utf-8"))
     for step in request.steps:
         h.update(b"\0step\0" + step.command.encode() + b"\0" + "\0".join(step.read).encode())
@@ -77,6 +89,16 @@ def _pack(output: AnalysisOutput) -> bytes:
             chunks.append(array.tobytes())
     head = json.dumps({"steps": len(output.reads), "vectors": header}).encode()
     return len(head).to_bytes(4, "little") + head + b"".join(chunks)
+
+
+def _record_checksum(key: str, data: bytes, warnings: str, transient_op: int,
+                    seconds: float) -> str:
+    """sha256 of a record's key and of every stored field :meth:`Journal.get` reads back."""
+    h = hashlib.sha256()
+    h.update(key.encode() + b"\0")
+    h.update(data)
+    h.update(f"\0{warnings}\0{int(transient_op)}\0{float(seconds)!r}".encode())
+    return h.hexdigest()
 
 
 def _unpack(blob: bytes, warnings: str, transient_op: int, seconds: float) -> AnalysisOutput:
@@ -118,6 +140,11 @@ class Journal:
         self.path = Path(path)
         self.commit_interval_s = commit_interval_s
         self._open_since: float | None = None  # when the uncommitted batch began
+        self.readonly = readonly
+        #: (label, key, why) of every record set aside by :meth:`get`, in order
+        self.set_aside: list[tuple[str, str, str]] = []
+        #: records found without a checksum when this journal was upgraded from schema 1
+        self.upgraded_records: int | None = None
         if readonly and not self.path.is_file():
             raise JournalError("no journal here", file=self.path,
                                hint="run measure or tune into this out folder first")
@@ -158,9 +185,23 @@ class Journal:
         self._db.execute(
             "CREATE TABLE analyses (key TEXT PRIMARY KEY, label TEXT NOT NULL, "
             "created REAL NOT NULL, seconds REAL NOT NULL, ac_runs INTEGER NOT NULL, "
-            "transient_op INTEGER NOT NULL, warnings TEXT NOT NULL, data BLOB NOT NULL)"
+            "transient_op INTEGER NOT NULL, warnings TEXT NOT NULL, data BLOB NOT NULL, "
+            "checksum TEXT)"  # NULL only in records of an upgraded schema-1 journal
         )
         self._db.execute("COMMIT")
+
+    def _upgrade(self) -> None:
+        """Schema 1 -> 2: add the checksum column; the old records keep none."""
+        self._db.execute("BEGIN IMMEDIATE")
+        try:
+            self._db.execute("ALTER TABLE analyses ADD COLUMN checksum TEXT")
+            self._db.execute(f"PRAGMA user_version={JOURNAL_SCHEMA}")
+            self.upgraded_records = self._db.execute(
+                "SELECT COUNT(*) FROM analyses").fetchone()[0]
+            self._db.execute("COMMIT")
+        except sqlite3.Error:
+            self._db.execute("ROLLBACK")
+            raise
 
     def _check(self) -> None:
         app = self._db.execute("PRAGMA application_id").fetchone()[0]
@@ -168,7 +209,14 @@ class Journal:
         if app != _APPLICATION_ID:
             raise JournalError("this file is not an amploop journal", file=self.path,
                                hint="use another --out folder")
-        if version != JOURNAL_SCHEMA:
+        if version == _UNCHECKED_SCHEMA and self.readonly:
+            raise JournalError(
+                f"the journal has schema {version}, whose records carry no checksum",
+                file=self.path, hint="rerun measure or tune into this out folder: it "
+                "upgrades the journal and recomputes what cannot be verified")
+        if version == _UNCHECKED_SCHEMA:
+            self._upgrade()
+        elif version != JOURNAL_SCHEMA:
             raise JournalError(
                 f"the journal has schema {version}; this amploop writes schema {JOURNAL_SCHEMA}",
                 file=self.path,
@@ -180,17 +228,62 @@ class Journal:
                                hint="move it away to start afresh")
 
     def get(self, key: str) -> AnalysisOutput | None:
-        """The stored output of analysis ``key``, or None."""
+        """The stored output of analysis ``key``, or None.
+
+        A record whose checksum does not match (or that has none, from schema 1, or
+        cannot be unpacked) is damaged: it is never returned. A writer sets it aside
+        (None, and an entry in :attr:`set_aside`), so that the caller recomputes it and
+        :meth:`put` replaces it.
+
+        Parameters
+        ----------
+        key
+            The analysis's key (:func:`analysis_key`).
+
+        Raises
+        ------
+        JournalError
+            When the journal is read-only (nothing could recompute it) and the record is
+            damaged.
+        """
         row = self._db.execute(
-            "SELECT data, warnings, transient_op, seconds FROM analyses WHERE key = ?", (key,)
+            "SELECT data, warnings, transient_op, seconds, checksum, label FROM analyses "
+            "WHERE key = ?", (key,)
         ).fetchone()
         if row is None:
             return None
-        try:
-            return _unpack(*row)
-        except (ValueError, OSError, KeyError, IndexError, TypeError) as exc:
-            raise JournalError(f"a stored analysis is unreadable ({exc})", file=self.path,
-                               hint="move the journal away to start afresh") from None
+        data, warnings, transient_op, seconds, checksum, label = row
+        if checksum is None:
+            why = "no checksum (recorded by an older amploop)"
+        elif checksum != _record_checksum(key, data, warnings, transient_op, seconds):
+            why = "checksum mismatch"
+        else:
+            try:
+                return _unpack(data, warnings, transient_op, seconds)
+            except (ValueError, OSError, KeyError, IndexError, TypeError) as exc:
+                why = f"unreadable ({exc})"
+        if self.readonly:
+            raise JournalError(f"the stored analysis of {label} ({key[:12]}…) is damaged: {why}",
+                               file=self.path,
+                               hint="rerun the command into this out folder to recompute it")
+        self.set_aside.append((label, key, why))
+        return None
+
+    def notes(self) -> tuple[str, ...]:
+        """One line for the user about the records set aside (and one about an upgrade)."""
+        lines = []
+        if self.upgraded_records is not None:
+            lines.append(f"the journal was upgraded from schema {_UNCHECKED_SCHEMA}: its "
+                         f"{self.upgraded_records} records carry no checksum, so each is "
+                         "recomputed when it is needed")
+        damaged = [(label, key, why) for label, key, why in self.set_aside
+                   if not why.startswith("no checksum")]
+        if damaged:
+            shown = ", ".join(f"{label} ({why})" for label, _, why in damaged[:5])
+            more = f" and {len(damaged) - 5} more" if len(damaged) > 5 else ""
+            lines.append(f"{len(damaged)} damaged journal record{'s' * (len(damaged) != 1)} "
+                         f"recomputed: {shown}{more}")
+        return tuple(lines)
 
     def put(self, key: str, label: str, request: AnalysisRequest, output: AnalysisOutput) -> None:
         """Record a finished analysis.
@@ -212,14 +305,16 @@ class Journal:
             needed the transient fallback, and its seconds.
         """
         blob = _pack(output)
+        warnings = json.dumps(list(output.warnings))
+        checksum = _record_checksum(key, blob, warnings, int(output.transient_op), output.seconds)
         try:
             if self._open_since is None:
                 self._db.execute("BEGIN IMMEDIATE")
                 self._open_since = time.monotonic()
             self._db.execute(
-                "INSERT OR REPLACE INTO analyses VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                "INSERT OR REPLACE INTO analyses VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
                 (key, label, time.time(), output.seconds, request.ac_runs,
-                 int(output.transient_op), json.dumps(list(output.warnings)), blob),
+                 int(output.transient_op), warnings, blob, checksum),
             )
         except sqlite3.Error as exc:
             self._failed(exc)

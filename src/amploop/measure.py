@@ -130,7 +130,8 @@ class MeasureResult:
     simulator_seconds
         Wall time the workers spent inside ngspice on the analyses simulated, seconds.
     warnings
-        Remarks on the amplifier for the user (:attr:`~amploop.amplifier.Amplifier.warnings`).
+        Remarks on the amplifier for the user (:attr:`~amploop.amplifier.Amplifier.warnings`),
+        then the journal's (:meth:`~amploop.journal.Journal.notes`: damaged records recomputed).
     """
 
     job: Job
@@ -413,7 +414,8 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                transient_run=runner.transient_run,
                                transient_reused=runner.transient_reused,
                                simulator_seconds=runner.simulator_seconds,
-                               warnings=amplifier.warnings)
+                               warnings=amplifier.warnings
+                               + (journal.notes() if journal is not None else ()))
         if folder is not None:
             data = result.as_json()
             if len(ordered) < len(job.corners):

@@ -5,7 +5,10 @@ so every analysis runs in a worker process and the coordinator only exchanges re
 and results with it over a pipe. A worker that dies (a crash inside ngspice, a kill) is
 replaced and its analysis retried a bounded number of times; one that runs past the
 analysis's time limit is killed and replaced, and that analysis reports a time-out.
-Results come back as they finish, so callers can record them at once.
+Answers are read without blocking (:mod:`amploop.frames`): a worker whose answer has begun
+to arrive but is still incomplete at the time limit (stopped half-way through sending it)
+is killed, replaced and its analysis retried, as a crashed one is. Results come back as
+they finish, so callers can record them at once.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from multiprocessing.connection import wait
 from typing import Self
 
 from .errors import SimulatorError
+from .frames import FrameReader, Sender, send_frame
 from .simulator import AnalysisOutput, AnalysisRequest
 
 __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
@@ -28,6 +32,11 @@ __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
 #: What the fork server imports once, so that each worker forked from it starts in
 #: milliseconds (PySpice's import alone takes about 0.13 s).
 _PRELOAD = ["amploop.simulator", "amploop.measure", "numpy", "PySpice.Spice.NgSpice.Shared"]
+
+
+#: Seconds a new worker may take to start ngspice and report ready (tens of milliseconds
+#: as a rule; seconds on a loaded machine).
+START_LIMIT_S = 60.0
 
 
 def _context():
@@ -68,9 +77,9 @@ def _worker_main(conn) -> None:
     try:
         session = NgspiceSession()
     except Exception as exc:  # noqa: BLE001 - reported to the coordinator, which decides
-        conn.send(("fatal", f"cannot start ngspice: {exc}"))
+        send_frame(conn, ("fatal", f"cannot start ngspice: {exc}"))
         return
-    conn.send(("ready", os.getpid()))
+    send_frame(conn, ("ready", os.getpid()))
     while True:
         try:
             message = conn.recv()
@@ -85,7 +94,7 @@ def _worker_main(conn) -> None:
             reply = (task_id, "error", exc.problem)
         except Exception as exc:  # noqa: BLE001 - an unexpected failure of one analysis
             reply = (task_id, "error", f"internal error in the worker: {exc!r}")
-        conn.send(reply + (session.broken,))
+        send_frame(conn, reply + (session.broken,))
         if session.broken:
             conn.close()
             os._exit(0)  # ngspice cannot recover in this process; the pool starts another
@@ -113,9 +122,12 @@ class _Task:
 class _Worker:
     process: mp.process.BaseProcess
     conn: object
+    reader: FrameReader
+    sender: Sender
     queue: deque = field(default_factory=deque)  # tasks sent, in the order it runs them
     head_since: float = 0.0  # when the first task in the queue became the running one
     ready: bool = False
+    started: float = field(default_factory=time.monotonic)  # when it was started
 
 
 class WorkerPool:
@@ -130,12 +142,18 @@ class WorkerPool:
     depth
         Analyses queued per worker, so that a worker starts the next one while the
         coordinator is still recording the last.
+    start_limit_s
+        Seconds a new worker may take to start its ngspice and say so; one that takes
+        longer (stopped, or hanging in ngspice's start) is killed and counts as a failed
+        start (three in a row end the run).
 
     Use as a context manager; :meth:`run` may be called many times on the same workers.
     """
 
-    def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2) -> None:
+    def __init__(self, workers: int | None = None, *, retries: int = 2, depth: int = 2,
+                 start_limit_s: float = START_LIMIT_S) -> None:
         self.size = workers or default_workers()
+        self.start_limit_s = start_limit_s
         #: workers see the coordinator's files, and have every core to themselves: they
         #: then do a request's ``after`` work (see :class:`AnalysisRequest`)
         self.shares_files = True
@@ -159,26 +177,21 @@ class WorkerPool:
         process.start()
         child.close()
         self.started_workers += 1
-        return _Worker(process=process, conn=parent)
+        return _Worker(process=process, conn=parent, reader=FrameReader(parent),
+                       sender=Sender(parent))
 
     def _retire(self, worker: _Worker, *, kill: bool) -> None:
         if kill and worker.process.is_alive():
             worker.process.kill()
         worker.process.join(timeout=5)
-        try:
-            worker.conn.close()
-        except OSError:
-            pass
+        worker.sender.close()  # its thread closes the pipe once done with it
         if worker in self._workers:
             self._workers.remove(worker)
 
     def close(self) -> None:
         """Stop every worker."""
         for worker in list(self._workers):
-            try:
-                worker.conn.send(None)
-            except OSError:
-                pass
+            worker.sender.send(None)
         deadline = time.monotonic() + 2
         for worker in list(self._workers):
             worker.process.join(timeout=max(0.0, deadline - time.monotonic()))
@@ -201,23 +214,19 @@ class WorkerPool:
         for worker in self._workers:
             while (worker.ready and len(pending) >= self.size
                    and 0 < len(worker.queue) < self.depth):
-                if not self._send(worker, pending):
-                    break
+                self._send(worker, pending)
 
-    def _send(self, worker: _Worker, pending: deque) -> bool:
-        """Send the first task of ``pending`` to ``worker``; False if it has died."""
+    def _send(self, worker: _Worker, pending: deque) -> None:
+        """Send the first task of ``pending`` to ``worker`` (its sender thread writes it;
+        should the worker have died meanwhile, its sentinel tells and the task is put back
+        in line)."""
         key, request, attempt = pending.popleft()
         self._next_id += 1
         task = _Task(self._next_id, key, request, attempt)
-        try:
-            worker.conn.send((task.task_id, request))
-        except OSError:  # it died between two looks; its sentinel will tell
-            pending.appendleft((key, request, attempt))
-            return False
+        worker.sender.send((task.task_id, request))
         if not worker.queue:
             worker.head_since = time.monotonic()
         worker.queue.append(task)
-        return True
 
     def run(
         self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
@@ -237,31 +246,52 @@ class WorkerPool:
             self._feed(pending)
             yield from self._collect(pending)
 
-    def _requeue(self, worker: _Worker, pending: deque, *, crashed: bool = True
-                 ) -> Iterator[tuple[Hashable, object]]:
-        """A worker is gone: retry its running task (bounded) if it crashed under it, and
-        put the tasks that never started back in line."""
+    def _requeue(self, worker: _Worker, pending: deque, *, crashed: bool = True,
+                 stalled: bool = False) -> Iterator[tuple[Hashable, object]]:
+        """A worker is gone (or ``stalled`` half-way through an answer: it is killed):
+        retry its running task (bounded) if it crashed or stalled under it, and put the
+        tasks that never started back in line."""
+        if stalled:
+            worker.process.kill()  # SIGKILL ends a stopped process too
         worker.process.join(timeout=2)  # reap it, so the exit code is known
         code = worker.process.exitcode
         tasks = list(worker.queue)
         worker.queue.clear()
         self._retire(worker, kill=True)
+        crashed = crashed or stalled
         for task in reversed(tasks[1:] if crashed else tasks):
             pending.appendleft((task.key, task.request, task.attempt))
         if tasks and crashed:
             head = tasks[0]
             if head.attempt < self.retries:
                 pending.appendleft((head.key, head.request, head.attempt + 1))
+            elif stalled:
+                yield head.key, SimulatorError(
+                    "its worker process stopped half-way through sending the answer, "
+                    f"past the time limit of {head.request.time_limit_s:g} s "
+                    f"({head.attempt + 1} attempts)", place=head.request.label)
             else:
                 how = f"signal {-code}" if code is not None and code < 0 else f"code {code}"
                 yield head.key, SimulatorError(
                     f"ngspice crashed: its worker process ended with {how} "
                     f"({head.attempt + 1} attempts)", place=head.request.label)
 
+    def _failed_start(self, worker: _Worker, how: str) -> None:
+        """Count a worker that never became ready; the third in a row ends the run."""
+        self._failed_starts += 1
+        if self._failed_starts >= 3:
+            self._retire(worker, kill=True)
+            raise SimulatorError(
+                f"ngspice worker processes {how}",
+                hint="check that ngspice's shared library is installed; a script "
+                "that calls amploop needs the `if __name__ == \"__main__\":` guard",
+            )
+
     def _collect(self, pending: deque) -> Iterator[tuple[Hashable, object]]:
         now = time.monotonic()
         limits = [w.head_since + w.queue[0].request.time_limit_s - now
                   for w in self._workers if w.queue]
+        limits += [w.started + self.start_limit_s - now for w in self._workers if not w.ready]
         timeout = max(0.0, min(limits)) if limits else None
         waitables = {}
         for worker in self._workers:
@@ -275,13 +305,8 @@ class WorkerPool:
             if id(worker) in handled or worker not in self._workers:
                 continue
             handled.add(id(worker))
-            died = exited = False
-            while worker.conn.poll():
-                try:
-                    message = worker.conn.recv()
-                except (EOFError, OSError):
-                    died = True
-                    break
+            exited = False
+            for message in worker.reader.read():
                 if message[0] == "ready":
                     worker.ready = True
                     self._failed_starts = 0
@@ -299,29 +324,29 @@ class WorkerPool:
             if exited:
                 yield from self._requeue(worker, pending, crashed=False)
                 continue
-            if not died and worker.process.is_alive():
+            if not worker.reader.closed and worker.process.is_alive():
                 self._feed(pending)  # keep the worker busy before recording results
                 continue
             if not worker.ready:
-                self._failed_starts += 1
-                if self._failed_starts >= 3:
-                    code = worker.process.exitcode
-                    self._retire(worker, kill=True)
-                    raise SimulatorError(
-                        f"ngspice worker processes keep dying at start (exit code {code})",
-                        hint="check that ngspice's shared library is installed; a script "
-                        "that calls amploop needs the `if __name__ == \"__main__\":` guard",
-                    )
+                self._failed_start(worker, f"keep dying at start (exit code "
+                                           f"{worker.process.exitcode})")
             yield from self._requeue(worker, pending)
         for task, status, payload in finished:
             if status == "ok":
                 yield task.key, payload
             else:
                 yield task.key, SimulatorError(payload, place=task.request.label)
-        # time limits: the running (head) task of each worker
+        # time limits: the start of each new worker, the running (head) task of each other
         now = time.monotonic()
         for worker in list(self._workers):
+            if not worker.ready and now - worker.started > self.start_limit_s:
+                self._retire(worker, kill=True)
+                self._failed_start(worker, f"do not start within {self.start_limit_s:g} s")
+        for worker in list(self._workers):
             if worker.queue and now - worker.head_since > worker.queue[0].request.time_limit_s:
+                if worker.reader.partial:  # its answer stopped half-way: as a crash
+                    yield from self._requeue(worker, pending, stalled=True)
+                    continue
                 head = worker.queue.popleft()
                 for task in reversed(worker.queue):
                     pending.appendleft((task.key, task.request, task.attempt))

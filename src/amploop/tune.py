@@ -67,7 +67,8 @@ class TuneResult:
     values_in_netlist
         The compensation values the netlist holds, by role, SI.
     warnings
-        Remarks on the amplifier, then the step checks' warnings.
+        Remarks on the amplifier and on the tuned point, then the step checks' warnings,
+        then the journal's notes (damaged records recomputed).
     """
 
     job: Job
@@ -274,7 +275,8 @@ def tune(
                             transient_run=runner.transient_run,
                             transient_reused=runner.transient_reused,
                             values_in_netlist=amplifier.values_in_effect({}),
-                            warnings=amplifier.warnings + remarks + _step_warnings(checks))
+                            warnings=amplifier.warnings + remarks + _step_warnings(checks)
+                            + journal.notes())
         folder.write_json("results.json", result.as_json())
     return result
 
