@@ -286,3 +286,62 @@ def test_parse_error_on_an_element_of_the_subckt_names_its_line(job, tmp_path, c
     assert code == 2
     line = one_error_line(err)
     assert "macro.cir:12:" in line and "m.x1.m9" in line and "modelname" in line
+
+
+@pytest.mark.parametrize("old, new, place", [
+    ('min = "0.1p"', 'min = "0"', "[compensation].cc.min"),  # the map's log grid divided by it
+    ('min = "0.1p"', 'min = 0', "[compensation].cc.min"),
+])
+def test_a_cc_bound_of_zero_is_refused_when_the_job_is_read(job, tmp_path, capsys, old, new,
+                                                             place):
+    edit(job, old, new)
+    code, _, err = run(["tune", str(job), "--out", str(tmp_path / "out"), "--workers", "1",
+                        "--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert place in line and "above zero" in line and "internal error" not in line
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_device_size_bound_of_zero_is_refused_when_the_job_is_read(tmp_path, capsys):
+    from conftest import DEMO
+
+    text = (DEMO / "job_triode.toml").read_text()
+    assert 'min = "0.2u"' in text
+    job = tmp_path / "job.toml"
+    job.write_text(text.replace('min = "0.2u"', 'min = "0"')
+                   .replace('netlist = "', f'netlist = "{DEMO}/')
+                   .replace('models = "', f'models = "{DEMO}/'))
+    code, _, err = run(["tune", str(job), "--out", str(tmp_path / "out"), "--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "[compensation].rc.min" in line and "W must stay above zero" in line
+
+
+@pytest.mark.parametrize("value", ["3e6", "1e300", "0"])
+def test_a_time_limit_beyond_what_the_pool_can_wait_is_refused(job, tmp_path, capsys, value):
+    """poll() takes its time-out as a C int of milliseconds: about 2.1e6 s at most."""
+    edit(job, "[analysis]", f"[analysis]\ntime_limit = {value}")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "[analysis].time_limit" in line and "at most 1e+06 seconds" in line
+
+
+def test_a_time_limit_of_a_week_is_accepted(job, tmp_path, capsys):
+    edit(job, "[analysis]", "[analysis]\ntime_limit = 604800")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 0, err
+
+
+@pytest.mark.parametrize("command", ["measure", "report"])
+def test_an_out_folder_name_longer_than_the_file_system_allows_is_one_line(job, tmp_path, capsys,
+                                                                           command):
+    """Linux file systems allow 255 bytes per name (NAME_MAX)."""
+    out = tmp_path / ("x" * 300)
+    argv = ["measure", str(job), "--out", str(out)] if command == "measure" \
+        else ["report", str(out)]
+    code, _, err = run(argv, capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "File name too long" in line and "internal error" not in line

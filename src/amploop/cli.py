@@ -104,9 +104,9 @@ def _write_report(out, *, quiet: bool, pngs: bool = True) -> None:
 
 
 def _run_report(args) -> ExitCode:
-    from pathlib import Path
+    from .outputs import is_folder
 
-    if not Path(args.out).is_dir():
+    if not is_folder(args.out):
         raise OutputError("not a folder", file=args.out)
     _write_report(args.out, quiet=False, pngs=not args.no_png)
     return ExitCode.OK

@@ -327,6 +327,9 @@ _AMPLIFIER_KEYS = {
 _FEEDBACK_KEYS = {"kind", "input", "feedback", "load", "dc_path"}
 _KNOB_KEYS = {"param", "element", "device", "size", "min", "max"}
 _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
+#: The longest [analysis].time_limit, seconds: the pool waits for its workers through
+#: poll(), whose time-out is a C int of milliseconds (at most about 2.1e6 s).
+MAX_TIME_LIMIT_S = 1e6
 _CORNER_KEYS = {"name", "lib", "temp", "params"}
 _GRID_KEYS = {"lib", "temp", "params"}
 _TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
@@ -692,8 +695,11 @@ def _compensation(r: _Reader, data: dict) -> dict[str, Knob]:
                                                             nonnegative=True)
         if minimum is not None and maximum is not None and minimum > maximum:
             raise r.fail(place, f"min ({spec['min']}) is larger than max ({spec['max']})")
-        if role == "cc" and maximum is not None and maximum == 0:
-            raise r.fail(f"{place}.max", "Cc's upper bound must be above zero")
+        for bound, value in (("min", minimum), ("max", maximum)):
+            if value == 0 and (role == "cc" or where == "device"):  # searched on a log scale
+                what = "Cc" if role == "cc" else f"the device's {size.upper()}"
+                raise r.fail(f"{place}.{bound}", f"{what} must stay above zero: its {bound} "
+                             "bound is 0", hint="give the smallest value worth trying")
         knobs[role] = Knob(role=role, where=where, name=r.string(spec, where, place), size=size,
                            minimum=minimum, maximum=maximum)
     return knobs
@@ -715,8 +721,9 @@ def _analysis(r: _Reader, data: dict) -> Analysis:
         raise r.fail("[analysis].probe", f"expected 'double-injection' or 'lc', got {probe!r}"
                      + did_you_mean(str(probe), ["double-injection", "lc"]))
     time_limit = r.number(data.get("time_limit", 120), "[analysis].time_limit")
-    if time_limit <= 0:
-        raise r.fail("[analysis].time_limit", "must be above 0 seconds")
+    if not 0 < time_limit <= MAX_TIME_LIMIT_S:
+        raise r.fail("[analysis].time_limit", f"must be above 0 and at most "
+                     f"{MAX_TIME_LIMIT_S:g} seconds (about 11 days), got {data['time_limit']!r}")
     return Analysis(start_hz=start, stop_hz=stop, points_per_decade=points, probe=probe,
                     time_limit_s=time_limit)
 

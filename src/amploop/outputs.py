@@ -12,6 +12,7 @@ import fcntl
 import json
 import math
 import os
+import stat
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -20,7 +21,7 @@ import numpy as np
 from .errors import JournalError, OutputError
 from .loopgain import FrequencyResponse
 
-__all__ = ["OutFolder", "clean_json", "loop_gain_csv", "write_into"]
+__all__ = ["OutFolder", "clean_json", "is_folder", "loop_gain_csv", "write_into"]
 
 
 def clean_json(value):
@@ -40,6 +41,23 @@ def clean_json(value):
     return value
 
 
+def is_folder(path: Path) -> bool | None:
+    """Whether ``path`` is a folder (True), something else (False) or absent (None).
+
+    Raises
+    ------
+    OutputError
+        When the name itself cannot be looked up (a part longer than the file system's
+        limit of 255 bytes, a loop of symbolic links, no permission).
+    """
+    try:
+        return stat.S_ISDIR(os.stat(path).st_mode)
+    except (FileNotFoundError, NotADirectoryError):
+        return None
+    except OSError as exc:
+        raise OutputError(f"unusable out folder name: {exc.strerror}", file=path) from None
+
+
 class OutFolder:
     """The out folder of one run.
 
@@ -56,7 +74,7 @@ class OutFolder:
 
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path).resolve()
-        if self.path.exists() and not self.path.is_dir():
+        if is_folder(self.path) is False:
             raise OutputError("the out folder is a file, not a folder", file=self.path,
                               hint="give --out a new or existing folder")
         try:
