@@ -74,11 +74,17 @@ def _parser() -> argparse.ArgumentParser:
                         help="print one JSON summary line instead of the table")
     common.add_argument("--no-report", action="store_true",
                         help="skip report.pdf and the step checks it shows")
+    pages = argparse.ArgumentParser(add_help=False)
+    pages.add_argument("--all-corner-pages", action="store_true",
+                       help="a report page for every corner (by default a long corner list "
+                       "gets an overview page and pages for the worst few only)")
+    pages.add_argument("--corner-page", action="append", default=[], metavar="CORNER",
+                       help="also give this corner a report page (repeatable)")
 
-    commands.add_parser("measure", parents=[common], help="measure loop gain and margins",
+    commands.add_parser("measure", parents=[common, pages], help="measure loop gain and margins",
                         description="Measure the loop gain and its margins at every corner.")
     tune = commands.add_parser(
-        "tune", parents=[common], help="choose Cc and Rc for the target margin",
+        "tune", parents=[common, pages], help="choose Cc and Rc for the target margin",
         description="Choose Cc and Rc so that the worst corner meets the target phase margin "
         "with the least bandwidth given away.")
     tune.add_argument("--strategy", default="map", choices=["map", "textbook"],
@@ -87,7 +93,7 @@ def _parser() -> argparse.ArgumentParser:
     tune.add_argument("--resume", action="store_true",
                       help="continue an interrupted run in the same out folder")
     report = commands.add_parser(
-        "report", help="rebuild report.pdf of an out folder (no simulation)",
+        "report", parents=[pages], help="rebuild report.pdf of an out folder (no simulation)",
         description="Draw report.pdf and its PNG pages from an out folder's results.json and "
         "journal, without simulating.")
     report.add_argument("out", metavar="OUTDIR", help="an out folder of measure or tune")
@@ -95,10 +101,25 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _write_report(out, *, quiet: bool, pngs: bool = True) -> None:
+def _page_progress(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int) -> None:
+        sys.stderr.write(f"\r  report: page {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def _write_report(out, args, *, quiet: bool, pngs: bool = True) -> None:
     from .report import build_report
 
-    outcome = build_report(out, pngs=pngs)
+    outcome = build_report(out, pngs=pngs, corner_pages=args.corner_page,
+                           all_corner_pages=args.all_corner_pages,
+                           progress=_page_progress(quiet))
     if not quiet:
         print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
 
@@ -108,7 +129,7 @@ def _run_report(args) -> ExitCode:
 
     if not is_folder(args.out):
         raise OutputError("not a folder", file=args.out)
-    _write_report(args.out, quiet=False, pngs=not args.no_png)
+    _write_report(args.out, args, quiet=False, pngs=not args.no_png)
     return ExitCode.OK
 
 
@@ -248,31 +269,38 @@ def _run_measure(args) -> ExitCode:
 
     job = load_job(args.job)
     overrides = parse_overrides(args.set, job)
+
+    def finish(result) -> None:
+        """Print the results and draw the report while the out folder is still held."""
+        failed = [c for c in result.corners if c.status == "error"]
+        suspect = [c for c in result.corners if c.status == "suspect"]
+        if args.json:
+            summary = result.as_json()
+            print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
+                             | {"failed_corners": [c.corner.name for c in failed],
+                                "suspect_corners": [c.corner.name for c in suspect],
+                                "out": str(result.out)}))
+        elif not args.quiet:
+            values = _values_line(job, result.values)
+            print(f"job {job.name}: {len(result.corners)} corners at {values}")
+            print(corner_table(result.corners))
+            print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
+                  f"{result.seconds:.1f} s; results in {result.out}")
+        if not args.quiet:
+            for warning in result.warnings:
+                print(f"amploop: warning: {warning}", file=sys.stderr)
+            print_corner_remarks(result.corners)
+        _print_corner_errors(failed, len(result.corners))
+        if not args.no_report and any(c.margins is not None for c in result.corners):
+            _write_report(result.out, args, quiet=args.quiet or args.json)
+
     with _cluster_pool(args) as pool:
         result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
                          pool=pool, allow_control=args.allow_control,
-                         progress=_progress_printer(args.quiet), time_domain=not args.no_report)
+                         progress=_progress_printer(args.quiet), time_domain=not args.no_report,
+                         finish=finish)
     failed = [c for c in result.corners if c.status == "error"]
     suspect = [c for c in result.corners if c.status == "suspect"]
-    if args.json:
-        summary = result.as_json()
-        print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
-                         | {"failed_corners": [c.corner.name for c in failed],
-                            "suspect_corners": [c.corner.name for c in suspect],
-                            "out": str(result.out)}))
-    elif not args.quiet:
-        values = _values_line(job, result.values)
-        print(f"job {job.name}: {len(result.corners)} corners at {values}")
-        print(corner_table(result.corners))
-        print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
-              f"{result.seconds:.1f} s; results in {result.out}")
-    if not args.quiet:
-        for warning in result.warnings:
-            print(f"amploop: warning: {warning}", file=sys.stderr)
-        print_corner_remarks(result.corners)
-    _print_corner_errors(failed, len(result.corners))
-    if not args.no_report and any(c.margins is not None for c in result.corners):
-        _write_report(result.out, quiet=args.quiet or args.json)
     if failed:
         if all(c.error and "parse error" in c.error for c in failed):
             return ExitCode.BAD_INPUT
@@ -280,18 +308,35 @@ def _run_measure(args) -> ExitCode:
     return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
 
 
-def _tune_progress(quiet: bool, total_corners: int):
+def tune_progress_line(entry, best: dict, target) -> str:
+    """The tune progress line after history entry ``entry``: what that point gave, and the
+    running answer, the point so far that meets ``target`` with the most worst-corner
+    bandwidth (kept in ``best``, updated here; the report's samples do not count)."""
+    from .strategy.common import meets_target
+
+    w = entry.worst
+    if w is not None and entry.kind != "report-map" and meets_target(w, target) \
+            and (not best or w.unity_gain_hz > best["ugf"]):
+        best.update(ugf=w.unity_gain_hz, pm=w.phase_margin_deg, step=entry.step)
+    this = "a corner did not measure" if w is None else \
+        f"PM {w.phase_margin_deg:.2f}°, UGF {engineering(w.unity_gain_hz, 'Hz')}"
+    answer = "none yet" if not best else \
+        f"PM {best['pm']:.2f}°, UGF {engineering(best['ugf'], 'Hz')} (step {best['step']})"
+    return (f"step {entry.step} {entry.kind}, {entry.ac_analyses} AC: worst corner {this}; "
+            f"best meeting {target.phase_margin_deg:g}°: {answer}")
+
+
+def _tune_progress(quiet: bool, job):
     if quiet or not sys.stderr.isatty():
         return None
-    best = {"pm": None}
+    best: dict = {}
 
     def show(entry) -> None:
-        w = entry.worst
-        if w is not None and (best["pm"] is None or w.phase_margin_deg > best["pm"]):
-            best["pm"] = w.phase_margin_deg
-        pm = "–" if best["pm"] is None else f"{best['pm']:.2f}°"
-        sys.stderr.write(f"\r  step {entry.step:3d} ({entry.kind:<13}) {total_corners} corners, "
-                         f"{entry.ac_analyses} AC analyses, best worst-corner PM {pm}   ")
+        import shutil
+
+        width = shutil.get_terminal_size((100, 24)).columns - 1
+        line = "  " + tune_progress_line(entry, best, job.target)
+        sys.stderr.write("\r" + line[:width].ljust(width))
         sys.stderr.flush()
 
     return show
@@ -306,43 +351,49 @@ def _run_tune(args) -> ExitCode:
         raise JobError("tune chooses the compensation itself; --set is for measure",
                        place="--set")
     parse_overrides(args.set, job)
+
+    def finish(result) -> None:
+        """Print the results and draw the report while the out folder is still held."""
+        if not args.quiet and sys.stderr.isatty():
+            sys.stderr.write("\n")
+        data = result.as_json()
+        if args.json:
+            print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
+                                                   "limiting_corner", "worst", "ac_analyses")}
+                             | {"message": result.outcome.message, "out": str(result.out)}))
+        elif not args.quiet:
+            values = _values_line(job, result.outcome.values)
+            print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
+            print(corner_table(result.corners, job.target))
+            print(result.outcome.message)
+            print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, "
+                  f"{len(result.history)} points in {result.seconds:.1f} s; results in "
+                  f"{result.out}")
+            if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
+                print(f"compensated netlist: {data['compensated_netlist']['path']}")
+            elif result.status != "converged":
+                print(f"no compensated netlist written: the run is {result.status}")
+        if not args.no_report and result.outcome.final is not None:
+            _write_report(result.out, args, quiet=args.quiet or args.json)
+        if not args.quiet:
+            for warning in data.get("warnings", []):
+                print(f"amploop: warning: {warning}", file=sys.stderr)
+            print_corner_remarks(result.corners)
+            device = data.get("device")
+            if device and not args.json:
+                print(f"{device['name']} at {device['size']} = "
+                      f"{engineering(device['value'], 'm', 4)}: resistance per corner "
+                      "(simulator / square law / wanted by that corner alone)")
+                for name, info in device["corners"].items():
+                    print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
+                          f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
+                          f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
+
     with _cluster_pool(args) as pool:
         result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
                       pool=pool, allow_control=args.allow_control, resume=args.resume,
-                      progress=_tune_progress(args.quiet, len(job.corners)),
-                      time_domain=not args.no_report)
-    if not args.quiet and sys.stderr.isatty():
-        sys.stderr.write("\n")
-    data = result.as_json()
-    if args.json:
-        print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
-                                               "limiting_corner", "worst", "ac_analyses")}
-                         | {"message": result.outcome.message, "out": str(result.out)}))
-    elif not args.quiet:
-        values = _values_line(job, result.outcome.values)
-        print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
-        print(corner_table(result.corners, job.target))
-        print(result.outcome.message)
-        print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, "
-              f"{len(result.history)} points in {result.seconds:.1f} s; results in {result.out}")
-        if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
-            print(f"compensated netlist: {data['compensated_netlist']['path']}")
-        elif result.status != "converged":
-            print(f"no compensated netlist written: the run is {result.status}")
-    if not args.no_report and result.outcome.final is not None:
-        _write_report(result.out, quiet=args.quiet or args.json)
-    if not args.quiet:
-        for warning in data.get("warnings", []):
-            print(f"amploop: warning: {warning}", file=sys.stderr)
-        print_corner_remarks(result.corners)
-        device = data.get("device")
-        if device and not args.json:
-            print(f"{device['name']} at {device['size']} = {engineering(device['value'], 'm', 4)}:"
-                  " resistance per corner (simulator / square law / wanted by that corner alone)")
-            for name, info in device["corners"].items():
-                print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
-                      f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
-                      f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
+                      progress=_tune_progress(args.quiet, job),
+                      time_domain=not args.no_report, finish=finish)
     if result.status == "converged":
         return ExitCode.OK
     print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)

@@ -19,7 +19,7 @@ from .journal import Journal, file_digests
 from .loopgain import FrequencyResponse
 from .margins import Margins, loop_margins
 from .oppoint import OperatingPoint, OperatingPointLimits, corner_status
-from .outputs import OutFolder, loop_gain_csv, write_into
+from .outputs import OutFolder, loop_gain_csv, remove_stale, write_into
 from .pool import WorkerPool, default_workers
 from .runner import Runner
 from .testbench import Testbench, build_testbench
@@ -296,6 +296,11 @@ class CornerWork:
         return cls(bench=bench, folder=folder, csv=f"loop_gain/{stem}.csv",
                    deck=f"decks/{stem}.cir", data_file=f"{stem}-loop_gain.txt")
 
+    def files(self, result: CornerResult) -> list[str]:
+        """The files :meth:`write_files` writes for the corner's ``result``, relative to
+        the folder."""
+        return [self.deck] + ([self.csv] if result.loop_gain is not None else [])
+
     def write_files(self, response: FrequencyResponse | None) -> None:
         """The deck to rerun by hand, and the loop-gain CSV when there is a loop gain
         (``response``); written in place (a rerun writes them again)."""
@@ -323,6 +328,7 @@ def measure(
     allow_control: bool = False,
     progress: Callable[[int, int, CornerResult], None] | None = None,
     time_domain: bool = True,
+    finish: Callable[[MeasureResult], None] | None = None,
 ) -> MeasureResult:
     """Measure the loop gain and margins at every corner of ``job``.
 
@@ -345,6 +351,10 @@ def measure(
     time_domain
         Also run the closed-loop step check per corner (for the report; one transient
         each, journalled like the AC analyses).
+    finish
+        Called with the result once results.json is written, while the out folder is still
+        held, so that nothing changes the folder before it is done (the command line
+        prints the table and draws the report there).
 
     Returns
     -------
@@ -357,12 +367,19 @@ def measure(
     values = amplifier.values_in_effect(overrides)
     benches = {c.name: build_testbench(amplifier, c, values) for c in job.corners}
     if out is None:
-        return _measure_into(job, amplifier, values, benches, None, None, pool, workers,
-                             progress, started, time_domain)
+        result = _measure_into(job, amplifier, values, benches, None, None, pool, workers,
+                               progress, started, time_domain)
+        if finish is not None:
+            finish(result)
+        return result
     folder = OutFolder(out)
-    with folder.lock(), Journal(folder.path / JOURNAL_FILE) as journal:
-        return _measure_into(job, amplifier, values, benches, folder, journal, pool,
-                             workers, progress, started, time_domain)
+    with folder.lock():
+        with Journal(folder.path / JOURNAL_FILE) as journal:
+            result = _measure_into(job, amplifier, values, benches, folder, journal, pool,
+                                   workers, progress, started, time_domain)
+        if finish is not None:
+            finish(result)
+    return result
 
 
 def _measure_into(job, amplifier, values, benches, folder, journal, pool, workers, progress,
@@ -421,6 +438,9 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             if len(ordered) < len(job.corners):
                 data["status"] = "interrupted"
             folder.write_json("results.json", data)
+    if folder is not None:
+        remove_stale(folder.path, [f for name, r in results.items()
+                                   for f in works[name].files(r)])
     return result
 
 

@@ -21,7 +21,15 @@ import numpy as np
 from .errors import JournalError, OutputError
 from .loopgain import FrequencyResponse
 
-__all__ = ["OutFolder", "clean_json", "is_folder", "loop_gain_csv", "write_into"]
+__all__ = [
+    "PER_CORNER",
+    "OutFolder",
+    "clean_json",
+    "is_folder",
+    "loop_gain_csv",
+    "remove_stale",
+    "write_into",
+]
 
 
 def clean_json(value):
@@ -58,6 +66,10 @@ def is_folder(path: Path) -> bool | None:
         raise OutputError(f"unusable out folder name: {exc.strerror}", file=path) from None
 
 
+#: Out folders whose lock this process holds -> how many times it was taken.
+_HELD: dict[Path, int] = {}
+
+
 class OutFolder:
     """The out folder of one run.
 
@@ -86,7 +98,17 @@ class OutFolder:
 
     @contextmanager
     def lock(self):
-        """Hold the folder for this run; a second run on the same folder is refused."""
+        """Hold the folder for this run; a second run on the same folder is refused.
+
+        Re-entrant within a process: the report drawn at the end of a run takes the lock
+        its run already holds."""
+        if self.path in _HELD:
+            _HELD[self.path] += 1
+            try:
+                yield
+            finally:
+                _HELD[self.path] -= 1
+            return
         path = self.path / ".amploop.lock"
         try:
             handle = open(path, "a+")  # noqa: SIM115 - held open for the whole run
@@ -107,8 +129,10 @@ class OutFolder:
             handle.truncate()
             handle.write(f"pid {os.getpid()}")
             handle.flush()
+            _HELD[self.path] = 1
             yield
         finally:
+            _HELD.pop(self.path, None)
             fcntl.flock(handle, fcntl.LOCK_UN)
             handle.close()
 
@@ -213,6 +237,53 @@ def _write_bytes(path: Path, data: bytes, *, durable: bool) -> None:
             os.fsync(handle)
     finally:
         os.close(handle)
+
+
+#: The per-corner files of an out folder: folder -> the suffix of the files amploop writes
+#: there (``loop_gain/<corner>.csv``, ``decks/<corner>.cir``).
+PER_CORNER = {"loop_gain": ".csv", "decks": ".cir"}
+
+
+def remove_stale(folder: Path, keep) -> list[str]:
+    """Remove the per-corner files (:data:`PER_CORNER`) of ``folder`` that this run did not
+    write, so that none from an earlier job (a corner renamed or gone, a corner that
+    failed this time) looks current. Other files there (a deck's own output) stay.
+
+    Parameters
+    ----------
+    folder
+        The out folder, absolute.
+    keep
+        The files the run wrote, relative to ``folder`` (``"loop_gain/tt.csv"``).
+
+    Returns
+    -------
+    list of str
+        The files removed, relative to ``folder``, sorted.
+
+    Raises
+    ------
+    OutputError
+        When a stale file cannot be removed.
+    """
+    keep = set(keep)
+    removed = []
+    for sub, suffix in PER_CORNER.items():
+        try:
+            candidates = sorted((folder / sub).glob(f"*{suffix}"))
+        except OSError:
+            continue
+        for path in candidates:
+            relative = f"{sub}/{path.name}"
+            if relative in keep or path.is_dir():
+                continue
+            try:
+                path.unlink(missing_ok=True)
+            except OSError as exc:
+                raise OutputError(f"cannot remove the earlier run's {relative}: {exc.strerror}",
+                                  file=folder) from None
+            removed.append(relative)
+    return removed
 
 
 def loop_gain_csv(response: FrequencyResponse) -> str:

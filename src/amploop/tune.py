@@ -19,7 +19,7 @@ from .errors import JobError, JournalError
 from .job import Job
 from .journal import Journal, file_digests
 from .measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
-from .outputs import OutFolder
+from .outputs import OutFolder, remove_stale
 from .pool import WorkerPool
 from .runner import Runner
 from .stepcheck import run_step_checks, step_stop_s, with_step
@@ -182,6 +182,7 @@ def tune(
     resume: bool = False,
     progress: Callable[[HistoryEntry], None] | None = None,
     time_domain: bool = True,
+    finish: Callable[[TuneResult], None] | None = None,
 ) -> TuneResult:
     """Tune the compensation of ``job`` at all its corners.
 
@@ -203,6 +204,9 @@ def tune(
         Called after every simulated point with its history entry.
     time_domain
         Run the closed-loop step check per corner at the final values (for the report).
+    finish
+        Called with the result once results.json is written, while the out folder is still
+        held (the command line prints the results and draws the report there).
 
     Returns
     -------
@@ -264,8 +268,10 @@ def tune(
             compensated = compensated_netlist(amplifier, outcome.values, folder)
         else:
             _remove_compensated(folder, amplifier)
+        corner_files_written = []
         if outcome.final is not None:
-            _write_final_files(folder, amplifier, outcome)
+            corner_files_written = _write_final_files(folder, amplifier, outcome)
+        remove_stale(folder.path, corner_files_written)
         result = TuneResult(job=job, strategy=strategy, outcome=outcome,
                             history=tuple(evaluator.history), ac_run=runner.ac_run,
                             ac_reused=runner.ac_reused, out=folder.path,
@@ -278,6 +284,9 @@ def tune(
                             warnings=amplifier.warnings + remarks + _step_warnings(checks)
                             + journal.notes())
         folder.write_json("results.json", result.as_json())
+        journal.commit()
+        if finish is not None:
+            finish(result)
     return result
 
 
@@ -319,14 +328,18 @@ def _refuse_suspect(outcome: Outcome) -> Outcome:
                    outcome.extra)
 
 
-def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> None:
-    """Per-corner loop-gain CSVs and rerunnable decks at the final values."""
+def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> list[str]:
+    """Per-corner loop-gain CSVs and rerunnable decks at the final values; returns the
+    files written, relative to the folder."""
     from .testbench import build_testbench
 
     stems = corner_files(amplifier.job.corners)
+    written = []
     for corner_result in outcome.final.corners:
         name = corner_result.corner.name
         bench = build_testbench(amplifier, corner_result.corner, outcome.values)
-        CornerWork.for_corner(bench, folder.path, stems[name]).write_files(
-            corner_result.loop_gain)
+        work = CornerWork.for_corner(bench, folder.path, stems[name])
+        work.write_files(corner_result.loop_gain)
+        written += work.files(corner_result)
+    return written
 

@@ -8,8 +8,11 @@ step responses are recomputed from those with the same pure functions the run us
 from __future__ import annotations
 
 import json
+from collections import OrderedDict
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Self
 
 import numpy as np
 
@@ -22,7 +25,7 @@ from ..stepcheck import StepCheck, check_from_output
 from ..testbench import NODE_AMP, NODE_FEEDBACK
 from ..units import describe_values
 
-__all__ = ["Curve", "ReportData", "load_report_data"]
+__all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data"]
 
 
 @dataclass(frozen=True)
@@ -45,9 +48,58 @@ class Curve:
     response: FrequencyResponse
 
 
+class LazyFigures(Mapping):
+    """Corner name -> a figure computed from the journal when it is asked for.
+
+    The names are known from results.json alone (no journal read); each value is computed
+    by ``load(name)`` on access, and only the last ``keep`` are held, so that a report of
+    a thousand corners never holds a thousand corners' arrays.
+
+    Parameters
+    ----------
+    names
+        The corners that have this figure, in the job's order.
+    load
+        Computes the figure of one corner.
+    keep
+        How many computed figures are held for another access.
+    """
+
+    def __init__(self, names, load: Callable[[str], object], keep: int = 2) -> None:
+        self._names = list(names)
+        self._known = set(self._names)
+        self._load, self._keep = load, keep
+        self._held: OrderedDict[str, object] = OrderedDict()
+
+    def __getitem__(self, name: str):
+        if name not in self._known:
+            raise KeyError(name)
+        if name in self._held:
+            self._held.move_to_end(name)
+            return self._held[name]
+        value = self._load(name)
+        self._held[name] = value
+        while len(self._held) > self._keep:
+            self._held.popitem(last=False)
+        return value
+
+    def __iter__(self):
+        return iter(self._names)
+
+    def __len__(self) -> int:
+        return len(self._names)
+
+    def __contains__(self, name) -> bool:
+        return name in self._known
+
+
 @dataclass
 class ReportData:
     """The figures of one out folder, ready to draw.
+
+    The per-corner figures (``curves``, ``finals``, ``steps``, ``maps``) are read from
+    the journal when a page asks for them (:class:`LazyFigures`); :meth:`close` closes
+    the journal.
 
     Attributes
     ----------
@@ -73,11 +125,13 @@ class ReportData:
     out: Path
     results: dict
     corner_names: list[str]
-    curves: dict[str, list[Curve]] = field(default_factory=dict)
-    finals: dict[str, FrequencyResponse] = field(default_factory=dict)
-    steps: dict[str, StepCheck] = field(default_factory=dict)
-    maps: dict[str, CompensationMap] = field(default_factory=dict)
+    curves: Mapping[str, list[Curve]] = field(default_factory=dict)
+    finals: Mapping[str, FrequencyResponse] = field(default_factory=dict)
+    steps: Mapping[str, StepCheck] = field(default_factory=dict)
+    maps: Mapping[str, CompensationMap] = field(default_factory=dict)
     analyses_read: int = 0
+    journal: Journal | None = field(default=None, repr=False)
+    _by_name: dict = field(default_factory=dict, init=False, repr=False)
 
     @property
     def command(self) -> str:
@@ -92,7 +146,21 @@ class ReportData:
 
     def corner(self, name: str) -> dict:
         """The entry of corner ``name`` in results.json."""
-        return next(c for c in self.results["corners"] if c["name"] == name)
+        if not self._by_name:
+            self._by_name = {c["name"]: c for c in self.results["corners"]}
+        return self._by_name[name]
+
+    def close(self) -> None:
+        """Close the journal (the figures not yet read can no longer be)."""
+        if self.journal is not None:
+            self.journal.close()
+            self.journal = None
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
 
 
 def _values_label(values: dict, device: tuple[str, str] | None = None) -> str:
@@ -111,19 +179,22 @@ _KIND_WORDS = {
 
 
 def load_report_data(out: str | Path) -> ReportData:
-    """Read an out folder written by ``measure`` or ``tune``.
+    """Open an out folder written by ``measure`` or ``tune``.
 
     Parameters
     ----------
     out
-        The out folder; results.json and the journal are read, nothing is written.
+        The out folder; results.json is read now, the journal's analyses as the pages ask
+        for them (close the returned data, or use it as a context manager); nothing is
+        written.
 
     Raises
     ------
     OutputError
         When results.json is missing or unreadable.
     JournalError
-        When the journal is missing, or lacks an analysis results.json names.
+        When the journal is missing, or (as a page asks for it) lacks an analysis
+        results.json names.
     """
     out = Path(out).resolve()
     try:
@@ -136,71 +207,84 @@ def load_report_data(out: str | Path) -> ReportData:
     device = results.get("device")
     device_key = (device["name"], device["size"]) if device else None
     names = [c["name"] for c in results.get("corners", [])]
-    data = ReportData(out=out, results=results, corner_names=names)
-    with Journal(out / "journal.sqlite", readonly=True) as journal:
+    journal = Journal(out / "journal.sqlite", readonly=True)
+    data = ReportData(out=out, results=results, corner_names=names, journal=journal)
 
-        def reads(key: str):
-            output = journal.get(key)
-            if output is None:
-                raise JournalError(f"the journal lacks analysis {key[:12]}… named in results.json",
-                                   file=journal.path, hint="rerun the command to rebuild it")
-            data.analyses_read += 1
-            return output.reads
+    def reads(key: str):
+        output = data.journal.get(key)
+        if output is None:
+            raise JournalError(f"the journal lacks analysis {key[:12]}… named in results.json",
+                               file=data.journal.path, hint="rerun the command to rebuild it")
+        data.analyses_read += 1
+        return output.reads
 
-        def loop_gain(key: str) -> FrequencyResponse:
-            return probe.loop_gain(reads(key), NODE_AMP, NODE_FEEDBACK)
+    def loop_gain(key: str) -> FrequencyResponse:
+        return probe.loop_gain(reads(key), NODE_AMP, NODE_FEEDBACK)
 
-        history = [h for h in results.get("history", []) if h.get("analyses")]
-        story = [h for h in history if h["kind"] != "report-map"]
-        final_values = results.get("values", {})
-        final_step = max((h["step"] for h in story if h["values"] == final_values), default=None)
-        for name in names:
-            curves = []
-            for entry in story:
-                key = entry["analyses"].get(name)
-                if key is None or entry["step"] == final_step:
-                    continue
-                words = _KIND_WORDS.get(entry["kind"], entry["kind"])
-                curves.append(Curve(f"{entry['step']}. {words}: {_values_label(entry['values'], device_key)}",
-                                    "step", loop_gain(key)))
-            corner = data.corner(name)
-            final_key = corner.get("analysis")
-            if final_step is not None:
-                final_key = next(h for h in story if h["step"] == final_step)["analyses"].get(name)
-            if final_key and corner.get("status") in ("ok", "suspect"):
-                final = loop_gain(final_key)
-                data.finals[name] = final
-                label = "final" if data.command == "tune" else "as in the netlist"
-                curves.append(Curve(f"{label}: {_values_label(final_values, device_key)}", "final",
-                                    final))
-            data.curves[name] = curves
-            step = corner.get("step")
-            if step and step.get("analysis") and step.get("error") is None:
-                data.steps[name] = check_from_output(
-                    name, step["analysis"], step["step_v"], step["step_at_s"], step["stop_s"],
-                    reads(step["analysis"]), step["band"])
-        # the maps: the last three characterisation samples of each corner
-        samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
-        if len(samples) == 3:
-            for name in names:
-                if device is not None:  # the samples' resistance as this corner saw it
-                    r = device.get("sample_resistance_ohm", {}).get(name)
-                    if r is None:
-                        continue
-                    points = [(h["values"]["cc"], r) for h in samples]
-                else:
-                    points = [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
-                keys = [h["analyses"].get(name) for h in samples]
-                if all(keys):
-                    data.maps[name] = CompensationMap.from_loop_gains(
-                        points, [loop_gain(k) for k in keys])
-        # the netlist's own values, predicted from the map (no simulation)
-        start = results.get("values_in_netlist")
-        if start and data.maps and data.command == "tune" and device is None:
-            for name, cmap in data.maps.items():
-                response = cmap.loop_gain(start["cc"], start.get("rc", 0.0))
-                if np.all(np.isfinite(response.values)):
-                    data.curves[name].insert(0, Curve(
-                        f"netlist values (from the map): {_values_label(start, device_key)}", "start",
-                        response))
+    history = [h for h in results.get("history", []) if h.get("analyses")]
+    story = [h for h in history if h["kind"] != "report-map"]
+    final_values = results.get("values", {})
+    final_step = max((h["step"] for h in story if h["values"] == final_values), default=None)
+    final_entry = next((h for h in story if h["step"] == final_step), None)
+
+    def final_key(name: str) -> str | None:
+        corner = data.corner(name)
+        key = corner.get("analysis") if final_entry is None else final_entry["analyses"].get(name)
+        return key if key and corner.get("status") in ("ok", "suspect") else None
+
+    # the maps: the last three characterisation samples of each corner
+    samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+
+    def map_points(name: str):
+        """The samples' (Cc, Rc) as corner ``name`` saw them, or None without a map."""
+        if len(samples) < 3 or not all(h["analyses"].get(name) for h in samples):
+            return None
+        if device is not None:  # the samples' resistance as this corner saw it
+            r = device.get("sample_resistance_ohm", {}).get(name)
+            return None if r is None else [(h["values"]["cc"], r) for h in samples]
+        return [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
+
+    def load_map(name: str) -> CompensationMap:
+        return CompensationMap.from_loop_gains(
+            map_points(name), [loop_gain(h["analyses"][name]) for h in samples])
+
+    data.maps = LazyFigures([n for n in names if map_points(n) is not None], load_map, keep=1)
+    # the netlist's own values, predicted from the map (no simulation)
+    start = results.get("values_in_netlist")
+    predict_start = bool(start) and data.command == "tune" and device is None
+
+    def load_curves(name: str) -> list[Curve]:
+        curves = []
+        if predict_start and name in data.maps:
+            response = data.maps[name].loop_gain(start["cc"], start.get("rc", 0.0))
+            if np.all(np.isfinite(response.values)):
+                curves.append(Curve(f"netlist values (from the map): "
+                                    f"{_values_label(start, device_key)}", "start", response))
+        for entry in story:
+            key = entry["analyses"].get(name)
+            if key is None or entry["step"] == final_step:
+                continue
+            words = _KIND_WORDS.get(entry["kind"], entry["kind"])
+            curves.append(Curve(f"{entry['step']}. {words}: "
+                                f"{_values_label(entry['values'], device_key)}",
+                                "step", loop_gain(key)))
+        if name in data.finals:
+            label = "final" if data.command == "tune" else "as in the netlist"
+            curves.append(Curve(f"{label}: {_values_label(final_values, device_key)}", "final",
+                                data.finals[name]))
+        return curves
+
+    def load_step(name: str) -> StepCheck:
+        step = data.corner(name)["step"]
+        return check_from_output(name, step["analysis"], step["step_v"], step["step_at_s"],
+                                 step["stop_s"], reads(step["analysis"]), step["band"])
+
+    def has_step(name: str) -> bool:
+        step = data.corner(name).get("step")
+        return bool(step and step.get("analysis") and step.get("error") is None)
+
+    data.finals = LazyFigures([n for n in names if final_key(n)],
+                              lambda name: loop_gain(final_key(name)))
+    data.curves = LazyFigures(names, load_curves)
+    data.steps = LazyFigures([n for n in names if has_step(n)], load_step)
     return data

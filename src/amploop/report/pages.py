@@ -14,8 +14,17 @@ from ..strategy.mapsolve import cc_grid
 from ..units import describe_values, engineering
 from . import style
 from .data import ReportData
+from .overview import StepEnvelope, overview_page
 
-__all__ = ["convergence_page", "corner_page", "map_page", "summary_pages", "time_domain_page"]
+__all__ = [
+    "convergence_page",
+    "corner_page",
+    "map_page",
+    "overview_page",
+    "summary_page_count",
+    "summary_pages",
+    "time_domain_page",
+]
 
 CAUTIONS = (
     "Results are only as good as the device models and netlist they were simulated with. "
@@ -93,8 +102,14 @@ def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:
             cell.set_text_props(color=style.LIMIT)
 
 
-def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") -> list:
-    """Page 1 (and continuation pages of the corner table for long corner lists).
+def summary_page_count(corners: int) -> int:
+    """How many pages :func:`summary_pages` draws for ``corners`` corners."""
+    return 1 + max(0, -(-(corners - ROWS_FIRST) // ROWS_MORE))
+
+
+def summary_pages(data: ReportData, date: str, render_seconds_hint: str = ""):
+    """Page 1 (and continuation pages of the corner table for long corner lists), one
+    figure at a time (a generator: the caller closes each before the next is drawn).
 
     Parameters
     ----------
@@ -108,7 +123,6 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
     r = data.results
     rows = _corner_rows(data)
     limiting = {i for i, c in enumerate(r["corners"]) if c["name"] == data.limiting_corner}
-    figures = []
     fig = _figure()
     fig.text(0.05, 0.94, f"amploop report — {r['job']}", fontsize=17, weight="bold")
     status = r.get("status", "?")
@@ -154,7 +168,7 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
         fig.text(0.05, 0.1, f"… table continues: {len(rows) - ROWS_FIRST} more corners on the "
                  "next page(s)", fontsize=8, color=style.MUTED)
     _footer(fig, render_seconds_hint)
-    figures.append(fig)
+    yield fig
     for start in range(ROWS_FIRST, len(rows), ROWS_MORE):
         fig = _figure()
         fig.text(0.05, 0.94, f"Corners {start + 1}–{min(start + ROWS_MORE, len(rows))} of "
@@ -163,8 +177,7 @@ def summary_pages(data: ReportData, date: str, render_seconds_hint: str = "") ->
         chunk = rows[start:start + ROWS_MORE]
         _table(ax, chunk, {i - start for i in limiting if start <= i < start + ROWS_MORE})
         _footer(fig)
-        figures.append(fig)
-    return figures
+        yield fig
 
 
 def _status_notes(corners: list[dict]) -> list[str]:
@@ -490,58 +503,77 @@ def convergence_page(data: ReportData, target_pm: float | None):
     return fig
 
 
-def time_domain_page(data: ReportData):
+def time_domain_page(data: ReportData, highlight: list[str] | None = None):
     """The closed-loop small-step response of every corner at the final values, from the
-    step responses in ``data``."""
+    step responses in ``data``.
+
+    Parameters
+    ----------
+    data
+        The out folder's figures.
+    highlight
+        None: a curve per corner. Else (many corners) the curves of these corners and
+        the limiting one, over the band that all corners' responses span; each corner's
+        response is read, added to the band and let go, one at a time.
+    """
     fig = _figure()
     fig.text(0.06, 0.95, "Closed-loop step response at the final values", fontsize=13,
              weight="bold")
-    any_step = next(iter(data.steps.values()), None)
-    if any_step is None:
+    names = [n for n in data.corner_names if n in data.steps]
+    if not names:
         fig.text(0.06, 0.5, "no step responses in this out folder")
         return fig
-    fig.text(0.06, 0.922, f"Input step {engineering(any_step.step_v, 'V')} at the signal source; "
-             f"output normalised to its step. Settling band ±{any_step.metrics.band:.1%}.",
+    first = data.steps[names[0]]
+    band = first.metrics.band
+    fig.text(0.06, 0.922, f"Input step {engineering(first.step_v, 'V')} at the signal source; "
+             f"output normalised to its step. Settling band ±{band:.1%}.",
              fontsize=8.5, color=style.MUTED)
     full = fig.add_axes((0.08, 0.54, 0.64, 0.34))
     zoom = fig.add_axes((0.08, 0.1, 0.64, 0.34), sharex=full)
-    names = [n for n in data.corner_names if n in data.steps]
     limiting = data.limiting_corner
-    for index, name in enumerate(names):
+    drawn = names if highlight is None else [n for n in names if n in set(highlight) | {limiting}]
+    envelope = None if highlight is None else StepEnvelope(first.stop_s)
+    figures = {}  # corner -> its metrics (the arrays are let go)
+    for name in names:
         check = data.steps[name]
         m = check.metrics
-        change = m.final_v - m.initial_v
+        figures[name] = m
         t = check.time_s - check.step_at_s
-        y = (check.output_v - m.initial_v) / change
+        y = (check.output_v - m.initial_v) / (m.final_v - m.initial_v)
+        if envelope is not None:
+            envelope.add(t, y)
+        if name not in drawn:
+            continue
         is_limiting = name == limiting
-        colour = style.LIMIT if is_limiting else style.corner_colour(index)
+        colour = style.LIMIT if is_limiting else style.corner_colour(drawn.index(name))
         lw = 1.8 if is_limiting else 0.8
-        label = name + (" (limiting)" if is_limiting else "") if len(names) <= 24 else None
+        label = name + (" (limiting)" if is_limiting else "") if len(drawn) <= 24 else None
         full.plot(t, y, color=colour, lw=lw, label=label, zorder=5 if is_limiting else 2)
         zoom.plot(t, (y - 1) * 100, color=colour, lw=lw, zorder=5 if is_limiting else 2)
-    band = any_step.metrics.band * 100
-    zoom.axhspan(-band, band, color=style.FEASIBLE, zorder=0)
-    zoom.set_ylim(-20 * band, 20 * band)
+    if envelope is not None:
+        envelope.draw(full, zoom, f"all {len(names)} corners (their span)")
+    zoom.axhspan(-band * 100, band * 100, color=style.FEASIBLE, zorder=0)
+    zoom.set_ylim(-2000 * band, 2000 * band)
     full.set_ylabel("output / output step")
     zoom.set_ylabel("error (% of the step)")
     zoom.set_xlabel("time after the step")
     zoom.xaxis.set_major_formatter(style.seconds)
-    settled = [data.steps[n].metrics.settling_s for n in names]
-    if all(v is not None for v in settled) and settled:
-        full.set_xlim(-0.02 * any_step.stop_s, min(any_step.stop_s, 2.5 * max(settled)))
+    settled = [m.settling_s for m in figures.values()]
+    if all(v is not None for v in settled):
+        full.set_xlim(-0.02 * first.stop_s, min(first.stop_s, 2.5 * max(settled)))
     else:
-        full.set_xlim(left=-0.02 * any_step.stop_s)
+        full.set_xlim(left=-0.02 * first.stop_s)
     plt.setp(full.get_xticklabels(), visible=False)
-    if len(names) <= 24:
+    if len(drawn) <= 24:
         full.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), ncol=1)
-    unsettled = [n for n in names if data.steps[n].metrics.settling_s is None]
+    unsettled = [n for n, m in figures.items() if m.settling_s is None]
     if unsettled:
-        fig.text(0.74, 0.3, f"not settled to ±{any_step.metrics.band:.1%} within the run:\n  "
+        fig.text(0.74, 0.3, f"not settled to ±{band:.1%} within the run:\n  "
                  + "\n  ".join(unsettled[:12]) + ("\n  …" if len(unsettled) > 12 else ""),
                  fontsize=9, color=style.LIMIT, va="top")
     else:
-        worst = max(names, key=lambda n: data.steps[n].metrics.settling_s)
-        wm = data.steps[worst].metrics
+        worst = max(figures, key=lambda n: figures[n].settling_s)
+        wm = figures[worst]
         fig.text(0.74, 0.3, f"slowest to settle: {worst}\n"
                  f"  {_fmt(wm.settling_s, '', 's')} to ±{wm.band:.1%}, overshoot "
                  f"{wm.overshoot_pct:.2f} %", fontsize=9)
