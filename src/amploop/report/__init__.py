@@ -180,11 +180,19 @@ def _draw(data: ReportData, corner_names: list[str], overview: bool, *, pngs: bo
         _remove([temporary, pdf_path, *(p for p, _ in drawn)]
                 + (list(png_dir.glob("page-*.png")) if pngs else []))
         if isinstance(exc, (OSError, zlib.error)):  # zlib: the PDF's stream after a failed write
-            why = getattr(exc, "strerror", None) or exc
-            raise OutputError(f"cannot write the report: {why}; no report.pdf is left",
-                              file=data.out) from None
+            raise OutputError(f"cannot write the report: {_write_failure(exc)}; no report.pdf "
+                              "is left", file=data.out) from None
         raise
     return [png for _, png in drawn], count
+
+
+def _write_failure(exc: BaseException) -> str:
+    """What failed: the first OSError in the chain of ``exc`` (the PDF writer's zlib error
+    comes while handling the write that failed), else ``exc`` itself."""
+    cause = exc
+    while cause is not None and not isinstance(cause, OSError):
+        cause = cause.__context__
+    return (cause.strerror or str(cause)) if cause is not None else str(exc)
 
 
 def _remove(paths) -> None:
