@@ -15,6 +15,7 @@ from ..units import describe_values, engineering
 from . import style
 from .data import ReportData
 from .overview import StepEnvelope, overview_page
+from .selection import EVERY_CORNER_UP_TO
 
 __all__ = [
     "convergence_page",
@@ -346,13 +347,26 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     return fig
 
 
-def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray):
+def _map_margins(cmap, cc: np.ndarray, rc: np.ndarray, pick=slice(None)):
+    """:func:`grid_margins` of ``cmap`` over the grid ``cc`` × ``rc`` (at the frequencies
+    ``pick``), a few Cc rows at a time (about 400 000 loop-gain values, 6.4 MB): a 60 × 50
+    grid at 401 frequencies would otherwise hold some twenty arrays of 19 MB at once."""
+    rows = max(1, 400_000 // (rc.size * cmap.frequency_hz[pick].size))
+    parts = []
+    for start in range(0, cc.size, rows):
+        values = cmap.loop_gain_values(cc[start:start + rows, None], rc[None, :],
+                                       frequency_index=pick)
+        parts.append(grid_margins(cmap.frequency_hz[pick], values))
+    return tuple(np.concatenate(column) for column in zip(*parts))
+
+
+def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray, every: int = 2):
+    """The smallest phase and gain margins over the corners' maps in ``data``, on the
+    grid ``cc`` × ``rc`` at every ``every``-th frequency, one corner at a time."""
     pm_w = np.full((cc.size, rc.size), np.inf)
     gm_w = np.full((cc.size, rc.size), np.inf)
     for cmap in data.maps.values():
-        pick = slice(None, None, 2)
-        values = cmap.loop_gain_values(cc[:, None], rc[None, :], frequency_index=pick)
-        pm, _, gm = grid_margins(cmap.frequency_hz[pick], values)
+        pm, _, gm = _map_margins(cmap, cc, rc, slice(None, None, every))
         pm_w = np.fmin(pm_w, np.where(np.isnan(pm), -np.inf, pm))
         gm_w = np.fmin(gm_w, gm)
     return pm_w, gm_w
@@ -388,17 +402,24 @@ def map_page(data: ReportData):
                               "meets the target.")
     cc = cc_grid(cc_lo, cc_hi, 60)
     rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
-    values = cmap.loop_gain_values(cc[:, None], rc[None, :])
-    pm, ugf, _ = grid_margins(cmap.frequency_hz, values)
+    pm, ugf, _ = _map_margins(cmap, cc, rc)
     if rc.size > 1:
         target = r.get("target", {})
         if target:
-            pm_w, gm_w = _worst_grid(data, cc, rc) if device is None else \
-                _worst_grid(ReportData(data.out, r, [name], maps={name: cmap}), cc, rc)
+            # each corner costs a grid evaluation: above the count where every corner gets
+            # a page, the region is found on a grid of half the steps, at every fourth
+            # frequency (as the map strategy's first look)
+            few = len(data.maps) <= EVERY_CORNER_UP_TO
+            shade_cc, shade_rc = (cc, rc) if few else (cc[::2], rc[::2])
+            every = 2 if few else 4
+            pm_w, gm_w = _worst_grid(data, shade_cc, shade_rc, every) if device is None else \
+                _worst_grid(ReportData(data.out, r, [name], maps={name: cmap}), shade_cc,
+                            shade_rc, every)
             ok = pm_w >= target["phase_margin_deg"]
             if target.get("gain_margin_db") is not None:
                 ok &= gm_w >= target["gain_margin_db"]
-            ax.contourf(cc, rc, ok.T.astype(float), levels=[0.5, 1.5], colors=[style.FEASIBLE])
+            ax.contourf(shade_cc, shade_rc, ok.T.astype(float), levels=[0.5, 1.5],
+                        colors=[style.FEASIBLE])
         levels = [lv for lv in (30, 40, 50, 55, 60, 65, 70, 75, 80, 90) if np.nanmin(pm) < lv < np.nanmax(pm)]
         cs = ax.contour(cc, rc, pm.T, levels=levels, colors=[style.FINAL], linewidths=0.9)
         ax.clabel(cs, fmt=lambda v: f"{v:g}°", fontsize=7.5)
