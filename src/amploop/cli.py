@@ -308,22 +308,27 @@ def _run_measure(args) -> ExitCode:
     return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
 
 
+TUNE_PROGRESS_KEY = ("  each point: worst-corner phase margin at worst-corner unity-gain frequency; "
+                     "best: the point so far that meets the target with the most bandwidth")
+
+
 def tune_progress_line(entry, best: dict, target) -> str:
-    """The tune progress line after history entry ``entry``: what that point gave, and the
-    running answer, the point so far that meets ``target`` with the most worst-corner
-    bandwidth (kept in ``best``, updated here; the report's samples do not count)."""
+    """The tune progress line after history entry ``entry`` (read with
+    :data:`TUNE_PROGRESS_KEY`): the running answer first, the point so far that meets
+    ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
+    report's samples do not count), then what this point gave."""
     from .strategy.common import meets_target
 
     w = entry.worst
     if w is not None and entry.kind != "report-map" and meets_target(w, target) \
             and (not best or w.unity_gain_hz > best["ugf"]):
         best.update(ugf=w.unity_gain_hz, pm=w.phase_margin_deg, step=entry.step)
-    this = "a corner did not measure" if w is None else \
-        f"PM {w.phase_margin_deg:.2f}°, UGF {engineering(w.unity_gain_hz, 'Hz')}"
     answer = "none yet" if not best else \
-        f"PM {best['pm']:.2f}°, UGF {engineering(best['ugf'], 'Hz')} (step {best['step']})"
-    return (f"step {entry.step} {entry.kind}, {entry.ac_analyses} AC: worst corner {this}; "
-            f"best meeting {target.phase_margin_deg:g}°: {answer}")
+        f"{best['pm']:.2f}° at {engineering(best['ugf'], 'Hz')} (step {best['step']})"
+    this = "a corner did not measure" if w is None else \
+        f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
+    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {entry.kind}: "
+            f"{this} | {entry.ac_analyses} AC")
 
 
 def _tune_progress(quiet: bool, job):
@@ -334,6 +339,8 @@ def _tune_progress(quiet: bool, job):
     def show(entry) -> None:
         import shutil
 
+        if not best and entry.step == 1:
+            sys.stderr.write(TUNE_PROGRESS_KEY + "\n")
         width = shutil.get_terminal_size((100, 24)).columns - 1
         line = "  " + tune_progress_line(entry, best, job.target)
         sys.stderr.write("\r" + line[:width].ljust(width))

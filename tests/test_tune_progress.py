@@ -1,0 +1,43 @@
+"""The tune progress line says what it shows: the point just simulated, and the running
+answer (the point so far that meets the target with the most worst-corner bandwidth),
+which at the end is the answer tune gives."""
+
+from __future__ import annotations
+
+import io
+import json
+
+from conftest import DEMO
+
+from amploop.cli import TUNE_PROGRESS_KEY, main
+
+
+class Terminal(io.StringIO):
+    """stderr as a terminal: the progress line is shown only there."""
+
+    def isatty(self) -> bool:
+        return True
+
+
+def test_the_progress_line_ends_on_the_answer_not_on_the_largest_margin_seen(
+        tmp_path, capsys, monkeypatch):
+    """Before, it ended on "best worst-corner PM 74.97°", the largest worst-corner margin
+    of any point, while the answer was 65.10°."""
+    terminal = Terminal()
+    monkeypatch.setattr("sys.stderr", terminal)
+    out = tmp_path / "out"
+    assert main(["tune", str(DEMO / "job.toml"), "--out", str(out), "--no-report"]) == 0
+    capsys.readouterr()
+    results = json.loads((out / "results.json").read_text())
+    answer = results["worst"]["phase_margin_deg"]
+    largest = max(h["worst_phase_margin_deg"] for h in results["history"])
+    assert largest > answer + 1  # the demo's samples have more margin than the answer
+    key, *lines = [line.strip() for line in terminal.getvalue().split("\r") if line.strip()]
+    assert key == TUNE_PROGRESS_KEY.strip()  # what the line shows, said once
+    assert len(lines) == len(results["history"])  # one per simulated point
+    target = results["target"]["phase_margin_deg"]
+    assert lines[-1].startswith(f"best ≥ {target:g}°: {answer:.2f}° at ")
+    assert f"{largest:.2f}" not in lines[-1].split("|")[0]
+    for line, entry in zip(lines, results["history"]):
+        assert f"| step {entry['step']} {entry['kind']}: " \
+            f"{entry['worst_phase_margin_deg']:.2f}° at " in line
