@@ -53,6 +53,8 @@ def main(which: list[str]) -> None:
     with scratch() as tmp:
         for count in which:
             grid = GRIDS[count]
+            if grid is not None:
+                (Path(tmp) / count).mkdir()
             path = DEMO if grid is None else job_with_corners(Path(tmp) / count, grid)
             job = load_job(path)
             out = Path(tmp) / f"out-{count}"
