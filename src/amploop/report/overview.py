@@ -106,8 +106,8 @@ def overview_page(data: ReportData, with_pages: list[str], target_pm: float | No
     ax.set_ylabel("phase margin (°)")
     ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
     notes = [(f"{len(with_pages)} of {len(corners)} corners have a page: the smallest phase "
-              "margins, the smallest unity-gain frequency and gain margin, corners that did "
-              "not measure, and those named with --corner-page."),
+              "margins, the smallest unity-gain frequency and gain margin, corners that are "
+              "not ok, and those named with --corner-page."),
              ("Every corner's figures are in the table before this page and in results.json; "
               "amploop report OUTDIR --all-corner-pages draws a page for each.")]
     if measured:
@@ -115,8 +115,10 @@ def overview_page(data: ReportData, with_pages: list[str], target_pm: float | No
         notes.append(f"Smallest unity-gain frequency: {engineering(low['unity_gain_hz'], 'Hz')} "
                      f"({low['name']}).")
     if failed:
-        notes.append(f"{len(failed)} corners did not measure, e.g. {failed[0]['name']}: "
-                     f"{failed[0].get('error') or 'no figures'}")
+        first = failed[0]
+        why = first.get("error") or first.get("suspect_reason") or first.get("status")
+        notes.append(f"{len(failed)} corners are not ok, e.g. {first['name']} "
+                     f"({first.get('status')}): {why}")
     y = 0.55
     for note in notes:
         for part in textwrap.wrap(note, 48):

@@ -2,8 +2,8 @@
 
 Up to :data:`EVERY_CORNER_UP_TO` corners, every corner does. Above, a page per corner would
 bury the few that matter (a thousand-corner run made a report of over a thousand pages):
-the report then gives one overview page of all corners and pages for the worst few, the
-failed few and the corners named on the command line; ``--all-corner-pages`` asks for
+the report then gives one overview page of all corners and pages for the worst few, a
+few that are not ok and the corners named on the command line; ``--all-corner-pages`` asks for
 every one.
 """
 
@@ -19,7 +19,8 @@ __all__ = ["EVERY_CORNER_UP_TO", "FAILED_PAGES", "WORST_PAGES", "corner_pages"]
 EVERY_CORNER_UP_TO = 50
 #: Above it: pages for this many corners of the smallest phase margin ...
 WORST_PAGES = 8
-#: ... and for this many of the corners that did not measure (their page says why).
+#: ... and for this many of the corners that are not ok (an error, or suspect: their page
+#: says why).
 FAILED_PAGES = 3
 
 
@@ -48,7 +49,7 @@ def corner_pages(corners: Sequence[dict], *, named: Iterable[str] = (),
         Every corner when ``every`` or when there are at most :data:`EVERY_CORNER_UP_TO`;
         else the :data:`WORST_PAGES` of smallest phase margin, the corners of the smallest
         unity-gain frequency and of the smallest gain margin, the first
-        :data:`FAILED_PAGES` that did not measure, and ``named``.
+        :data:`FAILED_PAGES` that are not ok, and ``named``.
 
     Raises
     ------
