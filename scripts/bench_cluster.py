@@ -64,10 +64,10 @@ def main() -> None:
 
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
     runs = [("demo, level-1 cards", DEMO, GRID_200)]
-    if PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir():
+    if PTM45.is_file():
         runs.append(("ptm45, BSIM4 cards", PTM45, GRID_PTM_200))
     else:
-        print("(the 45 nm BSIM4 run needs ../shared/models/ptm45 and netlists/ptm45: skipped)")
+        print("(the 45 nm BSIM4 run needs netlists/ptm45: skipped)")
     with scratch() as tmp, \
             LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                          dashboard_address=None, scheduler_kwargs={"dashboard_address": ":0"},
