@@ -30,7 +30,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_measure import DEMO, GRID_200, PTM45, REPO, job_with_corners, scratch
+from bench_measure import DEMO, GRID_200, PTM45, job_with_corners, scratch
 
 GRID_PTM_200 = ('[corner_grid]\ntemp = [-40, 0, 27, 85, 125]\n'
                 'params = { vdd = [1.0, 1.05, 1.1, 1.15, 1.2], '

@@ -21,6 +21,7 @@ from .journal import Journal, file_digests
 from .measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
 from .outputs import OutFolder
 from .pool import WorkerPool
+from .portable_decks import copy_includes
 from .runner import Runner
 from .stepcheck import run_step_checks, step_stop_s, with_step
 from .strategy import STRATEGIES, Evaluator, Outcome
@@ -324,9 +325,11 @@ def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome
     from .testbench import build_testbench
 
     stems = corner_files(amplifier.job.corners)
+    includes = None
     for corner_result in outcome.final.corners:
         name = corner_result.corner.name
         bench = build_testbench(amplifier, corner_result.corner, outcome.values)
-        CornerWork.for_corner(bench, folder.path, stems[name]).write_files(
+        includes = includes or copy_includes(folder.path, bench.deck)
+        CornerWork.for_corner(bench, folder.path, stems[name], includes).write_files(
             corner_result.loop_gain)
 
