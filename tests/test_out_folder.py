@@ -7,8 +7,13 @@ give the loop gain amploop recorded; a real SIGINT to a running ``amploop`` proc
 from __future__ import annotations
 
 import json
+import os
 import shutil
+import signal
+import sqlite3
 import subprocess
+import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -72,3 +77,82 @@ def test_decks_rerun_by_hand_after_the_out_folder_is_copied_elsewhere(tmp_path, 
                                    recorded[:, 3] + 1j * recorded[:, 4], rtol=1e-6)
     assert len(list(decks.glob("*.cir"))) == 10
     assert json.loads((moved / "results.json").read_text())["status"] == "ok"
+
+
+GRID_90 = ('[corner_grid]\nlib = ["tt", "ss", "ff"]\ntemp = [-40, 0, 27, 85, 125]\n'
+           'params = { vdd = [1.71, 1.8, 1.89], cl = ["1p", "3p"] }\n')
+GRID_30 = ('[corner_grid]\nlib = ["tt", "ss", "ff"]\ntemp = [-40, 0, 27, 85, 125]\n'
+           'params = { vdd = [1.71, 1.89], cl = ["2p"] }\n')
+
+
+def _recorded(journal: Path) -> int:
+    try:
+        with sqlite3.connect(f"file:{journal}?mode=ro", uri=True, timeout=1) as db:
+            return db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
+    except sqlite3.Error:
+        return 0
+
+
+def _ctrl_c_after(command: list[str], journal: Path, records: int) -> subprocess.CompletedProcess:
+    """Run ``command`` in its own process group; once ``journal`` holds ``records``
+    analyses, send SIGINT to the whole group, as Ctrl-C in a terminal does."""
+    process = subprocess.Popen(command, start_new_session=True, stdout=subprocess.PIPE,
+                               stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 600  # a loaded machine
+    while _recorded(journal) < records and time.monotonic() < deadline \
+            and process.poll() is None:
+        time.sleep(0.02)
+    assert process.poll() is None, "the run finished before it could be interrupted"
+    assert _recorded(journal) >= records, "the run never got that far"
+    os.killpg(process.pid, signal.SIGINT)
+    out, err = process.communicate(timeout=300)
+    return subprocess.CompletedProcess(command, process.returncode, out, err)
+
+
+def slow_demo_grid(folder: Path, grid: str) -> Path:
+    """The demo job (invented) over the corners of ``grid``, at 400 points a decade (ten
+    times the demo's, so that each analysis takes long enough for a signal to land inside
+    a run)."""
+    job = folder / "job.toml"
+    folder.mkdir()
+    text = (DEMO / "job.toml").read_text().replace("points_per_decade = 40",
+                                                   "points_per_decade = 400")
+    for name in ("two_stage.cir", "models.lib"):
+        text = text.replace(f'"{name}"', f'"{DEMO / name}"')
+    job.write_text(text[: text.index("[[corners]]")] + grid)
+    return job
+
+
+def test_ctrl_c_during_tune_leaves_results_json_with_what_was_finished(tmp_path):
+    """Signalled after the three characterisations (3 × 30 analyses), in the verification
+    or the step checks after it."""
+    job = slow_demo_grid(tmp_path / "job", GRID_30)
+    out = tmp_path / "out"
+    proc = _ctrl_c_after([sys.executable, "-m", "amploop.cli", "tune", str(job), "--out",
+                          str(out), "--workers", "2", "--quiet"], out / "journal.sqlite", 95)
+    assert proc.returncode == 130, proc.stderr
+    assert "interrupted" in proc.stderr and "Traceback" not in proc.stderr
+    results = json.loads((out / "results.json").read_text())
+    assert results["status"] == "interrupted" and results["command"] == "tune"
+    assert "--resume" in results["message"] and str(out) in results["message"]
+    assert results["ac_analyses"]["run"] >= 2 * 90  # two AC analyses per recorded one
+    assert [h["kind"] for h in results["history"]][:3] == ["characterise"] * 3
+    assert _recorded(out / "journal.sqlite") >= 95
+    assert not list(out.glob(".results.json.tmp*"))
+    assert not (out / "compensated").exists()
+
+
+def test_ctrl_c_during_measure_leaves_results_json_marked_interrupted(tmp_path):
+    """The signal lands among the loop-gain analyses or the step checks after them: either
+    way "interrupted"."""
+    job = slow_demo_grid(tmp_path / "job", GRID_90)
+    out = tmp_path / "out"
+    proc = _ctrl_c_after([sys.executable, "-m", "amploop.cli", "measure", str(job), "--out",
+                          str(out), "--workers", "2", "--quiet"], out / "journal.sqlite", 30)
+    assert proc.returncode == 130, proc.stderr
+    results = json.loads((out / "results.json").read_text())
+    assert results["status"] == "interrupted", results.get("message")
+    assert "the same command again" in results["message"]
+    assert all(c["status"] == "ok" for c in results["corners"])
+    # the corners whose analyses were recorded, but for those in flight at the signal
+    assert 30 - 2 <= len(results["corners"]) <= 90

@@ -395,6 +395,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                  after=works[name] if in_workers else None))
                 for name, b in benches.items()]
     checks = {}
+    interrupted = False
     try:
         for name, output, _reused in runner.run(requests):
             bench = benches[name]
@@ -413,6 +414,9 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                              for c in ok])
             checks = run_step_checks(amplifier, ok, values, runner, stop_s,
                                      job.analysis.time_limit_s)
+    except KeyboardInterrupt:
+        interrupted = True
+        raise
     finally:
         if own_pool:
             pool.close()
@@ -430,8 +434,13 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                + (journal.notes() if journal is not None else ()))
         if folder is not None:
             data = result.as_json()
-            if len(ordered) < len(job.corners):
+            if interrupted or len(ordered) < len(job.corners):
                 data["status"] = "interrupted"
+                data["message"] = (
+                    f"interrupted after {len(ordered)} of {len(job.corners)} corners"
+                    + ("" if len(ordered) < len(job.corners) else ", during the step checks")
+                    + "; the same command again finishes the run, reusing every analysis "
+                    "in the journal")
             folder.write_json("results.json", data)
     return result
 

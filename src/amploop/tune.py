@@ -208,7 +208,9 @@ def tune(
     Returns
     -------
     TuneResult
-        Its ``status`` is "converged", "infeasible" or "failed"; the figures are from the
+        Its ``status`` is "converged", "infeasible" or "failed" (Ctrl-C raises
+        KeyboardInterrupt after writing results.json with status "interrupted", the
+        history so far and the command that resumes); the figures are from the
         final verifying simulation.
     """
     if job.target is None:
@@ -257,6 +259,9 @@ def tune(
                 vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
                 checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
                                          job.analysis.time_limit_s, device_vt=vt)
+        except KeyboardInterrupt:
+            _write_interrupted(folder, amplifier, strategy, evaluator, runner, started)
+            raise
         finally:
             if own_pool:
                 pool.close()
@@ -318,6 +323,32 @@ def _refuse_suspect(outcome: Outcome) -> Outcome:
     return Outcome("failed", outcome.values, outcome.final,
                    f"not converged: corner {bad.corner.name} is {bad.status}: {bad.problem}",
                    outcome.extra)
+
+
+def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
+                       evaluator: _Evaluator, runner: Runner, started: float) -> None:
+    """results.json of a run stopped by Ctrl-C: status "interrupted", every point simulated
+    so far in the history, the analyses counted, and the command that resumes it (and no
+    compensated netlist of an earlier run left to read as this one's)."""
+    job = amplifier.job
+    _remove_compensated(folder, amplifier)
+    command = f"amploop tune {job.path} --out {folder.path}"
+    if strategy != "map":
+        command += f" --strategy {strategy}"
+    message = (f"interrupted after {len(evaluator.history)} simulated points "
+               f"({runner.ac_run + runner.ac_reused} AC analyses); `{command} --resume` "
+               "continues from the journal")
+    result = TuneResult(job=job, strategy=strategy,
+                        outcome=Outcome("interrupted", {}, None, message),
+                        history=tuple(evaluator.history), ac_run=runner.ac_run,
+                        ac_reused=runner.ac_reused, out=folder.path,
+                        seconds=time.perf_counter() - started,
+                        simulator_seconds=runner.simulator_seconds,
+                        transient_run=runner.transient_run,
+                        transient_reused=runner.transient_reused,
+                        values_in_netlist=amplifier.values_in_effect({}),
+                        warnings=amplifier.warnings)
+    folder.write_json("results.json", result.as_json())
 
 
 def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> None:
