@@ -7,6 +7,7 @@ never crosses 0 dB) are per-corner errors in results.json while the other corner
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -286,3 +287,33 @@ def test_parse_error_on_an_element_of_the_subckt_names_its_line(job, tmp_path, c
     assert code == 2
     line = one_error_line(err)
     assert "macro.cir:12:" in line and "m.x1.m9" in line and "modelname" in line
+
+
+def test_a_name_used_as_a_model_blames_the_element_not_the_parameter(job, tmp_path, capsys):
+    """``Cc nz out cc``: ngspice reads ``cc`` as a model name and finds no such model. The
+    subckt header defines a parameter ``cc`` on line 2; the line to fix is the element's."""
+    edit(job.parent / "macro.cir", "Cc nz out {cc}", "Cc nz out cc")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir:10:" in line and "can't find model 'cc'" in line, line
+
+
+def test_a_model_level_ngspice_lacks_comes_with_its_note_on_the_levels_it_has(job, tmp_path,
+                                                                           capsys):
+    """A MOS card of a level this ngspice was not built with (33): ngspice's own note on
+    the levels it supports, at the card's line in the models file, naming the element
+    that needed it; not the element's expanded line with all its parameters."""
+    (job.parent / "cards.lib").write_text(
+        "* invented cards\n.model nfet_a nmos level=1 vto=0.4 kp=200u\n"
+        ".model nfet nmos level=33 vto=0.4\n")
+    edit(job, 'out = "out"\n', 'out = "out"\nmodels = "cards.lib"\n')
+    geometry = " ".join(["w=1u l=0.2u ad=0.5p as=0.5p pd=3u ps=3u nrd=0.1 nrs=0.1"] * 4)
+    edit(job.parent / "macro.cir", ".ends", f"M9 out n1 0 0 nfet {geometry}\n.ends")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "cards.lib:3:" in line and "level=33" in line, line
+    assert re.search(r"Only MOS device levels [\d,\-]+ are supported", line), line
+    assert "M9 at" in line and "macro.cir:11" in line, line
+    assert len(line.replace(f"{job.parent}/", "")) < 250 and "nrd" not in line, line
