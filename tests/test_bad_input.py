@@ -317,3 +317,41 @@ def test_a_model_level_ngspice_lacks_comes_with_its_note_on_the_levels_it_has(jo
     assert re.search(r"Only MOS device levels [\d,\-]+ are supported", line), line
     assert "M9 at" in line and "macro.cir:11" in line, line
     assert len(line.replace(f"{job.parent}/", "")) < 250 and "nrd" not in line, line
+
+
+@pytest.mark.parametrize("old, new, place, words", [
+    # SPICE reads M as milli (common practice: a megaohm is "Meg"): 1M is 1 mΩ
+    ('feedback = "10000.0"', 'feedback = "1M"', "[feedback].feedback",
+     ["'1M' is 1 mΩ in SPICE", "did you mean '1Meg'?"]),
+    ('input = "10000.0"', 'input = "4.7mohm"', "[feedback].input",
+     ["'4.7mohm' is 4.7 mΩ", "did you mean '4.7Megohm'?"]),
+    ('feedback = "10000.0"', 'feedback = 0.25', "[feedback].feedback",
+     ["is 250 mΩ", "below 1 Ω", "1M and 1m are 1 milliohm"]),
+    ('feedback = "10000.0"', 'feedback = "{rf}"', "[feedback].feedback",
+     ["is 2 mΩ at corner 'heavy'", "below 1 Ω"]),
+    ('max = "50k"', 'max = "50M"', "[compensation].rc.max",
+     ["'50M' is 50 mΩ in SPICE", "did you mean '50Meg'?"]),
+])
+def test_a_resistor_that_spice_reads_as_milliohms_is_refused(job, tmp_path, capsys, old,
+                                                             new, place, words):
+    """In the resistive loop of the macromodel a 1 mΩ feedback resistor measured as "never
+    crosses 0 dB ... check the feedback network"; now the job is refused before any
+    simulation, saying what SPICE reads."""
+    edit(job, old, new)
+    edit(job, "params = { cl = 1e-12 }", 'params = { cl = 1e-12, rf = "10k" }')
+    edit(job, "params = { cl = 5e-12 }", 'params = { cl = 5e-12, rf = "2M" }')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert f"job.toml:{place}:" in line and all(w in line for w in words), line
+    assert not (tmp_path / "out" / "journal.sqlite").exists()
+
+
+def test_set_rc_with_the_milli_suffix_is_refused_and_a_short_is_not(job, tmp_path, capsys):
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "rc=1M"], capsys)
+    assert code == 2
+    assert "did you mean '1Meg'?" in one_error_line(err)
+    edit(job, 'feedback = "10000.0"', 'feedback = "0"')  # a unity-gain follower: allowed
+    edit(job, 'input = "10000.0"', 'input = "1G"')
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "rc=0", "--no-report"], capsys)
+    assert code == 0, err
