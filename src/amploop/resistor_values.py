@@ -67,8 +67,13 @@ def check_rc_text(text: object, *, file=None, place: str) -> None:
 
 
 def check_feedback_resistors(job) -> None:
-    """Refuse feedback-network resistors of ``job`` (a loaded :class:`~amploop.job.Job`)
-    that are written with the milli suffix or come out below 1 Ω (but not 0) at a corner.
+    """Refuse feedback-network resistors of ``job`` that are written with the milli suffix
+    or come out below 1 Ω (but not 0) at a corner.
+
+    Parameters
+    ----------
+    job
+        A loaded :class:`~amploop.job.Job` (its corners expanded).
 
     Raises
     ------
