@@ -87,8 +87,8 @@ def build_report(out: str | Path, *, pngs: bool = True) -> ReportOutcome:
             yield "map", map_page(data), True
         if data.command == "tune":
             yield "convergence", convergence_page(data, target), True
-        if data.steps:
-            yield "step-response", time_domain_page(data), True
+        # with no step responses the page says why, and what runs them
+        yield "step-response", time_domain_page(data), True
 
     pdf_path = data.out / "report.pdf"
     png_dir = data.out / "report"
