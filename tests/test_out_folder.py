@@ -10,14 +10,13 @@ import json
 import os
 import shutil
 import signal
-import sqlite3
 import subprocess
 import sys
 import time
 from pathlib import Path
 
 import numpy as np
-from conftest import DEMO
+from conftest import DEMO, recorded_analyses
 
 from amploop.cli import main
 from amploop.cluster import include_targets
@@ -85,25 +84,17 @@ GRID_30 = ('[corner_grid]\nlib = ["tt", "ss", "ff"]\ntemp = [-40, 0, 27, 85, 125
            'params = { vdd = [1.71, 1.89], cl = ["2p"] }\n')
 
 
-def _recorded(journal: Path) -> int:
-    try:
-        with sqlite3.connect(f"file:{journal}?mode=ro", uri=True, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
-    except sqlite3.Error:
-        return 0
-
-
 def _ctrl_c_after(command: list[str], journal: Path, records: int) -> subprocess.CompletedProcess:
     """Run ``command`` in its own process group; once ``journal`` holds ``records``
     analyses, send SIGINT to the whole group, as Ctrl-C in a terminal does."""
     process = subprocess.Popen(command, start_new_session=True, stdout=subprocess.PIPE,
                                stderr=subprocess.PIPE, text=True)
     deadline = time.monotonic() + 600  # a loaded machine
-    while _recorded(journal) < records and time.monotonic() < deadline \
+    while recorded_analyses(journal) < records and time.monotonic() < deadline \
             and process.poll() is None:
         time.sleep(0.02)
     assert process.poll() is None, "the run finished before it could be interrupted"
-    assert _recorded(journal) >= records, "the run never got that far"
+    assert recorded_analyses(journal) >= records, "the run never got that far"
     os.killpg(process.pid, signal.SIGINT)
     out, err = process.communicate(timeout=300)
     return subprocess.CompletedProcess(command, process.returncode, out, err)
@@ -137,7 +128,7 @@ def test_ctrl_c_during_tune_leaves_results_json_with_what_was_finished(tmp_path)
     assert "--resume" in results["message"] and str(out) in results["message"]
     assert results["ac_analyses"]["run"] >= 2 * 90  # two AC analyses per recorded one
     assert [h["kind"] for h in results["history"]][:3] == ["characterise"] * 3
-    assert _recorded(out / "journal.sqlite") >= 95
+    assert recorded_analyses(out / "journal.sqlite") >= 95
     assert not list(out.glob(".results.json.tmp*"))
     assert not (out / "compensated").exists()
 
