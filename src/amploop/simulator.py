@@ -164,7 +164,8 @@ def _echo(line: str) -> str:
     line = " ".join(line.split())
     if len(line) <= ECHO_CHARS:
         return line
-    return line[: line.rfind(" ", 0, ECHO_CHARS)].rstrip(" .") + " …"
+    cut = line.rfind(" ", 0, ECHO_CHARS)
+    return line[: cut if cut > 0 else ECHO_CHARS].rstrip(" .") + " …"
 
 
 def _model_issue(text: list[str]) -> str | None:
