@@ -492,10 +492,17 @@ def convergence_page(data: ReportData, target_pm: float | None):
 
 
 def step_rerun_command(results: dict, out) -> list[str]:
-    """The command line that runs the step checks of the out folder ``out`` whose
-    results.json is ``results``: its own command again (the same values, for ``measure``
-    with ``--set``), which takes every AC analysis from the journal and simulates only the
-    step transients."""
+    """The command line that runs the step checks of an out folder: its own command again
+    (the same values, for ``measure`` with ``--set``), which takes every AC analysis from
+    the journal and simulates only the step transients.
+
+    Parameters
+    ----------
+    results
+        The out folder's results.json, read.
+    out
+        The out folder.
+    """
     command = ["amploop", results.get("command", "measure"), str(results.get("job_file")),
                "--out", str(out)]
     if command[1] == "tune":
@@ -508,7 +515,14 @@ def step_rerun_command(results: dict, out) -> list[str]:
 
 
 def steps_absent_note(data: ReportData) -> list[str]:
-    """Lines saying why the step page has no step responses and what to run for them."""
+    """Lines saying why the step page has no step responses and what to run for them.
+
+    Parameters
+    ----------
+    data
+        The report's data, whose ``steps`` are empty: the failure of the first corner whose
+        step check failed, else the command of :func:`step_rerun_command`.
+    """
     import shlex
 
     failed = [(c["name"], c["step"]["error"]) for c in data.results["corners"]
