@@ -30,7 +30,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_measure import DEMO, GRID_200, PTM45, REPO, job_with_corners, scratch
+from bench_measure import DEMO, GRID_200, PTM45, job_with_corners, scratch
 
 GRID_PTM_200 = ('[corner_grid]\ntemp = [-40, 0, 27, 85, 125]\n'
                 'params = { vdd = [1.0, 1.05, 1.1, 1.15, 1.2], '
@@ -64,10 +64,10 @@ def main() -> None:
 
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
     runs = [("demo, level-1 cards", DEMO, GRID_200)]
-    if PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir():
+    if PTM45.is_file():
         runs.append(("ptm45, BSIM4 cards", PTM45, GRID_PTM_200))
     else:
-        print("(the 45 nm BSIM4 run needs ../shared/models/ptm45 and netlists/ptm45: skipped)")
+        print("(the 45 nm BSIM4 run needs netlists/ptm45: skipped)")
     with scratch() as tmp, \
             LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                          dashboard_address=None, scheduler_kwargs={"dashboard_address": ":0"},

@@ -450,14 +450,14 @@ def main() -> None:
           f"{file_creation_us(Path(tempfile.gettempdir())):.0f} us in {tempfile.gettempdir()}")
     overhead(args.reps, DEMO, (GRID_20, GRID_200))
     parallel(args.reps, DEMO, GRID_12)
-    ptm = PTM45.is_file() and (REPO.parent / "shared" / "models" / "ptm45").is_dir()
+    ptm = PTM45.is_file()
     if ptm:  # BSIM4 cards: analyses that cost what real ones do
         overhead(args.reps, PTM45, (GRID_PTM_20, GRID_PTM_100))
         parallel(args.reps, PTM45, GRID_PTM_12)
         with scratch() as tmp:  # the same circuit, as a layout's netlist lists its devices
             parallel(args.reps, fingered_job(Path(tmp) / "ptm45-16-fingers", 16), GRID_PTM_12)
     else:
-        print("(the 45 nm BSIM4 runs need ../shared/models/ptm45 and netlists/ptm45: skipped)")
+        print("(the 45 nm BSIM4 runs need netlists/ptm45: skipped)")
     memory()
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sqlite3
 import sys
 from pathlib import Path
 
@@ -71,3 +72,13 @@ def needs_shared():
     """Skip marker for tests that read ../shared (the model cards); says why."""
     return pytest.mark.skipif(not (SHARED / "models" / "ptm45").is_dir(),
                               reason="../shared/models/ptm45 is absent on this machine")
+
+
+def recorded_analyses(journal: Path) -> int:
+    """How many analyses the journal ``journal`` holds (0 while it cannot be read), read
+    without disturbing the run that writes it."""
+    try:
+        with sqlite3.connect(f"file:{journal}?mode=ro", uri=True, timeout=1) as db:
+            return db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
+    except sqlite3.Error:
+        return 0

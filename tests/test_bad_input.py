@@ -7,6 +7,7 @@ never crosses 0 dB) are per-corner errors in results.json while the other corner
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -345,3 +346,69 @@ def test_an_out_folder_name_longer_than_the_file_system_allows_is_one_line(job, 
     assert code == 2
     line = one_error_line(err)
     assert "File name too long" in line and "internal error" not in line
+def test_a_name_used_as_a_model_blames_the_element_not_the_parameter(job, tmp_path, capsys):
+    """``Cc nz out cc``: ngspice reads ``cc`` as a model name and finds no such model. The
+    subckt header defines a parameter ``cc`` on line 2; the line to fix is the element's."""
+    edit(job.parent / "macro.cir", "Cc nz out {cc}", "Cc nz out cc")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "macro.cir:10:" in line and "can't find model 'cc'" in line, line
+
+
+def test_a_model_level_ngspice_lacks_comes_with_its_note_on_the_levels_it_has(job, tmp_path,
+                                                                           capsys):
+    """A MOS card of a level this ngspice was not built with (33): ngspice's own note on
+    the levels it supports, at the card's line in the models file, naming the element
+    that needed it; not the element's expanded line with all its parameters."""
+    (job.parent / "cards.lib").write_text(
+        "* invented cards\n.model nfet_a nmos level=1 vto=0.4 kp=200u\n"
+        ".model nfet nmos level=33 vto=0.4\n")
+    edit(job, 'out = "out"\n', 'out = "out"\nmodels = "cards.lib"\n')
+    geometry = " ".join(["w=1u l=0.2u ad=0.5p as=0.5p pd=3u ps=3u nrd=0.1 nrs=0.1"] * 4)
+    edit(job.parent / "macro.cir", ".ends", f"M9 out n1 0 0 nfet {geometry}\n.ends")
+    code, _, err = run(measure_args(job, tmp_path) + ["--no-report"], capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert "cards.lib:3:" in line and "level=33" in line, line
+    assert re.search(r"Only MOS device levels [\d,\-]+ are supported", line), line
+    assert "M9 at" in line and "macro.cir:11" in line, line
+    assert len(line.replace(f"{job.parent}/", "")) < 250 and "nrd" not in line, line
+
+
+@pytest.mark.parametrize("old, new, place, words", [
+    # SPICE reads M as milli (common practice: a megaohm is "Meg"): 1M is 1 mΩ
+    ('feedback = "10000.0"', 'feedback = "1M"', "[feedback].feedback",
+     ["'1M' is 1 mΩ in SPICE", "did you mean '1Meg'?"]),
+    ('input = "10000.0"', 'input = "4.7mohm"', "[feedback].input",
+     ["'4.7mohm' is 4.7 mΩ", "did you mean '4.7Megohm'?"]),
+    ('feedback = "10000.0"', 'feedback = 0.25', "[feedback].feedback",
+     ["is 250 mΩ", "below 1 Ω", "1M and 1m are 1 milliohm"]),
+    ('feedback = "10000.0"', 'feedback = "{rf}"', "[feedback].feedback",
+     ["is 2 mΩ at corner 'heavy'", "below 1 Ω"]),
+    ('max = "50k"', 'max = "50M"', "[compensation].rc.max",
+     ["'50M' is 50 mΩ in SPICE", "did you mean '50Meg'?"]),
+])
+def test_a_resistor_that_spice_reads_as_milliohms_is_refused(job, tmp_path, capsys, old,
+                                                             new, place, words):
+    """In the resistive loop of the macromodel a 1 mΩ feedback resistor measured as "never
+    crosses 0 dB ... check the feedback network"; now the job is refused before any
+    simulation, saying what SPICE reads."""
+    edit(job, old, new)
+    edit(job, "params = { cl = 1e-12 }", 'params = { cl = 1e-12, rf = "10k" }')
+    edit(job, "params = { cl = 5e-12 }", 'params = { cl = 5e-12, rf = "2M" }')
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert f"job.toml:{place}:" in line and all(w in line for w in words), line
+    assert not (tmp_path / "out" / "journal.sqlite").exists()
+
+
+def test_set_rc_with_the_milli_suffix_is_refused_and_a_short_is_not(job, tmp_path, capsys):
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "rc=1M"], capsys)
+    assert code == 2
+    assert "did you mean '1Meg'?" in one_error_line(err)
+    edit(job, 'feedback = "10000.0"', 'feedback = "0"')  # a unity-gain follower: allowed
+    edit(job, 'input = "10000.0"', 'input = "1G"')
+    code, _, err = run(measure_args(job, tmp_path) + ["--set", "rc=0", "--no-report"], capsys)
+    assert code == 0, err

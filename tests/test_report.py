@@ -200,3 +200,32 @@ def test_report_reads_a_journal_in_a_folder_whose_name_looks_like_a_uri(macro_jo
     assert "report:" in capsys.readouterr().out
     assert (out / "report.pdf").stat().st_size > 0
     assert not list(out.glob("journal.sqlite-*"))
+
+
+@needs_poppler
+def test_report_after_no_report_says_the_step_checks_were_not_run_and_the_command(tmp_path,
+                                                                                  capsys):
+    """measure --no-report, then report: the step page says the checks were not run and
+    names a command; that command, run as printed, simulates only the 10 step transients
+    (every AC analysis reused) and the page then shows them."""
+    import shlex
+
+    out = tmp_path / "out"
+    assert main(["measure", str(DEMO / "job.toml"), "--out", str(out), "--no-report",
+                 "--quiet"]) == 0
+    assert main(["report", str(out), "--no-png"]) == 0
+    capsys.readouterr()
+    text = subprocess.run(["pdftotext", "-layout", str(out / "report.pdf"), "-"],
+                          capture_output=True, text=True, check=True).stdout
+    page = text.split("\f")[-2]  # the last page (pdftotext ends every page with \f)
+    assert "Closed-loop step response" in page and "step checks were not run" in page
+    shown = page.split("draws this report again:", 1)[1]
+    command = shlex.split(" ".join(line.strip() for line in shown.splitlines() if line.strip()))
+    assert command[:2] == ["amploop", "measure"]
+    assert main([*command[1:], "--quiet"]) == 0
+    results = json.loads((out / "results.json").read_text())
+    assert results["ac_analyses"] == {"run": 0, "reused": 20}
+    assert results["transient_analyses"] == {"run": 10, "reused": 0}
+    text = subprocess.run(["pdftotext", "-layout", str(out / "report.pdf"), "-"],
+                          capture_output=True, text=True, check=True).stdout
+    assert "not run" not in text and "slowest to settle" in text

@@ -12,14 +12,13 @@ import math
 import os
 import re
 import signal
-import sqlite3
 import subprocess
 import sys
 import time
 from pathlib import Path
 
 import pytest
-from conftest import DEMO
+from conftest import DEMO, recorded_analyses
 
 from amploop.cli import main
 from amploop.job import load_job
@@ -108,14 +107,6 @@ GRID = ('[corner_grid]\nlib = ["tt", "ss", "ff"]\ntemp = [-40, 0, 27, 85, 125]\n
         'params = { vdd = [1.71, 1.8, 1.89], cl = ["1p", "3p"] }\n')  # 90 corners
 
 
-def _recorded(journal: Path) -> int:
-    try:
-        with sqlite3.connect(f"file:{journal}?mode=ro", uri=True, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
-    except sqlite3.Error:
-        return 0
-
-
 def test_kill_9_then_resume_gives_the_values_of_an_uninterrupted_run(tmp_path):
     job_path = job_copy(tmp_path / "job", grid=GRID)
     killed = tmp_path / "killed"
@@ -124,12 +115,12 @@ def test_kill_9_then_resume_gives_the_values_of_an_uninterrupted_run(tmp_path):
     process = subprocess.Popen(command, start_new_session=True)
     journal = killed / "journal.sqlite"
     deadline = time.monotonic() + 120
-    while _recorded(journal) < 60 and time.monotonic() < deadline and process.poll() is None:
+    while recorded_analyses(journal) < 60 and time.monotonic() < deadline and process.poll() is None:
         time.sleep(0.02)
     assert process.poll() is None, "the run finished before it could be killed"
     os.killpg(process.pid, signal.SIGKILL)  # the coordinator and its workers, at once
     process.wait()
-    recorded = _recorded(journal)
+    recorded = recorded_analyses(journal)
     assert recorded >= 60
 
     resumed = tune(load_job(job_path), out=killed, workers=2, resume=True)

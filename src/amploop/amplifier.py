@@ -8,7 +8,6 @@ text edits that set new values. It reads files but never simulates.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -136,41 +135,12 @@ class Amplifier:
         any of them reads."""
         return self.reads
 
-    def find_word(self, word: str) -> Statement | None:
-        """The first statement of the user's files that uses ``word`` (case-insensitive)."""
-        pattern = re.compile(rf"(?<![\w.]){re.escape(word)}(?![\w])", re.IGNORECASE)
-        for source in self.netlist.files.values():
-            for statement in source.statements:
-                if any(pattern.search(token) for token in statement.tokens):
-                    return statement
-        return None
-
     def locate_parse_error(self, problem: str) -> str:
-        """Prefix an ngspice parse error with the user's file and line where it can be found.
+        """``problem``, an ngspice parse error, prefixed with the user's file and line to fix
+        (:func:`amploop.parse_errors.locate_parse_error`)."""
+        from .parse_errors import locate_parse_error
 
-        ngspice numbers lines of its expanded deck (inside a subckt often "line no. 0"), so
-        the name it complains about is looked up in the user's files instead.
-
-        Parameters
-        ----------
-        problem
-            ngspice's parse error, one line.
-
-        Returns
-        -------
-        str
-            ``file:line: problem`` without ngspice's deck line number; ``problem`` as it is
-            when no name in it is found.
-        """
-        for pattern in (r"\[([^\]]+)\]", r"'([\w.#$-]+\(?)'", r"unknown \w+:\s*(?:\S+\s+)*(\S+)$",
-                        # "Error on line: m.x1.m8 ...": an element of the subckt, flattened
-                        r"[Ee]rror on line:\s*(?:[a-z]\.(?:\w+\.)+)?([\w#$-]+)\s"):
-            for match in re.finditer(pattern, problem):
-                statement = self.find_word(match.group(1).strip("("))
-                if statement is not None:
-                    cleaned = re.sub(r"\s*\(Netlist line no\. \d+ of the deck\)", "", problem)
-                    return f"{statement.file}:{statement.line}: {cleaned}"
-        return problem
+        return locate_parse_error(self, problem)
 
     def values_in_effect(self, overrides: dict[str, float] | None = None) -> dict[str, float]:
         """Compensation values (SI) the netlist holds, with ``overrides`` applied."""

@@ -45,7 +45,7 @@ import tempfile
 import threading
 import uuid
 from collections import OrderedDict
-from collections.abc import Hashable, Iterable, Iterator
+from collections.abc import Callable, Hashable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import replace
 from typing import Self
@@ -55,7 +55,8 @@ from .deadlines import run_with_deadlines
 from .errors import JobError, SimulatorError
 from .simulator import AnalysisOutput, AnalysisRequest
 
-__all__ = ["ClusterPool", "FileBundler", "include_targets", "run_analysis", "worker_check"]
+__all__ = ["ClusterPool", "FileBundler", "include_targets", "move_include_paths", "run_analysis",
+           "worker_check"]
 
 #: Seconds to wait for the scheduler (and for its first worker) before giving up.
 CONNECT_TIMEOUT_S = 10.0
@@ -185,15 +186,25 @@ def _rooted(path: str, root: str) -> str:
     return root + posixpath.normpath(path)
 
 
-def _reroot(text: str, root: str) -> str:
-    """``text`` with every absolute include path moved under ``root``."""
-    def move(match: re.Match) -> str:
+def move_include_paths(text: str, move: Callable[[str], str | None]) -> str:
+    """``text`` with every absolute include path ``p`` (``.include``, ``.lib f s``) written
+    as ``move(p)`` instead, in the quote it had; relative paths, and absolute ones for which
+    ``move`` returns None, stay as they are."""
+    def replace_path(match: re.Match) -> str:
         path, quote = _path_of(match)
         if not path or not posixpath.isabs(path):
             return match.group(0)  # relative: resolves next to the copy of its file
-        return f"{match.group('head')}{quote}{_rooted(path, root)}{quote}{match.group('rest')}"
+        moved = move(path)
+        if moved is None:
+            return match.group(0)
+        return f"{match.group('head')}{quote}{moved}{quote}{match.group('rest')}"
 
-    return _INCLUDE.sub(move, text)
+    return _INCLUDE.sub(replace_path, text)
+
+
+def _reroot(text: str, root: str) -> str:
+    """``text`` with every absolute include path moved under ``root``."""
+    return move_include_paths(text, lambda path: _rooted(path, root))
 
 
 def _write_files(request: AnalysisRequest, folder: str, root: str) -> None:

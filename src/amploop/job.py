@@ -18,6 +18,7 @@ from typing import Any, Literal
 from .errors import JobError, did_you_mean
 from .expressions import evaluate
 from .oppoint import OperatingPointLimits, read_limits
+from .resistor_values import check_feedback_resistors, check_rc_text
 from .units import parse_value
 
 __all__ = [
@@ -594,6 +595,7 @@ def _build_job(path: Path, data: dict) -> Job:
     )
     _check_corner_libs(r, job)
     _check_corner_params(r, job)
+    check_feedback_resistors(job)
     return job
 
 
@@ -689,6 +691,8 @@ def _compensation(r: _Reader, data: dict) -> dict[str, Knob]:
                 raise r.fail(f"{place}.size", f"expected 'w', 'l' or 'm', got {size!r}")
         elif "size" in spec:
             raise r.fail(f"{place}.size", "only a device takes a size")
+        for bound in ("min", "max") if role == "rc" and where != "device" else ():
+            check_rc_text(spec.get(bound), file=r.path, place=f"{place}.{bound}")
         minimum = None if "min" not in spec else r.number(spec["min"], f"{place}.min",
                                                             nonnegative=True)
         maximum = None if "max" not in spec else r.number(spec["max"], f"{place}.max",
@@ -951,6 +955,8 @@ def parse_overrides(items: list[str] | None, job: Job) -> dict[str, float]:
             raise JobError(f"--set {item!r}: {exc}") from None
         if value < 0:
             raise JobError(f"--set {item!r}: must not be negative")
+        if role == "rc" and job.compensation[role].where != "device":
+            check_rc_text(text, place=f"--set {item!r}")
         if role == "cc" and value == 0:
             raise JobError(f"--set {item!r}: Cc must be above zero")
         values[role] = value

@@ -323,7 +323,10 @@ class Journal:
 
     def commit(self) -> None:
         """Make every recorded analysis durable (against a crash of the application)."""
-        if self._open_since is None:
+        if not self._db.in_transaction:
+            # nothing open; also when Ctrl-C came between a COMMIT and the line after it,
+            # or between a BEGIN and the line after it (SQLite knows, the bookkeeping not)
+            self._open_since = None
             return
         try:
             self._db.execute("COMMIT")

@@ -21,6 +21,7 @@ from .margins import Margins, loop_margins
 from .oppoint import OperatingPoint, OperatingPointLimits, corner_status
 from .outputs import OutFolder, loop_gain_csv, remove_stale, write_into
 from .pool import WorkerPool, default_workers
+from .portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
 from .runner import Runner
 from .testbench import Testbench, build_testbench
 
@@ -281,6 +282,9 @@ class CornerWork:
         Where the deck to rerun by hand goes, relative to ``folder``.
     data_file
         The file that deck writes its loop gain to, relative to where ngspice runs it.
+    includes
+        Where the files the deck reads were copied (:func:`~amploop.portable_decks.copy_includes`),
+        so that the deck names them relative to itself.
     """
 
     bench: Testbench
@@ -288,13 +292,17 @@ class CornerWork:
     csv: str
     deck: str
     data_file: str
+    includes: PortableIncludes = NO_COPIES
 
     @classmethod
-    def for_corner(cls, bench: Testbench, folder: Path, stem: str) -> CornerWork:
+    def for_corner(cls, bench: Testbench, folder: Path, stem: str,
+                   includes: PortableIncludes = NO_COPIES) -> CornerWork:
         """The work for one corner: its testbench ``bench``, the out folder ``folder``
-        (absolute), and its files named from ``stem`` (:func:`corner_files`)."""
+        (absolute), its files named from ``stem`` (:func:`corner_files`), and where the
+        files its deck reads were copied (``includes``)."""
         return cls(bench=bench, folder=folder, csv=f"loop_gain/{stem}.csv",
-                   deck=f"decks/{stem}.cir", data_file=f"{stem}-loop_gain.txt")
+                   deck=f"{DECKS}/{stem}.cir", data_file=f"{stem}-loop_gain.txt",
+                   includes=includes)
 
     def files(self, result: CornerResult) -> list[str]:
         """The files :meth:`write_files` writes for the corner's ``result``, relative to
@@ -302,10 +310,11 @@ class CornerWork:
         return [self.deck] + ([self.csv] if result.loop_gain is not None else [])
 
     def write_files(self, response: FrequencyResponse | None) -> None:
-        """The deck to rerun by hand, and the loop-gain CSV when there is a loop gain
-        (``response``); written in place (a rerun writes them again)."""
-        write_into(self.folder, self.deck, self.bench.hand_deck(data_file=self.data_file),
-                   atomic=False)
+        """The deck to rerun by hand (naming the files it reads relative to itself), and the
+        loop-gain CSV when there is a loop gain (``response``); written in place (a rerun
+        writes them again)."""
+        deck = self.includes.rewrite(self.bench.hand_deck(data_file=self.data_file))
+        write_into(self.folder, self.deck, deck, atomic=False)
         if response is not None:
             write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
 
@@ -391,8 +400,11 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
     own_pool = pool is None
     pool = pool or WorkerPool(workers)
     runner = Runner(pool, journal, file_digests(amplifier.files))
-    works = {name: CornerWork.for_corner(b, folder.path, stems[name])
-             for name, b in benches.items()} if folder is not None else {}
+    works = {}
+    if folder is not None:
+        includes = copy_includes(folder.path, next(iter(benches.values())).deck)
+        works = {name: CornerWork.for_corner(b, folder.path, stems[name], includes)
+                 for name, b in benches.items()}
     # with a core to spare the coordinator does this while the workers simulate; with
     # every core busy simulating, each worker does its own corners' share
     in_workers = folder is not None and pool.shares_files and pool.size >= default_workers()
@@ -400,6 +412,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                  after=works[name] if in_workers else None))
                 for name, b in benches.items()]
     checks = {}
+    interrupted = False
     try:
         for name, output, _reused in runner.run(requests):
             bench = benches[name]
@@ -418,6 +431,9 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                              for c in ok])
             checks = run_step_checks(amplifier, ok, values, runner, stop_s,
                                      job.analysis.time_limit_s)
+    except KeyboardInterrupt:
+        interrupted = True
+        raise
     finally:
         if own_pool:
             pool.close()
@@ -435,8 +451,13 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                + (journal.notes() if journal is not None else ()))
         if folder is not None:
             data = result.as_json()
-            if len(ordered) < len(job.corners):
+            if interrupted or len(ordered) < len(job.corners):
                 data["status"] = "interrupted"
+                data["message"] = (
+                    f"interrupted after {len(ordered)} of {len(job.corners)} corners"
+                    + ("" if len(ordered) < len(job.corners) else ", during the step checks")
+                    + "; the same command again finishes the run, reusing every analysis "
+                    "in the journal")
             folder.write_json("results.json", data)
     if folder is not None:
         remove_stale(folder.path, [f for name, r in results.items()

@@ -149,7 +149,7 @@ class OutFolder:
         return self.write_text(relative, text)
 
 
-def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
+def write_into(folder: Path, relative: str, text: str | bytes, *, durable: bool = False,
                atomic: bool = True) -> Path:
     """Write ``text`` to ``relative`` inside the absolute path ``folder``.
 
@@ -166,7 +166,7 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
     relative
         The file's path inside it; missing folders on the way are created.
     text
-        The content, written as UTF-8 with line endings as they are.
+        The content, written as UTF-8 with line endings as they are (bytes: as they are).
     durable
         Force the file to disk before it counts as written.
     atomic
@@ -187,14 +187,15 @@ def write_into(folder: Path, relative: str, text: str, *, durable: bool = False,
         raise OutputError(f"refusing to write outside the out folder: {relative!r}",
                           file=folder)
     temporary = target.with_name(f".{target.name}.tmp{os.getpid()}") if atomic else target
+    data = text if isinstance(text, bytes) else text.encode("utf-8")
     try:
         _prepare_folder(folder, target.parent, relative)
         try:
-            _write_bytes(temporary, text.encode("utf-8"), durable=durable)
+            _write_bytes(temporary, data, durable=durable)
         except FileNotFoundError:  # its folder went away since it was prepared: again
             _PREPARED.discard(target.parent)
             _prepare_folder(folder, target.parent, relative)
-            _write_bytes(temporary, text.encode("utf-8"), durable=durable)
+            _write_bytes(temporary, data, durable=durable)
         if atomic:
             os.replace(temporary, target)
     except OSError as exc:

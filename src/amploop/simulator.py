@@ -154,10 +154,52 @@ class AnalysisOutput:
     after_error: str | None = field(default=None, repr=False)
 
 
+#: Longest echo of a deck line kept in a failure's summary, characters (a BSIM4 instance
+#: line, flattened with all its parameters, runs to hundreds).
+ECHO_CHARS = 72
+
+
+def _echo(line: str) -> str:
+    """A deck line as ngspice echoed it, cut at a word to about :data:`ECHO_CHARS`."""
+    line = " ".join(line.split())
+    if len(line) <= ECHO_CHARS:
+        return line
+    cut = line.rfind(" ", 0, ECHO_CHARS)
+    return line[: cut if cut > 0 else ECHO_CHARS].rstrip(" .") + " …"
+
+
+def _model_issue(text: list[str]) -> str | None:
+    """ngspice's own note on a model card it refused ("Model issue on line N :", the card,
+    then the note, such as the MOS levels this binary supports), when an element then
+    failed for want of that model; None otherwise."""
+    joined = " ".join(text).lower()
+    if "valid modelname" not in joined and "find model" not in joined:
+        return None
+    for i, line in enumerate(text[:-2]):
+        issue = re.search(r"model issue on line (\d+)", line, re.IGNORECASE)
+        if issue is None:
+            continue
+        card = text[i + 1].split()
+        if len(card) < 2 or card[0].lower() != ".model":
+            continue
+        level = re.search(r"\blevel\s*=\s*([^\s.]+)", text[i + 1], re.IGNORECASE)
+        what = f"model {card[1]}" + (f" (level={level.group(1)})" if level else "")
+        rejected = next((text[j + 1] for j in range(i + 2, len(text) - 1)
+                         if text[j].lower().startswith("error on line")), None)
+        tail = f"; rejected: {_echo(rejected).split()[0]}" if rejected else ""
+        return f"{what} on line {issue.group(1)}: {text[i + 2]}{tail}"
+    return None
+
+
 def summarise_failure(lines: list[str]) -> str:
-    """One line naming what went wrong, from ngspice's messages ``lines``."""
+    """One line naming what went wrong, from ngspice's messages ``lines``: ngspice's own
+    words, with the deck lines it echoes cut short and, for a model card it refused, its
+    note on why (the model levels it supports) rather than the element that missed it."""
     text = [line.strip() for line in lines if line.strip()]
     joined = " ".join(text).lower()
+    issue = _model_issue(text)
+    if issue is not None:
+        return issue
     singular = next((line for line in text if "singular matrix" in line.lower()), None)
     if singular:
         node = singular.split("check node", 1)[-1].strip() if "check node" in singular else "?"
@@ -175,7 +217,10 @@ def summarise_failure(lines: list[str]) -> str:
         if any(p.search(line) for p in _FATAL) and "cannot recover" not in line.lower() \
                 and "please check your input" not in line.lower():
             if line.endswith(":"):  # "Error on line:" followed by the line and the reason
-                return " ".join([line, *text[i + 1 : i + 3]])
+                return " ".join([line, *map(_echo, text[i + 1 : i + 2]), *text[i + 2 : i + 3]])
+            if line.lower().endswith("from line") and i + 1 < len(text):
+                # "can't find model 'x' from line" followed by the element's line
+                return f"{line[: -len('from line')].rstrip()} (element line: {_echo(text[i + 1])})"
             return line
     for line in text:
         if "please check your input" in line.lower():

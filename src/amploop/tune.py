@@ -21,6 +21,7 @@ from .journal import Journal, file_digests
 from .measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
 from .outputs import OutFolder, remove_stale
 from .pool import WorkerPool
+from .portable_decks import copy_includes
 from .runner import Runner
 from .stepcheck import run_step_checks, step_stop_s, with_step
 from .strategy import STRATEGIES, Evaluator, Outcome
@@ -211,7 +212,9 @@ def tune(
     Returns
     -------
     TuneResult
-        Its ``status`` is "converged", "infeasible" or "failed"; the figures are from the
+        Its ``status`` is "converged", "infeasible" or "failed" (Ctrl-C raises
+        KeyboardInterrupt after writing results.json with status "interrupted", the
+        history so far and the command that resumes); the figures are from the
         final verifying simulation.
     """
     if job.target is None:
@@ -260,6 +263,9 @@ def tune(
                 vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
                 checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
                                          job.analysis.time_limit_s, device_vt=vt)
+        except KeyboardInterrupt:
+            _write_interrupted(folder, amplifier, strategy, evaluator, runner, started)
+            raise
         finally:
             if own_pool:
                 pool.close()
@@ -328,6 +334,32 @@ def _refuse_suspect(outcome: Outcome) -> Outcome:
                    outcome.extra)
 
 
+def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
+                       evaluator: _Evaluator, runner: Runner, started: float) -> None:
+    """results.json of a run stopped by Ctrl-C: status "interrupted", every point simulated
+    so far in the history, the analyses counted, and the command that resumes it (and no
+    compensated netlist of an earlier run left to read as this one's)."""
+    job = amplifier.job
+    _remove_compensated(folder, amplifier)
+    command = f"amploop tune {job.path} --out {folder.path}"
+    if strategy != "map":
+        command += f" --strategy {strategy}"
+    message = (f"interrupted after {len(evaluator.history)} simulated points "
+               f"({runner.ac_run + runner.ac_reused} AC analyses); `{command} --resume` "
+               "continues from the journal")
+    result = TuneResult(job=job, strategy=strategy,
+                        outcome=Outcome("interrupted", {}, None, message),
+                        history=tuple(evaluator.history), ac_run=runner.ac_run,
+                        ac_reused=runner.ac_reused, out=folder.path,
+                        seconds=time.perf_counter() - started,
+                        simulator_seconds=runner.simulator_seconds,
+                        transient_run=runner.transient_run,
+                        transient_reused=runner.transient_reused,
+                        values_in_netlist=amplifier.values_in_effect({}),
+                        warnings=amplifier.warnings)
+    folder.write_json("results.json", result.as_json())
+
+
 def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> list[str]:
     """Per-corner loop-gain CSVs and rerunnable decks at the final values; returns the
     files written, relative to the folder."""
@@ -335,10 +367,12 @@ def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome
 
     stems = corner_files(amplifier.job.corners)
     written = []
+    includes = None
     for corner_result in outcome.final.corners:
         name = corner_result.corner.name
         bench = build_testbench(amplifier, corner_result.corner, outcome.values)
-        work = CornerWork.for_corner(bench, folder.path, stems[name])
+        includes = includes or copy_includes(folder.path, bench.deck)
+        work = CornerWork.for_corner(bench, folder.path, stems[name], includes)
         work.write_files(corner_result.loop_gain)
         written += work.files(corner_result)
     return written

@@ -137,8 +137,8 @@ def _pages(data: ReportData, corner_names: list[str], overview: bool):
         yield "map", map_page(data), True
     if data.command == "tune":
         yield "convergence", convergence_page(data, target), True
-    if data.steps:
-        yield "step-response", time_domain_page(data, corner_names if overview else None), True
+    # with no step responses the page says why, and what runs them
+    yield "step-response", time_domain_page(data, corner_names if overview else None), True
 
 
 def _draw(data: ReportData, corner_names: list[str], overview: bool, *, pngs: bool,

@@ -22,6 +22,8 @@ __all__ = [
     "corner_page",
     "map_page",
     "overview_page",
+    "step_rerun_command",
+    "steps_absent_note",
     "summary_page_count",
     "summary_pages",
     "time_domain_page",
@@ -524,6 +526,55 @@ def convergence_page(data: ReportData, target_pm: float | None):
     return fig
 
 
+def step_rerun_command(results: dict, out) -> list[str]:
+    """The command line that runs the step checks of an out folder: its own command again
+    (the same values, for ``measure`` with ``--set``), which takes every AC analysis from
+    the journal and simulates only the step transients.
+
+    Parameters
+    ----------
+    results
+        The out folder's results.json, read.
+    out
+        The out folder.
+    """
+    command = ["amploop", results.get("command", "measure"), str(results.get("job_file")),
+               "--out", str(out)]
+    if command[1] == "tune":
+        if results.get("strategy", "map") != "map":
+            command += ["--strategy", results["strategy"]]
+    else:
+        for role, value in results.get("values", {}).items():
+            command += ["--set", f"{role}={value!r}"]
+    return command
+
+
+def steps_absent_note(data: ReportData) -> list[str]:
+    """Lines saying why the step page has no step responses and what to run for them.
+
+    Parameters
+    ----------
+    data
+        The report's data, whose ``steps`` are empty: the failure of the first corner whose
+        step check failed, else the command of :func:`step_rerun_command`.
+    """
+    import shlex
+
+    failed = [(c["name"], c["step"]["error"]) for c in data.results["corners"]
+              if c.get("step") and c["step"].get("error")]
+    if failed:
+        name, error = failed[0]
+        return ["No step response to show: the step checks failed.",
+                *textwrap.wrap(f"{name}: {error}", 90)]
+    command = shlex.join(step_rerun_command(data.results, data.out))
+    wrapped = textwrap.wrap(command, 84, break_on_hyphens=False, break_long_words=True)
+    return ["The step checks were not run for this out folder",
+            "(its run had --no-report, or stopped before them).", "",
+            "This command runs them, simulating only the step transients",
+            "(every AC analysis comes from the journal), and draws this report again:", "",
+            *wrapped]
+
+
 def time_domain_page(data: ReportData, highlight: list[str] | None = None):
     """The closed-loop small-step response of every corner at the final values, from the
     step responses in ``data``.
@@ -542,7 +593,8 @@ def time_domain_page(data: ReportData, highlight: list[str] | None = None):
              weight="bold")
     names = [n for n in data.corner_names if n in data.steps]
     if not names:
-        fig.text(0.06, 0.5, "no step responses in this out folder")
+        fig.text(0.06, 0.86, "\n".join(steps_absent_note(data)), fontsize=10, va="top",
+                 color=style.LIMIT, family="monospace")
         return fig
     first = data.steps[names[0]]
     band = first.metrics.band
