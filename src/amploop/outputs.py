@@ -52,6 +52,11 @@ def clean_json(value):
 def is_folder(path: Path) -> bool | None:
     """Whether ``path`` is a folder (True), something else (False) or absent (None).
 
+    Parameters
+    ----------
+    path
+        The path to look up (symbolic links followed).
+
     Raises
     ------
     OutputError
@@ -97,12 +102,17 @@ class OutFolder:
             raise OutputError("the out folder is not writable", file=self.path)
 
     @contextmanager
-    def lock(self):
+    def lock(self, *, join: bool = False):
         """Hold the folder for this run; a second run on the same folder is refused.
 
-        Re-entrant within a process: the report drawn at the end of a run takes the lock
-        its run already holds."""
-        if self.path in _HELD:
+        Parameters
+        ----------
+        join
+            Join a lock this process already holds instead (the report drawn at the end
+            of a run, under its run's lock). A run never joins one, so two runs in one
+            process are refused as two processes are.
+        """
+        if join and self.path in _HELD:
             _HELD[self.path] += 1
             try:
                 yield

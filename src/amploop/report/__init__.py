@@ -109,7 +109,7 @@ def build_report(out: str | Path, *, pngs: bool = True, corner_pages: Iterable[s
     if not is_folder(out):
         raise OutputError("not a folder", file=out)
     folder = OutFolder(out)
-    with folder.lock(), load_report_data(folder.path) as data:
+    with folder.lock(join=True), load_report_data(folder.path) as data:
         pages_of = selection.corner_pages(data.results.get("corners", []), named=corner_pages,
                                           every=all_corner_pages)
         overview = len(pages_of) < len(data.corner_names)

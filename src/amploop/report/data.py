@@ -120,6 +120,9 @@ class ReportData:
         history (empty without them).
     analyses_read
         How many analyses were read from the journal.
+    journal
+        The journal, open read-only until :meth:`close`; None once closed (or for data
+        built without one).
     """
 
     out: Path

@@ -44,8 +44,8 @@ class StepEnvelope:
         self.high = np.fmax(self.high, values)
 
     def draw(self, full, zoom, label: str) -> None:
-        """Shade the band on ``full`` (the response) and ``zoom`` (its error in % of the
-        step)."""
+        """Shade the band on the axes ``full`` (the response) and ``zoom`` (its error in %
+        of the step), with the legend text ``label``."""
         seen = np.isfinite(self.low) & np.isfinite(self.high)
         t, low, high = self.time_s[seen], self.low[seen], self.high[seen]
         full.fill_between(t, low, high, color=style.START, alpha=0.35, lw=0, zorder=1,
