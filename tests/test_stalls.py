@@ -201,6 +201,53 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
         np.testing.assert_array_equal(output.reads[0]["v(b)"], reference.reads[0]["v(b)"])
 
 
+def test_a_worker_stopped_before_its_answer_is_fetched_costs_a_deadline(tmp_path):
+    """An analysis finishes on a Dask worker, which is stopped before the coordinator
+    fetches the arrays (they stay on that worker until then): the fetch misses its
+    deadline, the worker is left out, the analysis runs again elsewhere and gives the
+    arrays of an undisturbed local run. This is the order of events that once hung the
+    run (the fetch had no deadline)."""
+    import pytest
+
+    pytest.importorskip("distributed")
+    from test_cluster import local_cluster
+
+    from amploop.cluster import ClusterPool
+
+    with WorkerPool(1) as local:
+        [(_, reference)] = list(local.run([(0, SHORT)]))
+    requests = [(n, replace(SHORT, label=f"short-{n}")) for n in range(4)]
+    stopped: list[int] = []
+    results: dict = {}
+    with local_cluster(tmp_path) as running, \
+            ClusterPool(running.scheduler_address, grace_s=2.0) as pool:
+        list(pool.run([(n, SHORT) for n in range(4)]))  # every worker's ngspice started
+        pids = pool.client.run(os.getpid)
+        fetch = pool._outcome
+
+        def stop_its_holder_then_fetch(future, request, timeout_s):
+            if not stopped:
+                [holder] = pool.client.who_has([future])[future.key]
+                os.kill(pids[holder], signal.SIGSTOP)
+                stopped.append(pids[holder])
+            return fetch(future, request, timeout_s)
+
+        pool._outcome = stop_its_holder_then_fetch
+
+        def run() -> None:
+            for key, output in pool.run(requests):
+                results[key] = output
+
+        hung, seconds = run_watched(run, 60, lambda: resume(stopped))
+    assert stopped
+    assert not hung, "the run hung fetching an answer from a stopped Dask worker"
+    assert seconds < 30, seconds
+    assert sorted(results) == list(range(4))
+    for output in results.values():
+        assert isinstance(output, AnalysisOutput), output
+        np.testing.assert_array_equal(output.reads[0]["v(b)"], reference.reads[0]["v(b)"])
+
+
 # a LocalCluster on 127.0.0.1 in a process of its own (so that it can be killed): prints
 # the scheduler's address, then waits
 CLUSTER_PROCESS = """

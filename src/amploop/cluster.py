@@ -519,24 +519,27 @@ class ClusterPool:
                                       grace_s=self.grace_s, address=self.address)
 
     @staticmethod
-    def _outcome(future, request: AnalysisRequest) -> AnalysisOutput | SimulatorError:
+    def _outcome(future, request: AnalysisRequest,
+                 timeout_s: float) -> AnalysisOutput | SimulatorError:
+        """The finished ``future``'s output or SimulatorError, fetched within
+        ``timeout_s`` seconds (``TimeoutError`` when its worker does not answer)."""
         from distributed import KilledWorker
 
         try:
-            status, payload = future.result()
+            status, payload = future.result(timeout=timeout_s)
+        except TimeoutError:
+            raise  # kept, so that the caller can ask who holds it
         except KilledWorker as exc:
             allowed = getattr(exc, "allowed_failures", None)
             tries = ("repeatedly" if allowed is None else "once" if allowed == 0
                      else f"{allowed + 1} times")
-            return SimulatorError(
+            status, payload = "error", (
                 f"the Dask workers running this analysis died {tries} "
-                "(KilledWorker; distributed.scheduler.allowed-failures)", place=request.label)
+                "(KilledWorker; distributed.scheduler.allowed-failures)")
         except Exception as exc:  # noqa: BLE001 - cancelled, lost, or the task raised
             text = str(exc).splitlines()[0] if str(exc) else ""
-            return SimulatorError(f"on the Dask cluster: {type(exc).__name__}: {text}".rstrip(": "),
-                                  place=request.label)
-        finally:
-            future.release()
+            status, payload = "error", f"on the Dask cluster: {type(exc).__name__}: {text}".rstrip(": ")
+        future.release()
         if status == "ok":
             return payload
         return SimulatorError(payload, place=request.label)

@@ -12,6 +12,10 @@ the coordinator keeps a deadline of its own for every analysis it hands over:
   being handed over is cancelled and handed over again, to the other workers: the worker
   that held it is left out for the rest of the run. It is retried as a local analysis
   whose worker crashed is, at most ``retries`` times; then it reports a SimulatorError.
+- A finished analysis's arrays stay on the worker that ran it until they are fetched; a
+  worker that stops between finishing and being asked for them would hold the fetch for
+  ever. So the fetch has a deadline too (``grace_s``): one that misses it counts as a late
+  analysis, and the worker holding the arrays is left out like a stopped one.
 - A lost scheduler ends the run with one SimulatorError.
 """
 
@@ -57,7 +61,7 @@ def run_with_deadlines(
     client,
     requests: Iterable[tuple[Hashable, AnalysisRequest]],
     submit: Callable[[AnalysisRequest, list[str] | None], object],
-    outcome: Callable[[object, AnalysisRequest], AnalysisOutput | SimulatorError],
+    outcome: Callable[[object, AnalysisRequest, float], AnalysisOutput | SimulatorError],
     *,
     slots: int,
     retries: int,
@@ -76,7 +80,9 @@ def run_with_deadlines(
         ``submit(request, workers)``: hands one analysis to the cluster, on ``workers``
         (addresses) or on any worker when None; returns its future.
     outcome
-        ``outcome(future, request)``: the finished future's output or SimulatorError.
+        ``outcome(future, request, timeout_s)``: the finished future's output or
+        SimulatorError, fetched within ``timeout_s`` seconds; raises ``TimeoutError`` when
+        the worker holding it does not answer in time.
     slots
         Most analyses on the cluster at a time.
     retries
@@ -105,6 +111,19 @@ def run_with_deadlines(
             attempt.deadline = time.monotonic() + deadline_s(attempt.request, grace_s)
             flying[attempt.future.key] = attempt
 
+    def hand_over_again(late: list[_Attempt], holders: set[str]) -> list[_Attempt]:
+        """Leave ``holders`` out, queue each late attempt again; those out of retries."""
+        nonlocal left_out, workers
+        left_out |= holders
+        workers = [w for w in _workers(client) if w not in left_out] or None
+        given_up = []
+        for attempt in late:
+            if attempt.attempt < retries:
+                waiting.appendleft(_Attempt(attempt.key, attempt.request, attempt.attempt + 1))
+            else:
+                given_up.append(attempt)
+        return given_up
+
     try:
         while waiting or flying:
             top_up()
@@ -115,19 +134,21 @@ def run_with_deadlines(
             late = [a for a in flying.values() if a.deadline <= now]
             given_up = []
             if late:
-                left_out |= _holders(client, {a.future.key for a in late})
-                workers = [w for w in _workers(client) if w not in left_out] or None
+                holders = _holders(client, {a.future.key for a in late})
                 client.cancel([a.future for a in late])
                 for attempt in late:
                     del flying[attempt.future.key]
-                    if attempt.attempt < retries:
-                        waiting.appendleft(_Attempt(attempt.key, attempt.request,
-                                                    attempt.attempt + 1))
-                    else:
-                        given_up.append(attempt)
+                given_up = hand_over_again(late, holders)
             top_up()  # the cluster works on while the caller records what came back
             for attempt in done:
-                yield attempt.key, outcome(attempt.future, attempt.request)
+                try:
+                    result = outcome(attempt.future, attempt.request, grace_s)
+                except TimeoutError:  # its arrays sit on a worker that does not answer
+                    holders = _keepers(client, attempt.future)
+                    client.cancel([attempt.future])
+                    given_up += hand_over_again([attempt], holders)
+                    continue
+                yield attempt.key, result
             for attempt in given_up:
                 limit = deadline_s(attempt.request, grace_s)
                 yield attempt.key, SimulatorError(
@@ -162,6 +183,14 @@ def _first_done(client, futures: list, wake: threading.Event, until: float,
 def _holders(client, keys: set[str]) -> set[str]:
     """The addresses of the workers processing any of ``keys``."""
     return {worker for worker, held in client.processing().items() if keys & set(held)}
+
+
+def _keepers(client, future) -> set[str]:
+    """The addresses of the workers holding a finished ``future``'s result."""
+    try:
+        return set(client.who_has([future]).get(future.key, ()))
+    except Exception:  # noqa: BLE001 - the scheduler forgot it: nobody to leave out
+        return set()
 
 
 def _workers(client) -> list[str]:
