@@ -39,7 +39,7 @@ GRID_PTM_200 = ('[corner_grid]\ntemp = [-40, 0, 27, 85, 125]\n'
 
 def timed(job, pool, folder: Path, reps: int) -> tuple[float, int]:
     """Median seconds of ``reps`` measurements of ``job`` on ``pool``; AC analyses run."""
-    from amploop.measure import measure
+    from amploop.corners.measure import measure
 
     measure(job, out=folder / "warm", pool=pool, time_domain=False)
     times = []
@@ -58,9 +58,9 @@ def main() -> None:
 
     from distributed import LocalCluster
 
-    from amploop.cluster import ClusterPool
-    from amploop.job import load_job
-    from amploop.pool import WorkerPool
+    from amploop.sim.cluster import ClusterPool
+    from amploop.sim.pool import WorkerPool
+    from amploop.spec.job import load_job
 
     print(f"machine: {os.cpu_count()} CPUs; python {sys.version.split()[0]}")
     runs = [("demo, level-1 cards", DEMO, GRID_200)]

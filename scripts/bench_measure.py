@@ -138,11 +138,11 @@ def saved_deck(path: Path) -> str:
 def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
     """Per-corner cost: the slope between a small and a large job, so that the fixed cost
     of a run (reading files, opening the journal, results.json) is reported apart."""
-    from amploop.amplifier import prepare_amplifier
-    from amploop.job import load_job
-    from amploop.measure import measure
-    from amploop.pool import WorkerPool
-    from amploop.testbench import build_testbench
+    from amploop.bench.amplifier import prepare_amplifier
+    from amploop.bench.testbench import build_testbench
+    from amploop.corners.measure import measure
+    from amploop.sim.pool import WorkerPool
+    from amploop.spec.job import load_job
 
     times: dict[int, list[float]] = {}
     raw_times: list[float] = []
@@ -183,11 +183,11 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
 
 
 def parallel(reps: int, job_file: Path, grid: str) -> None:
-    from amploop.amplifier import prepare_amplifier
-    from amploop.job import load_job
-    from amploop.measure import measure
-    from amploop.pool import WorkerPool
-    from amploop.testbench import build_testbench
+    from amploop.bench.amplifier import prepare_amplifier
+    from amploop.bench.testbench import build_testbench
+    from amploop.corners.measure import measure
+    from amploop.sim.pool import WorkerPool
+    from amploop.spec.job import load_job
 
     with scratch() as tmp:
         job_path = job_with_corners(Path(tmp), grid, job_file)
@@ -282,9 +282,9 @@ def _warm_child(prefix: list[str], job_path: Path, workers: int, reps: int, tmp:
 
 def child(job_path: str, workers: int, reps: int, tmp: str) -> None:
     """``--child``: warm measurements of a job in this process; prints the median, s."""
-    from amploop.job import load_job
-    from amploop.measure import measure
-    from amploop.pool import WorkerPool
+    from amploop.corners.measure import measure
+    from amploop.sim.pool import WorkerPool
+    from amploop.spec.job import load_job
 
     job = load_job(job_path)
     times = []
@@ -376,7 +376,7 @@ def memory() -> None:
             folder = Path(tmp) / label
             folder.mkdir()
             job_path = job_with_corners(folder, grid)
-            code = ("import sys\nfrom amploop.job import load_job\nfrom amploop.measure import measure\n"
+            code = ("import sys\nfrom amploop.spec.job import load_job\nfrom amploop.corners.measure import measure\n"
                     "if __name__ == '__main__':\n"
                     f"    r = measure(load_job({str(job_path)!r}), out={str(folder / 'out')!r}, workers=1, time_domain=False)\n"
                     "    print(len(r.corners), r.ac_run)\n"
@@ -407,7 +407,7 @@ def fingered_job(folder: Path, fingers: int) -> Path:
     device's name), as a layout's netlist lists them: the same circuit, with analyses
     that cost what a netlist of eight times sixteen BSIM4 instances does. Invented
     benchmark data, made here; written into ``folder`` with a copy of the job."""
-    from amploop.units import parse_value, spice_number
+    from amploop.spice.units import parse_value, spice_number
 
     source = PTM45.parent / "two_stage_45.cir"
     lines = []

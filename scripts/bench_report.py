@@ -47,8 +47,8 @@ def draw(out: Path, *options: str) -> tuple[float, float, str]:
 
 
 def main(which: list[str]) -> None:
-    from amploop.job import load_job
-    from amploop.tune import tune
+    from amploop.spec.job import load_job
+    from amploop.strategy.tune import tune
 
     with scratch() as tmp:
         for count in which:

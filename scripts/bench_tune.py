@@ -25,10 +25,10 @@ from bench_measure import DEMO, scratch
 
 
 def main() -> None:
-    from amploop.job import load_job
-    from amploop.pool import default_workers
-    from amploop.tune import tune
-    from amploop.units import engineering
+    from amploop.sim.pool import default_workers
+    from amploop.spec.job import load_job
+    from amploop.spice.units import engineering
+    from amploop.strategy.tune import tune
 
     job = load_job(DEMO)
     corners = len(job.corners)

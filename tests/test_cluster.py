@@ -1,6 +1,6 @@
 """Analyses on a Dask cluster (``--cluster``): the same answers as the local pool.
 
-The reference is a local run of the same job through :class:`amploop.pool.WorkerPool`:
+The reference is a local run of the same job through :class:`amploop.sim.pool.WorkerPool`:
 through a two-worker Dask cluster on 127.0.0.1 the tuning must land on identical values,
 per-corner margins, journal keys and analysis counts, also when a Dask worker process is
 killed in the middle of a batch. Bundling is checked against the simulator itself: an
@@ -24,16 +24,16 @@ distributed = pytest.importorskip("distributed")
 
 from conftest import DEMO
 
-from amploop import cluster as cluster_module
-from amploop.amplifier import prepare_amplifier
+from amploop.sim import cluster as cluster_module
+from amploop.bench.amplifier import prepare_amplifier
+from amploop.bench.testbench import build_testbench
 from amploop.cli import main
-from amploop.cluster import ClusterPool, FileBundler, include_targets, run_analysis
 from amploop.errors import SimulatorError
-from amploop.job import load_job
-from amploop.pool import WorkerPool
-from amploop.simulator import AnalysisOutput, AnalysisRequest, Step
-from amploop.testbench import build_testbench
-from amploop.tune import tune
+from amploop.sim.cluster import ClusterPool, FileBundler, include_targets, run_analysis
+from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest, Step
+from amploop.sim.pool import WorkerPool
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 # an RC driven by a sine: one `tran` that takes about two seconds and keeps few points
 SLOW = AnalysisRequest("slow", "* slow\nV1 a 0 sin(0 1 1meg)\nR1 a b 1k\nC1 b 0 1n\n.end\n",

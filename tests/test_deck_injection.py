@@ -8,7 +8,7 @@ create the canary: the reference is ngspice itself, not amploop's reading of it.
 
 The rules (prefix matching of dot-commands, ``*#`` comment lines, the line breaks of
 :meth:`str.splitlines`) were measured on ngspice 39 and are listed in
-:mod:`amploop.ngread`; hypothesis draws values and netlists from every separator and
+:mod:`amploop.spice.ngread`; hypothesis draws values and netlists from every separator and
 every prefix variant.
 """
 
@@ -23,7 +23,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from amploop.cli import main
-from amploop.ngread import LINE_BREAKS
+from amploop.spice.ngread import LINE_BREAKS
 
 SEPARATORS = sorted(LINE_BREAKS) + ["\r\n"]
 FEW = settings(max_examples=25, deadline=None, derandomize=True, database=None,

@@ -23,13 +23,13 @@ import pytest
 from conftest import DEMO
 
 from amploop.cli import main
+from amploop.corners.measure import measure
+from amploop.corners.outputs import OutFolder
 from amploop.errors import OutputError
-from amploop.job import load_job
-from amploop.journal import Journal
-from amploop.measure import measure
-from amploop.outputs import OutFolder
-from amploop.pool import WorkerPool
-from amploop.tune import tune
+from amploop.sim.journal import Journal
+from amploop.sim.pool import WorkerPool
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 
 def demo_copy(folder: Path, *, job_edit=None, netlist_edit=None) -> Path:
@@ -112,7 +112,7 @@ def test_ngspice_that_cannot_recover_costs_its_worker_not_the_run(tmp_path):
     job_path = demo_copy(tmp_path / "job")
     (tmp_path / "job" / "quit.inc").write_text("* asks ngspice to leave\n.control\nquit\n.endc\n")
     job_path.write_text(job_path.read_text().replace('models = "', 'includes = ["quit.inc"]\nmodels = "', 1))
-    from amploop.amplifier import prepare_amplifier  # noqa: F401  (imported for clarity)
+    from amploop.bench.amplifier import prepare_amplifier  # noqa: F401  (imported for clarity)
 
     with WorkerPool(2) as pool:
         broken = measure(load_job(job_path), out=tmp_path / "out", pool=pool, time_domain=False,

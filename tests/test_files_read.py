@@ -15,9 +15,9 @@ from pathlib import Path
 import pytest
 from test_deck_injection import one_corner_demo, run
 
-from amploop.amplifier import prepare_amplifier
-from amploop.job import load_job
-from amploop.measure import measure
+from amploop.bench.amplifier import prepare_amplifier
+from amploop.corners.measure import measure
+from amploop.spec.job import load_job
 
 
 def cards_in_a_file_the_models_include(folder: Path) -> Path:

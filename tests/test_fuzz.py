@@ -21,7 +21,7 @@ blank lines, CRLF) are read, written back with ``render_file(top_level=False)`` 
 edits (``replace_param``, ``replace_element_value``, ``replace_instance_param``, also in
 included files, which are then inlined), and read again. The expected statements come from
 the generator's own record of what it wrote (tokens as the module docstring of
-``amploop.netlist`` says the dialect reads), not from the reader: every statement must
+``amploop.spice.netlist`` says the dialect reads), not from the reader: every statement must
 come back with its keyword, tokens, subckt and section, the edits applied, and
 ``split_logical_lines`` must keep every physical line (on any text). A ``+`` line must add
 the same text whether or not comment and blank lines stand between it and its statement
@@ -51,9 +51,9 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from amploop.errors import AmploopError, JobError, NetlistError
-from amploop.expressions import evaluate
-from amploop.job import Job, load_job
-from amploop.netlist import (
+from amploop.spec.job import Job, load_job
+from amploop.spice.expressions import evaluate
+from amploop.spice.netlist import (
     Netlist,
     element_value,
     read_netlist,
@@ -446,7 +446,7 @@ def test_the_shortcuts_of_the_reader_give_what_its_general_routines_give(head, i
     """The reader's quick paths (a line without comment characters, a statement without
     groups, a ``.model`` card with one plain pair of parentheses) agree with the
     character-by-character routines they skip."""
-    from amploop.netlist import (
+    from amploop.spice.netlist import (
         _SEPARATORS,
         _grouped_tokens,
         _strip_inline_comment,

@@ -18,7 +18,7 @@ from conftest import DEMO
 
 from amploop.cli import main
 from amploop.errors import JournalError
-from amploop.journal import Journal
+from amploop.sim.journal import Journal
 
 
 def measure_demo(out: Path, capsys, *extra: str) -> tuple[dict, list[str]]:

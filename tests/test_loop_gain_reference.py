@@ -14,8 +14,8 @@ import pytest
 from nodal import Macromodel, exact_loop_gain
 from scipy.optimize import brentq
 
-from amploop.job import load_job
-from amploop.measure import measure
+from amploop.corners.measure import measure
+from amploop.spec.job import load_job
 
 RESISTIVE = Macromodel(kind="resistive", z_in=10e3, z_fb=20e3, cc=1.5e-12, rc=800.0, cl=2e-12)
 CAPACITIVE = Macromodel(kind="capacitive", z_in=2e-12, z_fb=1e-12, r_dc=1e9, cc=1e-12,

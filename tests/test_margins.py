@@ -10,8 +10,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from amploop.loopgain import FrequencyResponse
-from amploop.margins import loop_margins
+from amploop.analysis.loopgain import FrequencyResponse
+from amploop.analysis.margins import loop_margins
 
 
 def sampled(num: list[float], den: list[float], points_per_decade: int = 40,

@@ -1,4 +1,4 @@
-"""The netlist reader/rewriter (amploop.netlist) and the expression evaluator (amploop.expressions).
+"""The netlist reader/rewriter (amploop.spice.netlist) and the expression evaluator (amploop.spice.expressions).
 
 Where the expected behaviour is ngspice's, the test asks ngspice itself (``ngspice -b`` on a
 small deck in a tmp folder, with ``set num_threads=1`` in ``.spiceinit``) and compares what
@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 
 from amploop.errors import NetlistError
-from amploop.expressions import evaluate
-from amploop.netlist import (
+from amploop.spice.expressions import evaluate
+from amploop.spice.netlist import (
     ANALYSIS_COMMANDS,
     element_value,
     is_name,

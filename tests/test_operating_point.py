@@ -19,13 +19,13 @@ from pathlib import Path
 import pytest
 from conftest import DEMO, REPO
 
+from amploop.bench.testbench import build_testbench
 from amploop.cli import main
+from amploop.corners.measure import measure
 from amploop.errors import JobError
-from amploop.job import load_job
-from amploop.measure import measure
-from amploop.simulator import AnalysisRequest, NgspiceSession, Step
-from amploop.testbench import build_testbench
-from amploop.tune import tune
+from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 needs_poppler = pytest.mark.skipif(shutil.which("pdftotext") is None,
                                    reason="poppler-utils (pdftotext) not installed; "
@@ -91,7 +91,7 @@ def test_the_operating_point_read_from_the_ac_analysis_is_ngspices_op(tmp_path):
     """The output, inverting input and device voltages amploop reads from the AC
     analysis's kept operating point equal those of a separate ngspice ``op`` analysis of
     the same deck (reference: ngspice's own operating-point analysis)."""
-    from amploop.amplifier import prepare_amplifier
+    from amploop.bench.amplifier import prepare_amplifier
 
     job = load_job(demo_variant(tmp_path / "leak", netlist_lines=LEAK_1G, corners=1))
     amplifier = prepare_amplifier(job)

@@ -21,7 +21,7 @@ from nodal import Macromodel
 
 import amploop.report
 from amploop.cli import main
-from amploop.outputs import OutFolder
+from amploop.corners.outputs import OutFolder
 
 
 def edit(path: Path, old: str, new: str) -> None:

@@ -19,10 +19,14 @@ import pytest
 from conftest import DEMO, write_macro_job
 from nodal import Macromodel
 
+from amploop.analysis.timedomain import (
+    damping_from_phase_margin,
+    overshoot_from_damping,
+    step_metrics,
+)
 from amploop.cli import main
-from amploop.job import load_job
-from amploop.measure import measure
-from amploop.timedomain import damping_from_phase_margin, overshoot_from_damping, step_metrics
+from amploop.corners.measure import measure
+from amploop.spec.job import load_job
 
 needs_poppler = pytest.mark.skipif(shutil.which("pdftotext") is None,
                                    reason="poppler-utils (pdftotext, pdftoppm) not installed; "

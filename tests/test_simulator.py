@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from amploop.errors import SimulatorError
-from amploop.simulator import AnalysisRequest, NgspiceSession, Step, summarise_failure
+from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step, summarise_failure
 
 RC = "rc low-pass\nV1 a 0 dc 0 ac 1\nR1 a b 1k\nC1 b 0 1n\n.end\n"
 
@@ -70,7 +70,7 @@ def test_failure_summaries_are_one_readable_line():
 def test_after_work_runs_in_the_worker_and_a_failure_there_keeps_the_analysis():
     """``after`` comes back as the output's ``after``; when it raises, the analysis is
     still delivered, with ``after_error`` saying what went wrong there."""
-    from amploop.pool import WorkerPool
+    from amploop.sim.pool import WorkerPool
 
     steps = (Step("ac dec 10 1 10meg", ("v(b)",)),)
     with WorkerPool(1) as pool:
@@ -90,7 +90,7 @@ def test_no_analysis_waits_behind_a_long_one_while_a_worker_is_free():
     ones go to the free worker (neither is queued behind the long one), so the long one
     finishes last. A second task is queued behind a running one only while at least as
     many tasks wait as there are workers."""
-    from amploop.pool import WorkerPool
+    from amploop.sim.pool import WorkerPool
 
     step_rc = RC.replace("ac 1", "ac 1 pulse(0 1 0 1u 1u 1 2)")
     short = AnalysisRequest("short", RC, (Step("ac dec 10 1 10meg", ("v(b)",)),))
@@ -111,9 +111,9 @@ def test_corner_files_are_the_same_whether_the_workers_or_the_coordinator_write_
     core to spare (or remote workers) the coordinator does. Same bytes either way."""
     from conftest import DEMO
 
-    from amploop.job import load_job
-    from amploop.measure import measure
-    from amploop.pool import WorkerPool, default_workers
+    from amploop.corners.measure import measure
+    from amploop.sim.pool import WorkerPool, default_workers
+    from amploop.spec.job import load_job
 
     job = load_job(DEMO / "job.toml")
     outs = {}

@@ -20,8 +20,8 @@ from pathlib import Path
 import numpy as np
 from stopping import StopHalfwayThroughTheAnswer
 
-from amploop.pool import WorkerPool
-from amploop.simulator import AnalysisOutput, AnalysisRequest, Step
+from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest, Step
+from amploop.sim.pool import WorkerPool
 
 FAST = AnalysisRequest("fast", "* fast\nV1 a 0 dc 1\nR1 a 0 1k\n.end\n",
                        (Step("op", ("i(v1)",)),), time_limit_s=2.0)
@@ -169,7 +169,7 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
     pytest.importorskip("distributed")
     from test_cluster import local_cluster
 
-    from amploop.cluster import ClusterPool
+    from amploop.sim.cluster import ClusterPool
 
     with WorkerPool(1) as local:
         [(_, reference)] = list(local.run([(0, SHORT)]))
@@ -212,7 +212,7 @@ def test_a_worker_stopped_before_its_answer_is_fetched_costs_a_deadline(tmp_path
     pytest.importorskip("distributed")
     from test_cluster import local_cluster
 
-    from amploop.cluster import ClusterPool
+    from amploop.sim.cluster import ClusterPool
 
     with WorkerPool(1) as local:
         [(_, reference)] = list(local.run([(0, SHORT)]))

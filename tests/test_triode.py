@@ -14,18 +14,18 @@ from pathlib import Path
 import pytest
 from conftest import DEMO
 
-from amploop.cli import main
-from amploop.job import load_job
-from amploop.measure import measure
-from amploop.simulator import AnalysisRequest, NgspiceSession, Step
-from amploop.strategy.triode import (
+from amploop.analysis.triode import (
     in_triode,
     resistance_at_size,
     resistance_share_during,
     size_for_resistance,
     square_law_resistance,
 )
-from amploop.tune import tune
+from amploop.cli import main
+from amploop.corners.measure import measure
+from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 KP, VTO, W, L = 280e-6, 0.45, 3e-6, 1e-6
 

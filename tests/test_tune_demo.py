@@ -21,9 +21,9 @@ import pytest
 from conftest import DEMO, recorded_analyses
 
 from amploop.cli import main
-from amploop.job import load_job
-from amploop.measure import measure
-from amploop.tune import tune
+from amploop.corners.measure import measure
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 
 def job_copy(folder: Path, *, netlist: Path | None = None, grid: str | None = None) -> Path:

@@ -16,12 +16,12 @@ import numpy as np
 import pytest
 from nodal import Macromodel, exact_loop_gain
 
-from amploop.compmap import CompensationMap
-from amploop.job import load_job
-from amploop.measure import measure
-from amploop.pool import WorkerPool
-from amploop.strategy.twostage import lead_ratio, starting_cc, where_phase_is
-from amploop.tune import tune
+from amploop.analysis.compmap import CompensationMap
+from amploop.analysis.twostage import lead_ratio, starting_cc, where_phase_is
+from amploop.corners.measure import measure
+from amploop.sim.pool import WorkerPool
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
 
 # Three corners that differ in gm, load and feedback factor (invented values).
 CORNERS = {
@@ -272,7 +272,7 @@ def test_lead_zero_ratio_for_thirty_degrees():
 
 def test_fifty_five_degrees_is_read_where_the_phase_is_minus_125():
     """PM = 180° + ∠L: a 55° margin needs the crossover where the phase is −125°."""
-    from amploop.loopgain import FrequencyResponse
+    from amploop.analysis.loopgain import FrequencyResponse
 
     f = np.logspace(0, 10, 401)
     s = 2j * np.pi * f

@@ -17,11 +17,11 @@ import pytest
 from conftest import DEMO
 
 from amploop.cli import corner_table, main
-from amploop.job import Knob, Target, load_job
-from amploop.measure import measure
+from amploop.corners.measure import measure
+from amploop.spec.job import Knob, Target, load_job
 from amploop.strategy.common import corner_shortfall, missed_target
 from amploop.strategy.remarks import bound_remark
-from amploop.tune import tune
+from amploop.strategy.tune import tune
 
 
 def demo_copy(folder: Path, edit=lambda text: text) -> Path:

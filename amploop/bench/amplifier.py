@@ -1,0 +1,425 @@
+"""The user's amplifier as the job describes it: netlist read, ports checked, knobs located.
+
+This is the netlist stage of the pipeline: it ties the job file to the netlist text,
+finds where each compensation value is kept (a subckt parameter, a ``.param`` line, an
+element's value, or a device's size), reads the values in effect, and produces the
+text edits that set new values. It reads files but never simulates.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from amploop.errors import NetlistError, did_you_mean
+from amploop.spec.job import Job, Knob
+from amploop.spice.deckfiles import files_read
+from amploop.spice.netlist import (
+    Netlist,
+    Statement,
+    Subckt,
+    element_value,
+    read_netlist,
+    read_source,
+    render_file,
+    replace_element_value,
+    replace_instance_param,
+    replace_param,
+    tokenize,
+    value_of,
+)
+from amploop.spice.units import spice_number
+
+__all__ = ["Amplifier", "KnobSite", "prepare_amplifier"]
+
+
+@dataclass(frozen=True)
+class KnobSite:
+    """Where one compensation value lives in the netlist.
+
+    Attributes
+    ----------
+    knob
+        The job's description of it.
+    kind
+        ``"subckt-param"`` (a default in the ``.subckt`` header: overridden on the
+        instance line), ``"param"`` (a ``.param`` statement, global or inside the subckt),
+        ``"element"`` (an R or C value) or ``"device"`` (a MOSFET size).
+    statement
+        The statement that holds it (the ``.subckt`` header for subckt parameters).
+    value
+        The value in effect in the netlist, SI.
+    """
+
+    knob: Knob
+    kind: str
+    statement: Statement
+    value: float
+
+
+@dataclass(frozen=True)
+class Device:
+    """A MOSFET that stands in for Rc: its terminals (subckt nodes), model and tuned size."""
+
+    name: str
+    drain: str
+    gate: str
+    source: str
+    bulk: str
+    model: str
+    size: str  # "w", "l" or "m"
+    length: float | None  # L in metres when given (for the square law)
+
+    def quantity(self, name: str) -> str:
+        """ngspice's name of an operating-point quantity of this device inside X1."""
+        return f"@m.x1.{self.name.lower()}[{name}]"
+
+
+@dataclass(frozen=True)
+class Amplifier:
+    """A job's amplifier netlist, checked against the job and ready for testbenches.
+
+    Attributes
+    ----------
+    job
+        The job it was prepared for.
+    netlist
+        The user's netlist as read, with the job's ``includes``.
+    subckt
+        The job's subckt in it.
+    sites
+        Role (``"cc"``, ``"rc"``) -> where the netlist keeps that value.
+    control_blocks
+        ``(file, line)`` of each line that makes ngspice run commands (a ``.control``
+        block, a ``*#`` line...) in the files a testbench reads (empty unless allowed).
+    reads
+        Every file a testbench reads, transitively (:func:`amploop.spice.deckfiles.files_read`).
+    device
+        The MOSFET that stands in for Rc; None when Rc is not a device.
+    warnings
+        Remarks for the user, such as a device for Rc that touches the output.
+    """
+
+    job: Job
+    netlist: Netlist
+    subckt: Subckt
+    sites: dict[str, KnobSite]
+    control_blocks: tuple[tuple[Path, int], ...] = ()
+    reads: tuple[Path, ...] = ()
+    device: Device | None = None
+    warnings: tuple[str, ...] = ()
+
+    def node_vector(self, node: str) -> str:
+        """ngspice's vector name of the voltage of subckt node ``node`` in the testbench:
+        ``v(x1.nz)`` for an inner node, the testbench node's for a port, ``"0"`` for ground."""
+        from amploop.bench.testbench import NODE_AMP, port_node
+
+        index = self.subckt.port_index(node)
+        if node == "0":
+            return "0"
+        if index is None:
+            return f"v(x1.{node.lower()})"
+        port = self.subckt.ports[index]
+        if port.lower() == self.job.amplifier.out.lower():
+            return f"v({NODE_AMP})"
+        if port.lower() == self.job.amplifier.in_p.lower():
+            return "v(tb_inp)"
+        if port.lower() == self.job.amplifier.in_n.lower():
+            return "v(tb_inn)"
+        return f"v({port_node(port)})"
+
+    @property
+    def files(self) -> tuple[Path, ...]:
+        """Every file a testbench of this amplifier reads, transitively, for hashing and
+        bundling: the netlist's files, the job's includes, the models file and every file
+        any of them reads."""
+        return self.reads
+
+    def locate_parse_error(self, problem: str) -> str:
+        """``problem``, an ngspice parse error, prefixed with the user's file and line to fix
+        (:func:`amploop.spice.parse_errors.locate_parse_error`)."""
+        from amploop.spice.parse_errors import locate_parse_error
+
+        return locate_parse_error(self, problem)
+
+    def values_in_effect(self, overrides: dict[str, float] | None = None) -> dict[str, float]:
+        """Compensation values (SI) the netlist holds, with ``overrides`` applied."""
+        values = {role: site.value for role, site in self.sites.items()}
+        values.update(overrides or {})
+        return values
+
+    def edits(self, values: dict[str, float], params: dict[str, float]) -> tuple[
+        dict[tuple[Path, int], str], dict[str, str]
+    ]:
+        """Text edits that put ``values`` (by role) and corner ``params`` into the netlist.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
+        params
+            The corner's parameter values, SI; those the netlist also defines with a
+            global ``.param`` are rewritten there (the corner's value wins).
+
+        Returns
+        -------
+        edits, instance_params
+            ``(file, logical-line index) -> new statement text`` for statements rewritten
+            in place, and ``name -> value text`` to add on the subckt's instance line.
+        """
+        edits: dict[tuple[Path, int], str] = {}
+        instance: dict[str, str] = {}
+        current: dict[tuple[Path, int], Statement] = {}
+
+        def rewrite(statement: Statement, new_text: str) -> None:
+            key = (statement.file, statement.index)
+            edits[key] = new_text
+            # keep editing the same statement cumulatively (two params on one .param line)
+            current[key] = Statement(statement.file, statement.index, statement.line,
+                                     tuple(tokenize(new_text)), statement.subckt,
+                                     statement.section)
+
+        def latest(statement: Statement) -> Statement:
+            return current.get((statement.file, statement.index), statement)
+
+        # corner parameters that the netlist also defines globally: the corner's value wins
+        for name, value in params.items():
+            found = self.netlist.global_params.get(name.lower())
+            if found is not None:
+                statement, _ = found
+                rewrite(statement, replace_param(latest(statement), name, spice_number(value)))
+        for role, value in values.items():
+            site = self.sites[role]
+            text = spice_number(value)
+            if site.kind == "subckt-param":
+                instance[site.knob.name] = text
+            elif site.kind == "param":
+                rewrite(site.statement, replace_param(latest(site.statement), site.knob.name, text))
+            elif site.kind == "element":
+                rewrite(site.statement, replace_element_value(latest(site.statement), text))
+            elif site.kind == "device":
+                rewrite(site.statement,
+                        replace_instance_param(latest(site.statement), site.knob.size, text))
+        return edits, instance
+
+    def render(self, values: dict[str, float], params: dict[str, float]) -> tuple[
+        str, dict[str, str], list[str]
+    ]:
+        """The netlist file's text for a testbench, its instance parameters, and notes.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
+        params
+            The corner's parameter values, SI (see :meth:`edits`).
+        """
+        edits, instance = self.edits(values, params)
+        text, notes = render_file(self.netlist, self.netlist.root, edits, top_level=True)
+        return text, instance, notes
+
+    def compensated_files(self, values: dict[str, float]) -> dict[Path, str]:
+        """Copies of the user's files with ``values`` written in where the netlist keeps them.
+
+        Subckt-header defaults are rewritten in the header; everything else in place.
+        Only files that change are returned; they keep their comments and layout except
+        on the rewritten lines.
+
+        Parameters
+        ----------
+        values
+            Compensation values by role, SI (farads, ohms, or the device size).
+        """
+        changed: dict[Path, dict[int, str]] = {}
+        for role, value in values.items():
+            site = self.sites[role]
+            text = spice_number(value)
+            statement = site.statement
+            lines = changed.setdefault(statement.file, {})
+            base = lines.get(statement.index)
+            if base is not None:
+                statement = Statement(statement.file, statement.index, statement.line,
+                                      tuple(tokenize(base)), statement.subckt, statement.section)
+            if site.kind in ("subckt-param", "param"):
+                lines[statement.index] = replace_param(statement, site.knob.name, text)
+            elif site.kind == "element":
+                lines[statement.index] = replace_element_value(statement, text)
+            else:
+                lines[statement.index] = replace_instance_param(statement, site.knob.size, text)
+        result: dict[Path, str] = {}
+        for file, new_lines in changed.items():
+            source = self.netlist.files[file]
+            out: list[str] = []
+            for index, logical in enumerate(source.lines):
+                if index in new_lines:
+                    out.append(new_lines[index])
+                else:
+                    out.extend(logical.raw)
+            result[file] = "\n".join(out) + "\n"
+        return result
+
+
+def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
+    """Read the job's netlist and check it against the job.
+
+    Parameters
+    ----------
+    job
+        The loaded job.
+    allow_control
+        Accept ``.control`` blocks in the user's files (they can run shell commands).
+
+    Raises
+    ------
+    NetlistError
+        The subckt is missing, a port named in the job is not a port of the subckt, a port
+        is left unconnected, a compensation parameter, element or device does not exist,
+        or a file holds a ``.control`` block and ``allow_control`` is False.
+    """
+    netlist = read_netlist(job.amplifier.netlist)
+    inlined = frozenset(netlist.files)  # the testbench writes these into the deck as text
+    for include in job.amplifier.includes:
+        netlist.files.setdefault(include, read_source(include))
+    sections = tuple(dict.fromkeys(c.lib for c in job.corners if c.lib is not None))
+    reads = files_read(netlist, includes=job.amplifier.includes, models=job.amplifier.models,
+                       sections=sections, inlined=inlined)
+    control = tuple((path, line) for path, line, _ in reads.commands)
+    if reads.commands and not allow_control:
+        path, line, what = reads.commands[0]
+        raise NetlistError(
+            f"holds {what}", file=path, place=line,
+            hint="remove it, or pass --allow-control if you wrote it and trust it",
+        )
+    subckt = netlist.subckt(job.amplifier.subckt)
+    _check_ports(job, subckt)
+    params = {**{k: v for k, v in subckt.params.items()}}
+    global_exprs = {name: expr for name, (_, expr) in netlist.global_params.items()}
+    local = subckt.local_params()
+    sites = {}
+    for role, knob in job.compensation.items():
+        sites[role] = _locate(job, netlist, subckt, knob, global_exprs, params, local)
+    device, warnings = None, []
+    rc_site = sites.get("rc")
+    if rc_site is not None and rc_site.kind == "device":
+        device, warning = _device(job, subckt, rc_site, {**global_exprs, **params})
+        if warning:
+            warnings.append(warning)
+    return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
+                     control_blocks=control, reads=reads.files, device=device,
+                     warnings=tuple(warnings))
+
+
+def _device(job: Job, subckt: Subckt, site: KnobSite, scope: dict) -> tuple[Device, str | None]:
+    """The MOSFET's terminals and model, and a warning when it sits on the output side."""
+    statement = site.statement
+    positional = [t for t in statement.tokens[1:] if "=" not in t]
+    if len(positional) < 5:
+        raise NetlistError(f"{statement.tokens[0]}: expected drain, gate, source, bulk and model",
+                           file=statement.file, place=statement.line)
+    drain, gate, source, bulk, model = positional[:5]
+    length = None
+    for token in statement.tokens[1:]:
+        key, eq, expr = token.partition("=")
+        if eq and key.lower() == "l":
+            length = value_of(expr, scope, where=statement.where)
+    device = Device(name=statement.tokens[0], drain=drain, gate=gate, source=source, bulk=bulk,
+                    model=model, size=site.knob.size or "w", length=length)
+    out = job.amplifier.out.lower()
+    warning = None
+    if out in (drain.lower(), source.lower()):
+        warning = (
+            f"{statement.file}:{statement.line}: {device.name} touches the amplifier output "
+            f"{job.amplifier.out}: the output swings the second stage's gain times more than "
+            "the first-stage side of Cc, so its channel resistance would be modulated by the "
+            "signal; put it between the first-stage output and Cc"
+        )
+    return device, warning
+
+
+def _check_ports(job: Job, subckt: Subckt) -> None:
+    named = {
+        "[amplifier].in_p": job.amplifier.in_p,
+        "[amplifier].in_n": job.amplifier.in_n,
+        "[amplifier].out": job.amplifier.out,
+    }
+    named.update({f"[bias].{s.port}": s.port for s in job.bias.sources})
+    used: dict[str, str] = {}
+    for place, port in named.items():
+        if subckt.port_index(port) is None:
+            raise NetlistError(
+                f"{port!r} is not a port of subckt {subckt.name} (ports: {' '.join(subckt.ports)})"
+                + _close(port, subckt.ports),
+                file=job.path, place=place,
+            )
+        if port.lower() in used:
+            raise NetlistError(f"port {port!r} is connected twice (also in {used[port.lower()]})",
+                               file=job.path, place=place)
+        used[port.lower()] = place
+    for port in subckt.ports:
+        if port.lower() not in used:
+            raise NetlistError(
+                f"port {port!r} of subckt {subckt.name} is not connected",
+                file=job.path, place="[bias]",
+                hint=f'give it a source, e.g. {port} = {{ volts = "0" }}',
+            )
+
+
+def _close(name: str, choices) -> str:
+    """Only the did-you-mean part (the choices are listed already)."""
+    text = did_you_mean(name, choices)
+    return text if "did you mean" in text else ""
+
+
+def _locate(job: Job, netlist: Netlist, subckt: Subckt, knob: Knob, global_exprs: dict,
+            header_params: dict, local: dict) -> KnobSite:
+    place = f"[compensation].{knob.role}"
+    name = knob.name.lower()
+    scope = {**global_exprs, **header_params, **{k: v[1] for k, v in local.items()}}
+    if knob.where == "param":
+        if name in header_params:
+            value = value_of(header_params[name], scope, where=subckt.header.where)
+            return KnobSite(knob, "subckt-param", subckt.header, value)
+        if name in local:
+            statement, expr = local[name]
+            return KnobSite(knob, "param", statement, value_of(expr, scope, where=statement.where))
+        if name in netlist.global_params:
+            statement, expr = netlist.global_params[name]
+            return KnobSite(knob, "param", statement, value_of(expr, scope, where=statement.where))
+        known = list(header_params) + list(local) + list(netlist.global_params)
+        raise NetlistError(
+            f"{place}: no parameter {knob.name!r} in subckt {subckt.name} or a global .param"
+            + did_you_mean(knob.name, known),
+            file=netlist.root,
+        )
+    statement = subckt.element(knob.name)
+    if statement is None:
+        names = [s.tokens[0] for s in subckt.elements()]
+        raise NetlistError(
+            f"{place}: no element {knob.name!r} in subckt {subckt.name}" + did_you_mean(knob.name, names),
+            file=netlist.root, place=subckt.header.line,
+        )
+    if knob.where == "element":
+        expected = "c" if knob.role == "cc" else "r"
+        if statement.keyword[0] != expected:
+            kind = "capacitor" if expected == "c" else "resistor"
+            raise NetlistError(
+                f"{place}: {statement.tokens[0]} is not a {kind}", file=statement.file,
+                place=statement.line,
+            )
+        expr = element_value(statement)
+        return KnobSite(knob, "element", statement, value_of(expr, scope, where=statement.where))
+    # a MOSFET standing in for Rc
+    if statement.keyword[0] != "m":
+        raise NetlistError(f"{place}: {statement.tokens[0]} is not a MOSFET", file=statement.file,
+                           place=statement.line)
+    size = knob.size or "w"
+    for token in statement.tokens[1:]:
+        key, eq, expr = token.partition("=")
+        if eq and key.lower() == size:
+            return KnobSite(knob, "device", statement, value_of(expr, scope, where=statement.where))
+    if size == "m":
+        return KnobSite(knob, "device", statement, 1.0)
+    raise NetlistError(
+        f"{place}: {statement.tokens[0]} has no {size}= to tune", file=statement.file,
+        place=statement.line,
+    )

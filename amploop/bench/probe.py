@@ -1,0 +1,154 @@
+"""Loop-gain probes: the elements that break the loop, the runs they need, and the formula.
+
+A probe sits between the amplifier side of the output node (``a``: the subckt's output
+with the load capacitor) and the feedback side (``b``: the feedback network). Both probes
+leave the DC operating point alone.
+
+``double-injection`` (default)
+    A series voltage source and a shunt current source, one AC run each, combined into
+    the true return ratio with the feedback network's loading in place (Middlebrook 1975;
+    M. Tian et al., "Striving for small-signal stability", IEEE Circuits & Devices
+    Magazine 17(1), 2001). Exact for any impedances either side of the break.
+``lc``
+    The naive break: a large inductor closes the loop at DC and opens it at AC, and a
+    large capacitor drives side ``b`` from an AC source. The amplifier side then sees only
+    the load, not the feedback network, so the result is wrong wherever the feedback
+    network loads the output (a resistive divider of a few kΩ against an output resistance
+    of tens of kΩ): DC loop gain too high and phase margin off by degrees. Kept to show the
+    difference.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from amploop.analysis.loopgain import FrequencyResponse, double_injection, voltage_break
+from amploop.sim.ngspice import Step
+
+__all__ = ["DoubleInjection", "LcBreak", "Probe", "make_probe"]
+
+
+class Probe:
+    """Interface of a loop-gain probe."""
+
+    name: str = ""
+
+    def elements(self, a: str, b: str) -> list[str]:
+        """Netlist lines that break the loop between node ``a`` and node ``b``."""
+        raise NotImplementedError
+
+    def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
+        """The simulator commands, and the vectors to read after each.
+
+        Parameters
+        ----------
+        ac_command
+            The ngspice ``ac`` command of the sweep.
+        a, b
+            The amplifier-side and the feedback-side node of the break.
+        """
+        raise NotImplementedError
+
+    def loop_gain(self, reads: tuple[dict[str, np.ndarray], ...], a: str, b: str
+                  ) -> FrequencyResponse:
+        """Combine the vectors read after the steps into the loop gain.
+
+        Parameters
+        ----------
+        reads
+            The vectors read after each step, one dict per step
+            (:attr:`~amploop.sim.ngspice.AnalysisOutput.reads`).
+        a, b
+            The amplifier-side and the feedback-side node of the break.
+        """
+        raise NotImplementedError
+
+
+@dataclass(frozen=True)
+class DoubleInjection(Probe):
+    """Series voltage plus shunt current injection, two AC runs in one simulator session.
+
+    Attributes
+    ----------
+    name
+        The probe's name, as ``[analysis].probe`` gives it.
+    """
+
+    name: str = "double-injection"
+
+    def elements(self, a: str, b: str) -> list[str]:
+        """``Vprobe`` with its + terminal at ``b`` and its − at ``a`` (AC 1), and ``Iprobe``
+        from ground into ``a`` (AC 0 until the second run)."""
+        return [
+            f"Vprobe {b} {a} dc 0 ac 1",
+            f"Iprobe 0 {a} dc 0 ac 0",
+        ]
+
+    def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
+        """Run 1 of ``ac_command`` with the voltage injection (reads v(``a``) and v(``b``)),
+        the two ``alter`` commands that swap the injections, and run 2 with the current
+        injection (reads i(vprobe))."""
+        return (
+            Step(ac_command, ("frequency", f"v({a})", f"v({b})")),
+            Step("alter vprobe acmag=0"),
+            Step("alter iprobe acmag=1"),
+            Step(ac_command, ("frequency", "i(vprobe)")),
+        )
+
+    def loop_gain(self, reads, a, b):
+        """T from run 1's v(``a``) and v(``b``) and run 2's i(vprobe) in ``reads``
+        (:func:`~amploop.analysis.loopgain.double_injection`)."""
+        run1, run2 = reads[0], reads[3]
+        values = double_injection(run1[f"v({a})"], run1[f"v({b})"], run2["i(vprobe)"])
+        return FrequencyResponse(np.real(run1["frequency"]), values)
+
+
+@dataclass(frozen=True)
+class LcBreak(Probe):
+    """Large-L/large-C break with a voltage injection: one AC run, loading not preserved.
+
+    Attributes
+    ----------
+    name
+        The probe's name, as ``[analysis].probe`` gives it.
+    inductance_h
+        The inductor that closes the loop at DC and opens it at AC, henries.
+    capacitance_f
+        The capacitor that couples the AC source into side ``b``, farads.
+    """
+
+    name: str = "lc"
+    inductance_h: float = 1e9
+    capacitance_f: float = 1.0
+
+    def elements(self, a: str, b: str) -> list[str]:
+        """``Lprobe`` from ``a`` to ``b``, and ``Cprobe`` from ``b`` to an AC 1 source to
+        ground."""
+        return [
+            f"Lprobe {a} {b} {self.inductance_h:.17g}",
+            f"Cprobe {b} probe_drive {self.capacitance_f:.17g}",
+            "Vprobe probe_drive 0 dc 0 ac 1",
+        ]
+
+    def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
+        """One run of ``ac_command``, reading v(``a``) and v(``b``)."""
+        return (Step(ac_command, ("frequency", f"v({a})", f"v({b})")),)
+
+    def loop_gain(self, reads, a, b):
+        """T = −v(``a``)/v(``b``) from the one run in ``reads``
+        (:func:`~amploop.analysis.loopgain.voltage_break`)."""
+        run = reads[0]
+        return FrequencyResponse(np.real(run["frequency"]),
+                                 voltage_break(run[f"v({a})"], run[f"v({b})"]))
+
+
+def make_probe(kind: str) -> Probe:
+    """The probe for ``kind``, a value of ``[analysis].probe``: ``"double-injection"`` or
+    ``"lc"`` (ValueError for another)."""
+    if kind == "double-injection":
+        return DoubleInjection()
+    if kind == "lc":
+        return LcBreak()
+    raise ValueError(f"unknown probe {kind!r}")

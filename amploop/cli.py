@@ -1,0 +1,458 @@
+"""The ``amploop`` command line: a thin layer over the Python functions.
+
+This is the only module that maps errors to exit codes and prints them.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from enum import IntEnum
+
+from amploop import __version__
+from amploop.errors import (
+    AmploopError,
+    JobError,
+    JournalError,
+    MeasurementError,
+    NetlistError,
+    OutputError,
+    SimulatorError,
+    TuningError,
+)
+from amploop.spice.units import engineering
+
+__all__ = ["ExitCode", "main"]
+
+
+class ExitCode(IntEnum):
+    """Exit codes of the ``amploop`` command."""
+
+    OK = 0
+    SIMULATOR_FAILURE = 1  # a corner could not be simulated or measured
+    BAD_INPUT = 2  # the job file, the netlist or the command line is wrong
+    INFEASIBLE = 3  # no compensation within the bounds meets the target
+    INTERRUPTED = 130
+
+
+def _exit_code(error: AmploopError) -> ExitCode:
+    if isinstance(error, (JobError, NetlistError, TuningError)):
+        return ExitCode.BAD_INPUT
+    if isinstance(error, (SimulatorError, MeasurementError)):
+        return ExitCode.SIMULATOR_FAILURE
+    if isinstance(error, (OutputError, JournalError)):
+        return ExitCode.BAD_INPUT
+    return ExitCode.SIMULATOR_FAILURE
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="amploop",
+        description="Measure the loop gain of a two-stage amplifier in its feedback loop at "
+        "every corner, and tune its Miller compensation.",
+        epilog="Results are only as good as the device models; sign-off stays with your own "
+        "models, flow and foundry rules.",
+    )
+    parser.add_argument("--version", action="version", version=f"amploop {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("job", help="the job file (TOML)")
+    common.add_argument("--out", required=True, metavar="DIR", help="out folder")
+    common.add_argument("--set", action="append", default=[], metavar="ROLE=VALUE",
+                        help="set a compensation value by its role, e.g. --set cc=1.5p")
+    common.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes (default: the CPU count)")
+    common.add_argument("--cluster", default=None, metavar="ADDRESS",
+                        help="run the analyses on the workers of a Dask cluster, given by its "
+                        "scheduler's address (e.g. tcp://scheduler-host:8786)")
+    common.add_argument("--allow-control", action="store_true",
+                        help="run .control blocks found in your netlist (they can run commands)")
+    common.add_argument("--quiet", action="store_true", help="print only errors")
+    common.add_argument("--json", action="store_true",
+                        help="print one JSON summary line instead of the table")
+    common.add_argument("--no-report", action="store_true",
+                        help="skip report.pdf and the step checks it shows")
+    pages = argparse.ArgumentParser(add_help=False)
+    pages.add_argument("--all-corner-pages", action="store_true",
+                       help="a report page for every corner (by default a long corner list "
+                       "gets an overview page and pages for the worst few only)")
+    pages.add_argument("--corner-page", action="append", default=[], metavar="CORNER",
+                       help="also give this corner a report page (repeatable)")
+
+    commands.add_parser("measure", parents=[common, pages], help="measure loop gain and margins",
+                        description="Measure the loop gain and its margins at every corner.")
+    tune = commands.add_parser(
+        "tune", parents=[common, pages], help="choose Cc and Rc for the target margin",
+        description="Choose Cc and Rc so that the worst corner meets the target phase margin "
+        "with the least bandwidth given away.")
+    tune.add_argument("--strategy", default="map", choices=["map", "textbook"],
+                      help="map (default): exact compensation map; textbook: the two-step "
+                      "hand procedure")
+    tune.add_argument("--resume", action="store_true",
+                      help="continue an interrupted run in the same out folder")
+    report = commands.add_parser(
+        "report", parents=[pages], help="rebuild report.pdf of an out folder (no simulation)",
+        description="Draw report.pdf and its PNG pages from an out folder's results.json and "
+        "journal, without simulating.")
+    report.add_argument("out", metavar="OUTDIR", help="an out folder of measure or tune")
+    report.add_argument("--no-png", action="store_true", help="write the PDF only")
+    return parser
+
+
+def _page_progress(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int) -> None:
+        sys.stderr.write(f"\r  report: page {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def _write_report(out, args, *, quiet: bool, pngs: bool = True) -> None:
+    from amploop.report import build_report
+
+    outcome = build_report(out, pngs=pngs, corner_pages=args.corner_page,
+                           all_corner_pages=args.all_corner_pages,
+                           progress=_page_progress(quiet))
+    if not quiet:
+        print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
+
+
+def _run_report(args) -> ExitCode:
+    from amploop.corners.outputs import is_folder
+
+    if not is_folder(args.out):
+        raise OutputError("not a folder", file=args.out)
+    _write_report(args.out, args, quiet=False, pngs=not args.no_png)
+    return ExitCode.OK
+
+
+def _table(rows: list[list[str]], header: list[str]) -> str:
+    widths = [max(len(header[i]), *(len(r[i]) for r in rows)) for i in range(len(header))]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths))]
+    lines.append("  ".join("-" * w for w in widths))
+    for row in rows:
+        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w)
+                               for i, (c, w) in enumerate(zip(row, widths))))
+    return "\n".join(lines)
+
+
+def _figure(value, fmt: str) -> str:
+    return "–" if value is None else format(value, fmt)
+
+
+def _corner_note(corner, target) -> str:
+    """``ok``, ``SUSPECT``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956
+    dB < 10 dB``); followed by ``gmin`` where its operating point needed gmin stepping."""
+    from amploop.bench.oppoint import status_label
+
+    label = status_label(corner.status, corner.warnings)
+    if corner.status == "ok" and target is not None:
+        from amploop.strategy.common import corner_shortfall
+
+        missed = corner_shortfall(corner, target)
+        if missed:
+            return missed + label[len("ok"):]
+    return label
+
+
+def corner_table(corners, target=None) -> str:
+    """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
+    corner that misses the ``target`` says which margin and by how much)."""
+    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover",
+              "out - CM", "note"]
+    rows = []
+    for c in corners:
+        m = c.margins
+        op = c.operating_point
+        rows.append([
+            c.corner.name,
+            _figure(m and m.dc_loop_gain_db, ".1f"),
+            engineering(m and m.unity_gain_hz, "Hz"),
+            _figure(m and m.phase_margin_deg, ".2f"),
+            _figure(m and m.gain_margin_db, ".2f"),
+            engineering(m and m.phase_crossover_hz, "Hz"),
+            engineering(op and op.output_shift_v, "V"),
+            _corner_note(c, target),
+        ])
+    return _table(rows, header)
+
+
+_SUSPECT_LINES = 5  # suspect corners named one by one; the rest are counted
+
+
+def print_corner_remarks(corners) -> None:
+    """On stderr: each suspect corner's reason, then each simulator warning once with the
+    corners it hit and what it means."""
+    from amploop.bench.oppoint import warning_advice
+
+    suspect = [c for c in corners if c.status == "suspect"]
+    for c in suspect[:_SUSPECT_LINES]:
+        print(f"amploop: suspect: corner {c.corner.name}: {c.suspect_reason}", file=sys.stderr)
+    if len(suspect) > _SUSPECT_LINES:
+        print(f"amploop: suspect: {len(suspect) - _SUSPECT_LINES} more corners (each one's "
+              "reason is in results.json)", file=sys.stderr)
+    by_warning: dict[str, list[str]] = {}
+    for c in corners:
+        for warning in c.warnings:
+            by_warning.setdefault(warning, []).append(c.corner.name)
+    for warning, names in by_warning.items():
+        advice = warning_advice(warning)
+        print(f"amploop: warning: {warning} ({_who(names, len(corners))})"
+              + (f": {advice}" if advice else ""), file=sys.stderr)
+
+
+def _progress_printer(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int, result) -> None:
+        sys.stderr.write(f"\r  corners {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def _values_line(job, values: dict) -> str:
+    """``cc = 292.8 fF, rc = 20 kΩ``, or the device's size when one stands in for Rc."""
+    parts = []
+    for role, value in values.items():
+        knob = job.compensation.get(role)
+        if knob is not None and knob.where == "device":
+            unit = "" if knob.size == "m" else "m"
+            parts.append(f"{knob.name} {knob.size} = {engineering(value, unit, 4)}")
+        else:
+            parts.append(f"{role} = {engineering(value, 'F' if role == 'cc' else 'Ω', 4)}")
+    return ", ".join(parts)
+
+
+def _who(names: list[str], total: int) -> str:
+    """``corner a``, ``corners a, b``, ``corners a, b, c and 4 more``, ``all 9 corners``."""
+    if len(names) == total and total > 1:
+        return f"all {total} corners"
+    if len(names) > 3:
+        return f"corners {', '.join(names[:3])} and {len(names) - 3} more"
+    return ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
+
+
+def _print_corner_errors(failed, total: int) -> None:
+    """One line per distinct problem, naming the corners it hit."""
+    by_problem: dict[str, list[str]] = {}
+    for c in failed:
+        by_problem.setdefault(c.error or "failed", []).append(c.corner.name)
+    for problem, names in by_problem.items():
+        print(f"amploop: error: {problem} ({_who(names, total)})", file=sys.stderr)
+
+
+def _cluster_pool(args):
+    """A ClusterPool for ``--cluster`` (a context manager), else one that gives None."""
+    if args.cluster is None:
+        from contextlib import nullcontext
+
+        return nullcontext(None)
+    from amploop.sim.cluster import ClusterPool
+
+    return ClusterPool(args.cluster)
+
+
+def _run_measure(args) -> ExitCode:
+    from amploop.corners.measure import measure
+    from amploop.spec.job import load_job, parse_overrides
+
+    job = load_job(args.job)
+    overrides = parse_overrides(args.set, job)
+
+    def finish(result) -> None:
+        """Print the results and draw the report while the out folder is still held."""
+        failed = [c for c in result.corners if c.status == "error"]
+        suspect = [c for c in result.corners if c.status == "suspect"]
+        if args.json:
+            summary = result.as_json()
+            print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
+                             | {"failed_corners": [c.corner.name for c in failed],
+                                "suspect_corners": [c.corner.name for c in suspect],
+                                "out": str(result.out)}))
+        elif not args.quiet:
+            values = _values_line(job, result.values)
+            print(f"job {job.name}: {len(result.corners)} corners at {values}")
+            print(corner_table(result.corners))
+            print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
+                  f"{result.seconds:.1f} s; results in {result.out}")
+        if not args.quiet:
+            for warning in result.warnings:
+                print(f"amploop: warning: {warning}", file=sys.stderr)
+            print_corner_remarks(result.corners)
+        _print_corner_errors(failed, len(result.corners))
+        if not args.no_report and any(c.margins is not None for c in result.corners):
+            _write_report(result.out, args, quiet=args.quiet or args.json)
+
+    with _cluster_pool(args) as pool:
+        result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
+                         pool=pool, allow_control=args.allow_control,
+                         progress=_progress_printer(args.quiet), time_domain=not args.no_report,
+                         finish=finish)
+    failed = [c for c in result.corners if c.status == "error"]
+    suspect = [c for c in result.corners if c.status == "suspect"]
+    if failed:
+        if all(c.error and "parse error" in c.error for c in failed):
+            return ExitCode.BAD_INPUT
+        return ExitCode.SIMULATOR_FAILURE
+    return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
+
+
+TUNE_PROGRESS_KEY = ("  each point: worst-corner phase margin at worst-corner unity-gain frequency; "
+                     "best: the point so far that meets the target with the most bandwidth")
+
+
+def tune_progress_line(entry, best: dict, target) -> str:
+    """The tune progress line after history entry ``entry`` (read with
+    :data:`TUNE_PROGRESS_KEY`): the running answer first, the point so far that meets
+    ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
+    report's samples do not count), then what this point gave."""
+    from amploop.strategy.common import meets_target
+
+    w = entry.worst
+    if w is not None and entry.kind != "report-map" and meets_target(w, target) \
+            and (not best or w.unity_gain_hz > best["ugf"]):
+        best.update(ugf=w.unity_gain_hz, pm=w.phase_margin_deg, step=entry.step)
+    answer = "none yet" if not best else \
+        f"{best['pm']:.2f}° at {engineering(best['ugf'], 'Hz')} (step {best['step']})"
+    this = "a corner did not measure" if w is None else \
+        f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
+    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {entry.kind}: "
+            f"{this} | {entry.ac_analyses} AC")
+
+
+def _tune_progress(quiet: bool, job):
+    if quiet or not sys.stderr.isatty():
+        return None
+    best: dict = {}
+
+    def show(entry) -> None:
+        import shutil
+
+        if not best and entry.step == 1:
+            sys.stderr.write(TUNE_PROGRESS_KEY + "\n")
+        width = shutil.get_terminal_size((100, 24)).columns - 1
+        line = "  " + tune_progress_line(entry, best, job.target)
+        sys.stderr.write("\r" + line[:width].ljust(width))
+        sys.stderr.flush()
+
+    return show
+
+
+def _run_tune(args) -> ExitCode:
+    from amploop.spec.job import load_job, parse_overrides
+    from amploop.strategy.tune import tune
+
+    job = load_job(args.job)
+    if args.set:
+        raise JobError("tune chooses the compensation itself; --set is for measure",
+                       place="--set")
+    parse_overrides(args.set, job)
+
+    def finish(result) -> None:
+        """Print the results and draw the report while the out folder is still held."""
+        if not args.quiet and sys.stderr.isatty():
+            sys.stderr.write("\n")
+        data = result.as_json()
+        if args.json:
+            print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
+                                                   "limiting_corner", "worst", "ac_analyses")}
+                             | {"message": result.outcome.message, "out": str(result.out)}))
+        elif not args.quiet:
+            values = _values_line(job, result.outcome.values)
+            print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
+            print(corner_table(result.corners, job.target))
+            print(result.outcome.message)
+            print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, "
+                  f"{len(result.history)} points in {result.seconds:.1f} s; results in "
+                  f"{result.out}")
+            if data["compensated_netlist"] and data["compensated_netlist"]["path"]:
+                print(f"compensated netlist: {data['compensated_netlist']['path']}")
+            elif result.status != "converged":
+                print(f"no compensated netlist written: the run is {result.status}")
+        if not args.no_report and result.outcome.final is not None:
+            _write_report(result.out, args, quiet=args.quiet or args.json)
+        if not args.quiet:
+            for warning in data.get("warnings", []):
+                print(f"amploop: warning: {warning}", file=sys.stderr)
+            print_corner_remarks(result.corners)
+            device = data.get("device")
+            if device and not args.json:
+                print(f"{device['name']} at {device['size']} = "
+                      f"{engineering(device['value'], 'm', 4)}: resistance per corner "
+                      "(simulator / square law / wanted by that corner alone)")
+                for name, info in device["corners"].items():
+                    print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
+                          f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
+                          f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
+
+    with _cluster_pool(args) as pool:
+        result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
+                      pool=pool, allow_control=args.allow_control, resume=args.resume,
+                      progress=_tune_progress(args.quiet, job),
+                      time_domain=not args.no_report, finish=finish)
+    if result.status == "converged":
+        return ExitCode.OK
+    print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)
+    return ExitCode.INFEASIBLE if result.status == "infeasible" else ExitCode.SIMULATOR_FAILURE
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``amploop`` command; returns the exit code.
+
+    Parameters
+    ----------
+    argv
+        The command line after the program name; None for ``sys.argv[1:]``.
+    """
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if getattr(args, "workers", None) is not None and args.workers < 1:
+        parser.error("--workers must be at least 1")
+    if getattr(args, "cluster", None) is not None and args.workers is not None:
+        parser.error("--workers and --cluster exclude each other (a cluster's workers are "
+                     "set where they are started)")
+    try:
+        if args.command in ("measure", "tune") and args.cluster is None:
+            from amploop.sim.pool import start_fork_server
+
+            start_fork_server()  # its imports overlap with reading the job
+        if args.command == "measure":
+            return int(_run_measure(args))
+        if args.command == "tune":
+            return int(_run_tune(args))
+        if args.command == "report":
+            return int(_run_report(args))
+        parser.error(f"unknown command {args.command}")
+    except AmploopError as error:
+        print(f"amploop: error: {error}", file=sys.stderr)
+        return int(_exit_code(error))
+    except KeyboardInterrupt:
+        print("amploop: interrupted; finished results are in the out folder", file=sys.stderr)
+        return int(ExitCode.INTERRUPTED)
+    except Exception as exc:  # noqa: BLE001 - the last line of defence: one line, not a traceback
+        import os
+        import traceback
+
+        if os.environ.get("AMPLOOP_DEBUG"):
+            traceback.print_exc()
+        where = traceback.extract_tb(exc.__traceback__)[-1]
+        print(f"amploop: internal error: {type(exc).__name__}: {exc} (at "
+              f"{os.path.basename(where.filename)}:{where.lineno}; finished results are in the out "
+              "folder; AMPLOOP_DEBUG=1 shows the traceback; please report it)", file=sys.stderr)
+        return int(ExitCode.SIMULATOR_FAILURE)
+    return int(ExitCode.OK)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,472 @@
+"""``amploop measure``: the loop gain and margins of the amplifier at every corner.
+
+Callable from Python as :func:`measure`; the command line is a thin layer over it.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from amploop.analysis.loopgain import FrequencyResponse
+from amploop.analysis.margins import Margins, loop_margins
+from amploop.bench.amplifier import Amplifier, prepare_amplifier
+from amploop.bench.oppoint import OperatingPoint, OperatingPointLimits, corner_status
+from amploop.bench.testbench import Testbench, build_testbench
+from amploop.corners.outputs import OutFolder, loop_gain_csv, remove_stale, write_into
+from amploop.corners.portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
+from amploop.errors import AmploopError, MeasurementError
+from amploop.sim.journal import Journal, file_digests
+from amploop.sim.pool import WorkerPool, default_workers
+from amploop.sim.runner import Runner
+from amploop.spec.job import Corner, Job, safe_filename
+
+__all__ = [
+    "CornerResult",
+    "CornerWork",
+    "MeasureResult",
+    "assess_loop_gain",
+    "corner_files",
+    "measure",
+]
+
+SCHEMA = 1
+#: The journal's file name inside an out folder.
+JOURNAL_FILE = "journal.sqlite"
+
+
+@dataclass(frozen=True)
+class CornerResult:
+    """One corner's measurement.
+
+    ``status`` is ``"ok"``, ``"suspect"`` or ``"error"``. On error ``error`` says why and
+    the margins hold what could still be read (possibly nothing). A suspect corner has its
+    margins, but the operating point behind them is broken or its DC loop gain too low
+    (:func:`~amploop.bench.oppoint.corner_status`); ``suspect_reason`` says which.
+
+    Attributes
+    ----------
+    corner
+        The corner measured.
+    status
+        ``"ok"``, ``"suspect"`` or ``"error"``.
+    error
+        Why the corner failed (the simulator's problem, or why its loop gain is unusable);
+        None unless it is ``"error"``.
+    margins
+        The margins read off the loop gain; None when there is no loop gain.
+    loop_gain
+        The measured loop gain; None when the analysis failed or its output was unusable.
+    warnings
+        The simulator's warnings of its analysis (gmin stepping, transient-op fallback).
+    operating_point
+        The DC operating point of its analysis; None when it could not be read.
+    suspect_reason
+        Why a ``"suspect"`` corner's margins cannot be trusted (one sentence); else None.
+    """
+
+    corner: Corner
+    status: str
+    error: str | None = None
+    margins: Margins | None = None
+    loop_gain: FrequencyResponse | None = field(default=None, repr=False)
+    warnings: tuple[str, ...] = ()
+    operating_point: OperatingPoint | None = None
+    suspect_reason: str | None = None
+
+    @property
+    def problem(self) -> str | None:
+        """Why the corner is not ``"ok"`` (its error or its suspect reason); None when it is."""
+        return self.error or self.suspect_reason
+
+    def as_json(self) -> dict:
+        """The corner's entry in results.json: the corner, status, error, figures, warnings."""
+        figures = dict.fromkeys(
+            ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
+             "phase_crossover_hz"))
+        if self.margins is not None:
+            figures.update(self.margins.as_dict())
+        return {
+            "name": self.corner.name,
+            "lib": self.corner.lib,
+            "temp": self.corner.temp,
+            "params": dict(self.corner.params),
+            "status": self.status,
+            "error": self.error,
+            "suspect_reason": self.suspect_reason,
+            **figures,
+            "operating_point": self.operating_point and self.operating_point.as_json(),
+            "warnings": list(self.warnings),
+        }
+
+
+@dataclass(frozen=True)
+class MeasureResult:
+    """The whole measurement: values in effect, every corner, analysis counts.
+
+    Attributes
+    ----------
+    job
+        The job measured.
+    values
+        The compensation values in effect by role, SI (the netlist's with the overrides).
+    corners
+        One result per corner, in the job's order.
+    ac_run, ac_reused
+        AC analyses simulated, and AC analyses taken from the journal.
+    out
+        The out folder; None when nothing was written.
+    seconds
+        Wall time of the measurement, seconds.
+    keys
+        Corner name -> journal key of its loop-gain analysis.
+    step_checks
+        Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` (empty when not run).
+    transient_run, transient_reused
+        Transient analyses simulated, and transient analyses taken from the journal.
+    simulator_seconds
+        Wall time the workers spent inside ngspice on the analyses simulated, seconds.
+    warnings
+        Remarks on the amplifier for the user (:attr:`~amploop.bench.amplifier.Amplifier.warnings`),
+        then the journal's (:meth:`~amploop.sim.journal.Journal.notes`: damaged records recomputed).
+    """
+
+    job: Job
+    values: dict[str, float]
+    corners: tuple[CornerResult, ...]
+    ac_run: int
+    ac_reused: int
+    out: Path | None
+    seconds: float = 0.0
+    keys: dict = field(default_factory=dict)  # corner -> journal key of its analysis
+    step_checks: dict = field(default_factory=dict)
+    transient_run: int = 0
+    transient_reused: int = 0
+    simulator_seconds: float = 0.0
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def status(self) -> str:
+        """``"failed"`` when a corner failed, else ``"suspect"`` when one is suspect, else
+        ``"ok"``."""
+        if any(c.status == "error" for c in self.corners):
+            return "failed"
+        return "suspect" if any(c.status == "suspect" for c in self.corners) else "ok"
+
+    def as_json(self) -> dict:
+        """The content of results.json for this measurement."""
+        from amploop.corners.stepcheck import with_step
+
+        corners = []
+        for c in self.corners:
+            data = with_step(c.as_json(), self.step_checks.get(c.corner.name))
+            data["analysis"] = self.keys.get(c.corner.name)
+            corners.append(data)
+        return {
+            "schema": SCHEMA,
+            "command": "measure",
+            "job": self.job.name,
+            "status": self.status,
+            "values": dict(self.values),
+            "corners": corners,
+            "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+            "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
+            "probe": self.job.analysis.probe,
+            "job_file": str(self.job.path),
+            "seconds": self.seconds,
+            "warnings": list(self.warnings),
+        }
+
+
+def assess_loop_gain(response: FrequencyResponse, op: OperatingPoint | None = None,
+                     limits: OperatingPointLimits | None = None
+                     ) -> tuple[Margins, str, str | None]:
+    """Margins of a measured loop gain, the corner's status and the reason for it.
+
+    A loop that is positive feedback at DC (phase near ±180° at the lowest frequency) or
+    never crosses 0 dB within the sweep is an error; one whose margins exist but whose
+    operating point ``op`` is broken, or whose DC loop gain is below the limit, is suspect
+    (:func:`~amploop.bench.oppoint.corner_status`). The figures that exist are kept.
+
+    Parameters
+    ----------
+    response
+        The measured loop gain of one corner.
+    op
+        Its DC operating point (None: not read).
+    limits
+        The job's ``[operating_point]`` limits (None: the defaults).
+
+    Returns
+    -------
+    margins, status, reason
+        ``status`` is ``"ok"`` (``reason`` None), ``"suspect"`` or ``"error"``.
+    """
+    margins = loop_margins(response)
+    status, reason = corner_status(response, margins, op, limits or OperatingPointLimits())
+    return margins, status, reason
+
+
+def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
+    """A unique, file-name-safe stem per corner name of ``corners`` (``-2``, ``-3``, ...
+    added where two stems would otherwise be the same, ignoring case)."""
+    stems: dict[str, str] = {}
+    used: set[str] = set()
+    for corner in corners:
+        stem = safe_filename(corner.name)
+        candidate, n = stem, 2
+        while candidate.lower() in used:
+            candidate, n = f"{stem}-{n}", n + 1
+        used.add(candidate.lower())
+        stems[corner.name] = candidate
+    return stems
+
+
+def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = None
+                       ) -> CornerResult:
+    """Turn a worker's answer (output or SimulatorError) into a corner result."""
+    if isinstance(output, AmploopError):
+        problem = output.problem
+        if amplifier is not None and problem.startswith("parse error"):
+            problem = amplifier.locate_parse_error(problem)
+        return CornerResult(corner=bench.corner, status="error", error=problem)
+    try:
+        response = bench.loop_gain(output)
+    except (ValueError, KeyError) as exc:
+        return CornerResult(corner=bench.corner, status="error",
+                            error=f"unusable simulator output: {exc}")
+    if not np.all(np.isfinite(response.values)):
+        return CornerResult(corner=bench.corner, status="error",
+                            error="the simulator returned non-finite loop-gain values")
+    op = bench.operating_point(output)
+    # figures a worker already read off (CornerWork), else read them here
+    margins, status, reason = output.after if output.after is not None else \
+        assess_loop_gain(response, op, bench.op_probe and bench.op_probe.limits)
+    return CornerResult(
+        corner=bench.corner,
+        status=status,
+        error=reason if status == "error" else None,
+        margins=margins,
+        loop_gain=response,
+        warnings=output.warnings,
+        operating_point=op,
+        suspect_reason=reason if status == "suspect" else None,
+    )
+
+
+@dataclass(frozen=True)
+class CornerWork:
+    """What a local worker does with a corner's finished analysis before sending it back:
+    the margins (:func:`assess_loop_gain`) and the corner's two files in the out folder,
+    the loop-gain CSV and the deck to rerun by hand.
+
+    Done in the worker that ran the analysis, so that with as many workers as cores the
+    coordinator only records results and never becomes the bottleneck. Paths are
+    relative to ``folder`` (absolute). Returns ``(margins, status, reason)``; a write that fails
+    raises :class:`~amploop.errors.OutputError` there, which comes back as the output's
+    ``after_error``, and the coordinator then does the work itself and reports it.
+
+    Attributes
+    ----------
+    bench
+        The corner's testbench.
+    folder
+        The out folder (absolute).
+    csv
+        Where the loop-gain CSV goes, relative to ``folder``.
+    deck
+        Where the deck to rerun by hand goes, relative to ``folder``.
+    data_file
+        The file that deck writes its loop gain to, relative to where ngspice runs it.
+    includes
+        Where the files the deck reads were copied (:func:`~amploop.corners.portable_decks.copy_includes`),
+        so that the deck names them relative to itself.
+    """
+
+    bench: Testbench
+    folder: Path
+    csv: str
+    deck: str
+    data_file: str
+    includes: PortableIncludes = NO_COPIES
+
+    @classmethod
+    def for_corner(cls, bench: Testbench, folder: Path, stem: str,
+                   includes: PortableIncludes = NO_COPIES) -> CornerWork:
+        """The work for one corner: its testbench ``bench``, the out folder ``folder``
+        (absolute), its files named from ``stem`` (:func:`corner_files`), and where the
+        files its deck reads were copied (``includes``)."""
+        return cls(bench=bench, folder=folder, csv=f"loop_gain/{stem}.csv",
+                   deck=f"{DECKS}/{stem}.cir", data_file=f"{stem}-loop_gain.txt",
+                   includes=includes)
+
+    def files(self, result: CornerResult) -> list[str]:
+        """The files :meth:`write_files` writes for the corner's ``result``, relative to
+        the folder."""
+        return [self.deck] + ([self.csv] if result.loop_gain is not None else [])
+
+    def write_files(self, response: FrequencyResponse | None) -> None:
+        """The deck to rerun by hand (naming the files it reads relative to itself), and the
+        loop-gain CSV when there is a loop gain (``response``); written in place (a rerun
+        writes them again)."""
+        deck = self.includes.rewrite(self.bench.hand_deck(data_file=self.data_file))
+        write_into(self.folder, self.deck, deck, atomic=False)
+        if response is not None:
+            write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
+
+    def __call__(self, output) -> tuple[Margins, str, str | None]:
+        response = self.bench.loop_gain(output)
+        probe = self.bench.op_probe
+        figures = assess_loop_gain(response, self.bench.operating_point(output),
+                                   probe and probe.limits)
+        self.write_files(response)
+        return figures
+
+
+def measure(
+    job: Job,
+    *,
+    out: str | Path | None = None,
+    overrides: dict[str, float] | None = None,
+    workers: int | None = None,
+    pool: WorkerPool | None = None,
+    allow_control: bool = False,
+    progress: Callable[[int, int, CornerResult], None] | None = None,
+    time_domain: bool = True,
+    finish: Callable[[MeasureResult], None] | None = None,
+) -> MeasureResult:
+    """Measure the loop gain and margins at every corner of ``job``.
+
+    Parameters
+    ----------
+    job
+        A loaded job (:func:`amploop.spec.job.load_job`).
+    out
+        Out folder for results.json, per-corner CSVs and decks; None writes nothing.
+    overrides
+        Compensation values by role (SI), e.g. ``{"cc": 1.5e-12}``.
+    workers
+        Worker processes when no ``pool`` is given (default: the CPU count).
+    pool
+        An existing worker pool to use.
+    allow_control
+        Accept ``.control`` blocks in the user's files.
+    progress
+        Called after each corner with (done, total, result).
+    time_domain
+        Also run the closed-loop step check per corner (for the report; one transient
+        each, journalled like the AC analyses).
+    finish
+        Called with the result once results.json is written, while the out folder is still
+        held, so that nothing changes the folder before it is done (the command line
+        prints the table and draws the report there).
+
+    Returns
+    -------
+    MeasureResult
+        One :class:`CornerResult` per corner in the job's order. A failing corner never
+        loses the others' results.
+    """
+    started = time.perf_counter()
+    amplifier = prepare_amplifier(job, allow_control=allow_control)
+    values = amplifier.values_in_effect(overrides)
+    benches = {c.name: build_testbench(amplifier, c, values) for c in job.corners}
+    if out is None:
+        result = _measure_into(job, amplifier, values, benches, None, None, pool, workers,
+                               progress, started, time_domain)
+        if finish is not None:
+            finish(result)
+        return result
+    folder = OutFolder(out)
+    with folder.lock():
+        with Journal(folder.path / JOURNAL_FILE) as journal:
+            result = _measure_into(job, amplifier, values, benches, folder, journal, pool,
+                                   workers, progress, started, time_domain)
+        if finish is not None:
+            finish(result)
+    return result
+
+
+def _measure_into(job, amplifier, values, benches, folder, journal, pool, workers, progress,
+                  started, time_domain) -> MeasureResult:
+    from amploop.corners.stepcheck import run_step_checks, step_stop_s
+
+    stems = corner_files(job.corners)
+    results: dict[str, CornerResult] = {}
+    own_pool = pool is None
+    pool = pool or WorkerPool(workers)
+    runner = Runner(pool, journal, file_digests(amplifier.files))
+    works = {}
+    if folder is not None:
+        includes = copy_includes(folder.path, next(iter(benches.values())).deck)
+        works = {name: CornerWork.for_corner(b, folder.path, stems[name], includes)
+                 for name, b in benches.items()}
+    # with a core to spare the coordinator does this while the workers simulate; with
+    # every core busy simulating, each worker does its own corners' share
+    in_workers = folder is not None and pool.shares_files and pool.size >= default_workers()
+    requests = [(name, b.request(job.analysis.time_limit_s,
+                                 after=works[name] if in_workers else None))
+                for name, b in benches.items()]
+    checks = {}
+    interrupted = False
+    try:
+        for name, output, _reused in runner.run(requests):
+            bench = benches[name]
+            result = result_from_output(bench, output, amplifier)
+            results[name] = result
+            if folder is not None and getattr(output, "after", None) is None:
+                # not done in a worker: taken from the journal, a remote or failed
+                # analysis, or a worker whose write failed (its after_error)
+                works[name].write_files(result.loop_gain)
+            if progress is not None:
+                progress(len(results), len(benches), result)
+        if time_domain:
+            ok = tuple(results[c.name].corner for c in job.corners
+                       if c.name in results and results[c.name].status == "ok")
+            stop_s = step_stop_s(amplifier, [results[c.name].margins.unity_gain_hz
+                                             for c in ok])
+            checks = run_step_checks(amplifier, ok, values, runner, stop_s,
+                                     job.analysis.time_limit_s)
+    except KeyboardInterrupt:
+        interrupted = True
+        raise
+    finally:
+        if own_pool:
+            pool.close()
+        ordered = tuple(results[c.name] for c in job.corners if c.name in results)
+        keys = {name: runner.key_of(r) for name, r in requests}
+        result = MeasureResult(job=job, values=values, corners=ordered, ac_run=runner.ac_run,
+                               ac_reused=runner.ac_reused,
+                               out=folder.path if folder else None,
+                               seconds=time.perf_counter() - started, keys=keys,
+                               step_checks=checks,
+                               transient_run=runner.transient_run,
+                               transient_reused=runner.transient_reused,
+                               simulator_seconds=runner.simulator_seconds,
+                               warnings=amplifier.warnings
+                               + (journal.notes() if journal is not None else ()))
+        if folder is not None:
+            data = result.as_json()
+            if interrupted or len(ordered) < len(job.corners):
+                data["status"] = "interrupted"
+                data["message"] = (
+                    f"interrupted after {len(ordered)} of {len(job.corners)} corners"
+                    + ("" if len(ordered) < len(job.corners) else ", during the step checks")
+                    + "; the same command again finishes the run, reusing every analysis "
+                    "in the journal")
+            folder.write_json("results.json", data)
+    if folder is not None:
+        remove_stale(folder.path, [f for name, r in results.items()
+                                   for f in works[name].files(r)])
+    return result
+
+
+def require_measured(result: CornerResult) -> Margins:
+    """The margins of a corner that measured, or a MeasurementError saying why not."""
+    if result.status != "ok" or result.margins is None:
+        raise MeasurementError(result.problem or "not measured", place=result.corner.name)
+    return result.margins

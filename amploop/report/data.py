@@ -1,0 +1,293 @@
+"""Everything the report draws, rebuilt from results.json and the journal (no simulation).
+
+results.json names, for every simulated point and corner, the journal key of its
+analysis; the journal holds the vectors. The loop gains, the compensation maps and the
+step responses are recomputed from those with the same pure functions the run used.
+"""
+
+from __future__ import annotations
+
+import json
+from collections import OrderedDict
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Self
+
+import numpy as np
+
+from amploop.analysis.compmap import CompensationMap
+from amploop.analysis.loopgain import FrequencyResponse
+from amploop.bench.probe import make_probe
+from amploop.bench.testbench import NODE_AMP, NODE_FEEDBACK
+from amploop.corners.stepcheck import StepCheck, check_from_output
+from amploop.errors import JournalError, OutputError
+from amploop.sim.journal import Journal
+from amploop.spice.units import describe_values
+
+__all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data"]
+
+
+@dataclass(frozen=True)
+class Curve:
+    """One loop gain on a corner page: what it is, its values, and how to draw it.
+
+    Attributes
+    ----------
+    label
+        The legend's text: the step and the values.
+    kind
+        ``"final"`` (the final values; measure: the netlist's), ``"start"`` (the netlist's
+        values, predicted from the map) or ``"step"`` (a step of the tuning).
+    response
+        The loop gain.
+    """
+
+    label: str
+    kind: str  # "final", "start", "step"
+    response: FrequencyResponse
+
+
+class LazyFigures(Mapping):
+    """Corner name -> a figure computed from the journal when it is asked for.
+
+    The names are known from results.json alone (no journal read); each value is computed
+    by ``load(name)`` on access, and only the last ``keep`` are held, so that a report of
+    a thousand corners never holds a thousand corners' arrays.
+
+    Parameters
+    ----------
+    names
+        The corners that have this figure, in the job's order.
+    load
+        Computes the figure of one corner.
+    keep
+        How many computed figures are held for another access.
+    """
+
+    def __init__(self, names, load: Callable[[str], object], keep: int = 2) -> None:
+        self._names = list(names)
+        self._known = set(self._names)
+        self._load, self._keep = load, keep
+        self._held: OrderedDict[str, object] = OrderedDict()
+
+    def __getitem__(self, name: str):
+        if name not in self._known:
+            raise KeyError(name)
+        if name in self._held:
+            self._held.move_to_end(name)
+            return self._held[name]
+        value = self._load(name)
+        self._held[name] = value
+        while len(self._held) > self._keep:
+            self._held.popitem(last=False)
+        return value
+
+    def __iter__(self):
+        return iter(self._names)
+
+    def __len__(self) -> int:
+        return len(self._names)
+
+    def __contains__(self, name) -> bool:
+        return name in self._known
+
+
+@dataclass
+class ReportData:
+    """The figures of one out folder, ready to draw.
+
+    The per-corner figures (``curves``, ``finals``, ``steps``, ``maps``) are read from
+    the journal when a page asks for them (:class:`LazyFigures`); :meth:`close` closes
+    the journal.
+
+    Attributes
+    ----------
+    out
+        The out folder (absolute).
+    results
+        Its results.json as read.
+    corner_names
+        The corners in the job's order.
+    curves
+        Corner name -> the loop gains of its page, in drawing order.
+    finals
+        Corner name -> its loop gain at the final values (corners that measured).
+    steps
+        Corner name -> its step response (corners whose step check gave figures).
+    maps
+        Corner name -> its compensation map from the last three map samples of the
+        history (empty without them).
+    analyses_read
+        How many analyses were read from the journal.
+    journal
+        The journal, open read-only until :meth:`close`; None once closed (or for data
+        built without one).
+    """
+
+    out: Path
+    results: dict
+    corner_names: list[str]
+    curves: Mapping[str, list[Curve]] = field(default_factory=dict)
+    finals: Mapping[str, FrequencyResponse] = field(default_factory=dict)
+    steps: Mapping[str, StepCheck] = field(default_factory=dict)
+    maps: Mapping[str, CompensationMap] = field(default_factory=dict)
+    analyses_read: int = 0
+    journal: Journal | None = field(default=None, repr=False)
+    _by_name: dict = field(default_factory=dict, init=False, repr=False)
+
+    @property
+    def command(self) -> str:
+        return self.results.get("command", "measure")
+
+    @property
+    def limiting_corner(self) -> str | None:
+        if self.results.get("limiting_corner"):
+            return self.results["limiting_corner"]
+        ok = [c for c in self.results["corners"] if c.get("phase_margin_deg") is not None]
+        return min(ok, key=lambda c: c["phase_margin_deg"])["name"] if ok else None
+
+    def corner(self, name: str) -> dict:
+        """The entry of corner ``name`` in results.json."""
+        if not self._by_name:
+            self._by_name = {c["name"]: c for c in self.results["corners"]}
+        return self._by_name[name]
+
+    def close(self) -> None:
+        """Close the journal (the figures not yet read can no longer be)."""
+        if self.journal is not None:
+            self.journal.close()
+            self.journal = None
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+def _values_label(values: dict, device: tuple[str, str] | None = None) -> str:
+    return describe_values(values, equals=" ", device=device)
+
+
+_KIND_WORDS = {
+    "characterise": "sample",
+    "verify": "check",
+    "start": "textbook start",
+    "dominant-pole": "dominant-pole step",
+    "lead": "lead step",
+    "adjust-cc": "Cc adjusted",
+    "evaluate": "optimiser try",
+}
+
+
+def load_report_data(out: str | Path) -> ReportData:
+    """Open an out folder written by ``measure`` or ``tune``.
+
+    Parameters
+    ----------
+    out
+        The out folder; results.json is read now, the journal's analyses as the pages ask
+        for them (close the returned data, or use it as a context manager); nothing is
+        written.
+
+    Raises
+    ------
+    OutputError
+        When results.json is missing or unreadable.
+    JournalError
+        When the journal is missing, or (as a page asks for it) lacks an analysis
+        results.json names.
+    """
+    out = Path(out).resolve()
+    try:
+        results = json.loads((out / "results.json").read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise OutputError("no results.json: not an amploop out folder", file=out) from None
+    except (OSError, ValueError) as exc:
+        raise OutputError(f"cannot read results.json: {exc}", file=out) from None
+    probe = make_probe(results.get("probe", "double-injection"))
+    device = results.get("device")
+    device_key = (device["name"], device["size"]) if device else None
+    names = [c["name"] for c in results.get("corners", [])]
+    journal = Journal(out / "journal.sqlite", readonly=True)
+    data = ReportData(out=out, results=results, corner_names=names, journal=journal)
+
+    def reads(key: str):
+        output = data.journal.get(key)
+        if output is None:
+            raise JournalError(f"the journal lacks analysis {key[:12]}… named in results.json",
+                               file=data.journal.path, hint="rerun the command to rebuild it")
+        data.analyses_read += 1
+        return output.reads
+
+    def loop_gain(key: str) -> FrequencyResponse:
+        return probe.loop_gain(reads(key), NODE_AMP, NODE_FEEDBACK)
+
+    history = [h for h in results.get("history", []) if h.get("analyses")]
+    story = [h for h in history if h["kind"] != "report-map"]
+    final_values = results.get("values", {})
+    final_step = max((h["step"] for h in story if h["values"] == final_values), default=None)
+    final_entry = next((h for h in story if h["step"] == final_step), None)
+
+    def final_key(name: str) -> str | None:
+        corner = data.corner(name)
+        key = corner.get("analysis") if final_entry is None else final_entry["analyses"].get(name)
+        return key if key and corner.get("status") in ("ok", "suspect") else None
+
+    # the maps: the last three characterisation samples of each corner
+    samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+
+    def map_points(name: str):
+        """The samples' (Cc, Rc) as corner ``name`` saw them, or None without a map."""
+        if len(samples) < 3 or not all(h["analyses"].get(name) for h in samples):
+            return None
+        if device is not None:  # the samples' resistance as this corner saw it
+            r = device.get("sample_resistance_ohm", {}).get(name)
+            return None if r is None else [(h["values"]["cc"], r) for h in samples]
+        return [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
+
+    def load_map(name: str) -> CompensationMap:
+        return CompensationMap.from_loop_gains(
+            map_points(name), [loop_gain(h["analyses"][name]) for h in samples])
+
+    data.maps = LazyFigures([n for n in names if map_points(n) is not None], load_map, keep=1)
+    # the netlist's own values, predicted from the map (no simulation)
+    start = results.get("values_in_netlist")
+    predict_start = bool(start) and data.command == "tune" and device is None
+
+    def load_curves(name: str) -> list[Curve]:
+        curves = []
+        if predict_start and name in data.maps:
+            response = data.maps[name].loop_gain(start["cc"], start.get("rc", 0.0))
+            if np.all(np.isfinite(response.values)):
+                curves.append(Curve(f"netlist values (from the map): "
+                                    f"{_values_label(start, device_key)}", "start", response))
+        for entry in story:
+            key = entry["analyses"].get(name)
+            if key is None or entry["step"] == final_step:
+                continue
+            words = _KIND_WORDS.get(entry["kind"], entry["kind"])
+            curves.append(Curve(f"{entry['step']}. {words}: "
+                                f"{_values_label(entry['values'], device_key)}",
+                                "step", loop_gain(key)))
+        if name in data.finals:
+            label = "final" if data.command == "tune" else "as in the netlist"
+            curves.append(Curve(f"{label}: {_values_label(final_values, device_key)}", "final",
+                                data.finals[name]))
+        return curves
+
+    def load_step(name: str) -> StepCheck:
+        step = data.corner(name)["step"]
+        return check_from_output(name, step["analysis"], step["step_v"], step["step_at_s"],
+                                 step["stop_s"], reads(step["analysis"]), step["band"])
+
+    def has_step(name: str) -> bool:
+        step = data.corner(name).get("step")
+        return bool(step and step.get("analysis") and step.get("error") is None)
+
+    data.finals = LazyFigures([n for n in names if final_key(n)],
+                              lambda name: loop_gain(final_key(name)))
+    data.curves = LazyFigures(names, load_curves)
+    data.steps = LazyFigures([n for n in names if has_step(n)], load_step)
+    return data

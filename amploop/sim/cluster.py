@@ -1,0 +1,545 @@
+"""Analyses on the workers of a Dask distributed cluster (``--cluster ADDRESS``).
+
+:class:`ClusterPool` has the interface of :class:`amploop.sim.pool.WorkerPool` (a context
+manager with ``close()``, ``size`` and ``run(requests)`` yielding results as they finish),
+so the runner, its journal and everything above it do not know where the analyses run.
+
+What goes over the network: each analysis travels as text, its generated deck plus the
+contents of every file the deck includes (recursively: an included file may include
+others, relative to its own folder), because workers need not share the coordinator's
+file system. The result arrays come back. The coordinator alone writes the journal; the
+journal key is computed from the request before this pool sees it, so the bundled files
+never change a key.
+
+On a worker, :func:`run_analysis` (a module-level function, so workers import it from
+their own amploop) writes the bundled files into a temporary folder under the same
+absolute paths (``<tmp>/work/x/models.lib`` for ``/work/x/models.lib``), so relative
+includes inside them still resolve; the folder is named by the files' content and kept
+for the next analysis that bundles the same files. It points the deck's absolute paths
+at the copies and runs the analysis through a local :class:`~amploop.sim.pool.WorkerPool` of one process kept
+for the life of the Dask worker process. The Dask worker itself never loads ngspice: its
+child does, which isolates crashes and enforces the analysis's time limit inside the task
+(a running Dask task cannot be cancelled). The coordinator keeps a deadline of its own
+for every analysis, so that a Dask worker that stops or is cut off costs a deadline, not
+the run: its analyses are handed to the other workers (:mod:`amploop.sim.deadlines`). A Dask
+worker that dies has its task re-run elsewhere by the scheduler; after ``distributed.scheduler.allowed-failures`` deaths the
+task ends with ``KilledWorker``, reported here as that analysis's SimulatorError, and the
+run goes on.
+
+Workers should be processes with one thread each (``dask worker ADDRESS --nworkers N
+--nthreads 1``); a worker with more threads still works (one local ngspice process per
+thread) but gains nothing over more worker processes.
+"""
+
+from __future__ import annotations
+
+import atexit
+import hashlib
+import logging
+import multiprocessing as mp
+import os
+import posixpath
+import re
+import shutil
+import tempfile
+import threading
+import uuid
+from collections import OrderedDict
+from collections.abc import Callable, Hashable, Iterable, Iterator
+from contextlib import contextmanager
+from dataclasses import replace
+from typing import Self
+
+from amploop import __version__
+from amploop.errors import JobError, SimulatorError
+from amploop.sim.deadlines import run_with_deadlines
+from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
+
+__all__ = ["ClusterPool", "FileBundler", "include_targets", "move_include_paths", "run_analysis",
+           "worker_check"]
+
+#: Seconds to wait for the scheduler (and for its first worker) before giving up.
+CONNECT_TIMEOUT_S = 10.0
+#: Seconds an analysis may take beyond twice its time limit before it is handed over
+#: again (the network, the files, the start of a worker's ngspice process).
+GRACE_S = 10.0
+
+# .include / .inc / .incl FILE, and .lib FILE SECTION (".lib NAME" alone opens a section
+# of a library file and reads nothing). The path may be quoted with " or '.
+_INCLUDE = re.compile(
+    r"""^(?P<head>[ \t]*\.(?P<keyword>include|incl|inc|lib)[ \t]+)
+        (?:"(?P<dq>[^"\n]*)"|'(?P<sq>[^'\n]*)'|(?P<bare>[^\s"']+))
+        (?P<rest>[^\n]*)$""",
+    re.IGNORECASE | re.MULTILINE | re.VERBOSE,
+)
+
+
+def _distributed():
+    """The ``distributed`` package, or a one-line SimulatorError saying how to get it."""
+    try:
+        import distributed
+    except ImportError:
+        raise SimulatorError(
+            "--cluster needs the Python package 'distributed' (Dask), which is not installed",
+            hint="pip install 'amploop[cluster]'") from None
+    return distributed
+
+
+def _path_of(match: re.Match) -> tuple[str | None, str]:
+    """The path a matched statement reads (None if it reads nothing) and its quote."""
+    if match.group("keyword").lower() == "lib":
+        section = match.group("rest").split()
+        if not section or section[0][0] in ";$":
+            return None, ""  # ".lib name": a section header, not a read
+    for group, quote in (("dq", '"'), ("sq", "'"), ("bare", "")):
+        path = match.group(group)
+        if path is not None:
+            return path or None, quote
+    return None, ""
+
+
+def include_targets(text: str) -> list[str]:
+    """The paths, as written, of the files ``text`` includes (``.include``, ``.lib f s``),
+    in every ``.lib`` section: ngspice 39 reads the includes of all sections of a library
+    file, not only of the section asked for."""
+    found = []
+    for line in text.splitlines():
+        if not line.lstrip().startswith("."):
+            continue
+        match = _INCLUDE.match(line)
+        if match is not None:
+            path, _ = _path_of(match)
+            if path:
+                found.append(path)
+    return found
+
+
+def _read_text(path: str) -> str:
+    # surrogateescape: any byte sequence survives the round trip to the worker unchanged
+    with open(path, "rb") as handle:
+        return handle.read().decode("utf-8", "surrogateescape")
+
+
+class FileBundler:
+    """The contents of every file a deck includes, for workers that cannot see them.
+
+    Deck paths are absolute (amploop writes them so). Inside an included file a relative
+    path is taken relative to that file's folder, as ngspice does. Files are read once and
+    read again only when their size or modification time changes; a file that cannot be
+    read here is left out, so the worker's ngspice reports it missing as a local one
+    would.
+    """
+
+    def __init__(self) -> None:
+        # read path -> (stat signature, content or None, include targets as written)
+        self._cache: dict[str, tuple[tuple, str | None, tuple[str, ...]]] = {}
+
+    def _file(self, path: str) -> tuple[str | None, tuple[str, ...]]:
+        try:
+            stat = os.stat(path)
+            signature = (stat.st_ino, stat.st_size, stat.st_mtime_ns)
+        except OSError:
+            return None, ()
+        cached = self._cache.get(path)
+        if cached is not None and cached[0] == signature:
+            return cached[1], cached[2]
+        try:
+            content = _read_text(path)
+        except OSError:
+            content, targets = None, ()
+        else:
+            targets = tuple(include_targets(content))
+        self._cache[path] = (signature, content, targets)
+        return content, targets
+
+    def bundle(self, deck: str) -> tuple[tuple[str, str], ...]:
+        """``((path, content), ...)`` of the files ``deck`` reads, by the path the worker
+        must find each at (absolute, normalised), in the order they are first read."""
+        files: dict[str, str] = {}
+        seen: set[str] = set()
+        # (where the worker will look for it, where this machine's ngspice would read it)
+        queue = [(posixpath.normpath(p), p) for p in include_targets(deck)
+                 if posixpath.isabs(p)]
+        while queue:
+            bundle_path, read_path = queue.pop(0)
+            if bundle_path in seen:
+                continue
+            seen.add(bundle_path)
+            content, targets = self._file(read_path)
+            if content is None:
+                continue
+            files[bundle_path] = content
+            for target in targets:
+                if posixpath.isabs(target):
+                    queue.append((posixpath.normpath(target), target))
+                else:  # relative to the including file's folder, as ngspice takes it
+                    queue.append((posixpath.normpath(posixpath.join(
+                        posixpath.dirname(bundle_path), target)),
+                        posixpath.join(posixpath.dirname(read_path), target)))
+        return tuple(files.items())
+
+
+# -- on the worker ----------------------------------------------------------------------
+
+
+def _rooted(path: str, root: str) -> str:
+    return root + posixpath.normpath(path)
+
+
+def move_include_paths(text: str, move: Callable[[str], str | None]) -> str:
+    """``text`` with every absolute include path ``p`` (``.include``, ``.lib f s``) written
+    as ``move(p)`` instead, in the quote it had; relative paths, and absolute ones for which
+    ``move`` returns None, stay as they are."""
+    def replace_path(match: re.Match) -> str:
+        path, quote = _path_of(match)
+        if not path or not posixpath.isabs(path):
+            return match.group(0)  # relative: resolves next to the copy of its file
+        moved = move(path)
+        if moved is None:
+            return match.group(0)
+        return f"{match.group('head')}{quote}{moved}{quote}{match.group('rest')}"
+
+    return _INCLUDE.sub(replace_path, text)
+
+
+def _reroot(text: str, root: str) -> str:
+    """``text`` with every absolute include path moved under ``root``."""
+    return move_include_paths(text, lambda path: _rooted(path, root))
+
+
+def _write_files(request: AnalysisRequest, folder: str, root: str) -> None:
+    """Write the bundled files under ``folder``, to be read from under ``root``.
+
+    Every bundled file lands at ``folder + its absolute path``. The absolute include paths
+    in the files are moved under ``root`` (also those of files that were not bundled, so
+    that a file missing on the coordinator is missing here too); relative ones are left as
+    they are and resolve next to the copies.
+    """
+    for path, content in request.files:
+        if not posixpath.isabs(path) or posixpath.normpath(path) != path:
+            raise SimulatorError(f"bundled file with an unusable path: {path!r}",
+                                 place=request.label)
+        target = _rooted(path, folder)
+        os.makedirs(posixpath.dirname(target), exist_ok=True)
+        with open(target, "wb") as handle:
+            handle.write(_reroot(content, root).encode("utf-8", "surrogateescape"))
+
+
+class _BundleStore:
+    """Bundles written out once per worker process, in a folder named by their content.
+
+    The analyses of one job all bundle the same files, so the folder of one is the folder
+    of the next: writing and removing them for every analysis cost more than a demo
+    analysis. At most ``limit`` idle bundles are kept; they live in the Dask worker's own
+    local directory (which Dask removes with the worker), else in a temporary folder
+    removed at exit.
+    """
+
+    def __init__(self, limit: int = 8) -> None:
+        self.limit = limit
+        self._lock = threading.Lock()
+        self._roots: OrderedDict[str, str] = OrderedDict()  # digest -> folder, oldest first
+        self._busy: dict[str, int] = {}
+        self._base: str | None = None
+
+    def _base_folder(self) -> str:
+        if self._base is None or not os.path.isdir(self._base):
+            parent = None
+            try:
+                from distributed import get_worker
+
+                parent = get_worker().local_directory
+            except (ImportError, ValueError):  # not inside a Dask worker
+                pass
+            self._base = tempfile.mkdtemp(prefix="amploop-bundles-", dir=parent)
+            atexit.register(shutil.rmtree, self._base, True)
+        return self._base
+
+    @contextmanager
+    def folder(self, request: AnalysisRequest) -> Iterator[str]:
+        """The folder the request's files are written under, for the length of the block."""
+        digest = hashlib.sha256()
+        for path, content in request.files:
+            digest.update(path.encode("utf-8", "surrogateescape") + b"\0")
+            digest.update(content.encode("utf-8", "surrogateescape") + b"\0")
+        key = digest.hexdigest()[:24]
+        with self._lock:
+            root = self._roots.get(key)
+            if root is not None and os.path.isdir(root):
+                self._roots.move_to_end(key)
+                self._busy[key] = self._busy.get(key, 0) + 1
+            else:
+                root = None
+        if root is None:
+            base = self._base_folder()
+            root = posixpath.join(base, key)
+            writing = tempfile.mkdtemp(prefix="writing-", dir=base)
+            try:
+                _write_files(request, writing, root)
+                os.rename(writing, root)
+            except OSError:
+                shutil.rmtree(writing, ignore_errors=True)
+                if not os.path.isdir(root):  # else another thread wrote it first
+                    raise
+            except BaseException:
+                shutil.rmtree(writing, ignore_errors=True)
+                raise
+            with self._lock:
+                self._roots[key] = root
+                self._roots.move_to_end(key)
+                self._busy[key] = self._busy.get(key, 0) + 1
+                idle = [k for k in self._roots if not self._busy.get(k)]
+                for old in idle[: max(0, len(self._roots) - self.limit)]:
+                    shutil.rmtree(self._roots.pop(old), ignore_errors=True)
+        try:
+            yield root
+        finally:
+            with self._lock:
+                self._busy[key] -= 1
+
+
+_bundles = _BundleStore()
+
+
+_local = threading.local()
+
+
+def _local_pool():
+    """This thread's one-process WorkerPool (created on first use, kept for the next)."""
+    from amploop.sim.pool import WorkerPool
+
+    pool = getattr(_local, "pool", None)
+    if pool is None:
+        process = mp.current_process()
+        if process.daemon:
+            # Dask's nanny starts its worker processes as daemons, and multiprocessing
+            # refuses children to daemons. The flag only matters inside this process
+            # (the nanny keeps its own); our ngspice child is a daemon itself and ends
+            # when this process does or its pipe closes.
+            process.daemon = False
+        pool = WorkerPool(1)
+        _local.pool = pool
+        atexit.register(pool.close)
+    return pool
+
+
+def _drop_local_pool() -> None:
+    pool = getattr(_local, "pool", None)
+    _local.pool = None
+    if pool is not None:
+        pool.close()
+
+
+def run_analysis(request: AnalysisRequest) -> tuple[str, object]:
+    """The Dask task: one analysis on this worker, through a local ngspice process.
+
+    Parameters
+    ----------
+    request
+        The analysis, with the contents of the files its deck includes
+        (:meth:`FileBundler.bundle`).
+
+    Returns
+    -------
+    ("ok", AnalysisOutput) or ("error", problem)
+        ``problem`` is the SimulatorError's text (ngspice's failure, a crash after the
+        local pool's retries, or a time-out enforced by the local pool), with the
+        temporary folder taken out of any path it names.
+    """
+    output: AnalysisOutput | SimulatorError | None = None
+    root = ""
+    try:
+        with _bundles.folder(request) as root:
+            local = replace(request, deck=_reroot(request.deck, root), files=())
+            try:
+                for _, output in _local_pool().run([(0, local)]):
+                    pass
+            except SimulatorError:  # its ngspice processes cannot start: start afresh
+                _drop_local_pool()
+                raise
+    except SimulatorError as exc:
+        output = exc
+    if output is None:
+        return "error", "the worker's local pool gave no answer"
+    if isinstance(output, SimulatorError):
+        return "error", output.problem.replace(root, "") if root else output.problem
+    return "ok", replace(output, messages=tuple(m.replace(root, "") for m in output.messages))
+
+
+def worker_check() -> dict:
+    """What a worker reports when the coordinator connects (run there by ``client.run``)."""
+    import sys
+
+    return {"amploop": __version__, "python": sys.version.split()[0], "pid": os.getpid()}
+
+
+# -- on the coordinator -----------------------------------------------------------------
+
+
+def _check_address(address: str) -> None:
+    """A JobError (a command-line mistake) when ``address`` is no scheduler address."""
+    from distributed.comm import parse_address
+    from distributed.comm.registry import get_backend
+
+    try:
+        scheme, location = parse_address(address)
+        get_backend(scheme)
+    except ValueError as exc:
+        raise JobError(f"not a Dask scheduler address: {address!r} ({exc})",
+                       place="--cluster", hint="e.g. tcp://scheduler-host:8786") from None
+    if not location.strip():
+        raise JobError(f"not a Dask scheduler address: {address!r}", place="--cluster",
+                       hint="e.g. tcp://scheduler-host:8786")
+
+
+class ClusterPool:
+    """Runs analyses on an existing Dask distributed cluster.
+
+    Parameters
+    ----------
+    address
+        The scheduler, e.g. ``"tcp://scheduler-host:8786"``.
+    timeout_s
+        How long to wait for the scheduler, and for at least one worker.
+    retries
+        How many times an analysis that misses its deadline is handed over again.
+    grace_s
+        Seconds added to every deadline (:func:`amploop.sim.deadlines.deadline_s`).
+
+    Raises
+    ------
+    SimulatorError
+        When ``distributed`` is not installed, the scheduler cannot be reached, it has no
+        worker, or a worker cannot import amploop (or has another version of it).
+
+    Notes
+    -----
+    The ``distributed.client`` logger is set to show critical records only: when the
+    scheduler is lost it would print its reconnection tracebacks, while the run ends with
+    one line saying so.
+
+    Use as a context manager; :meth:`run` may be called many times.
+    """
+
+    def __init__(self, address: str, *, timeout_s: float = CONNECT_TIMEOUT_S,
+                 retries: int = 2, grace_s: float = GRACE_S) -> None:
+        distributed = _distributed()
+        # the client logs a lost scheduler with its reconnection tracebacks; the run
+        # reports it in one line (deadlines.py), so only its critical records are shown
+        logging.getLogger("distributed.client").setLevel(logging.CRITICAL)
+        self.address = address
+        self.retries = retries
+        self.grace_s = grace_s
+        self._bundler = FileBundler()
+        self._token = uuid.uuid4().hex[:12]
+        self._count = 0
+        self.shares_files = False  # workers may be elsewhere: the coordinator writes files
+        _check_address(address)
+        try:
+            self._client = distributed.Client(address, timeout=timeout_s,
+                                              set_as_default=False)
+        except Exception as exc:  # noqa: BLE001 - OSError, ValueError, ...: one line
+            text = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            raise SimulatorError(f"cannot reach the Dask scheduler at {address}: {text}",
+                                 hint="is `dask scheduler` running there, and the port open?"
+                                 ) from None
+        try:
+            self._check_workers(timeout_s)
+        except BaseException:
+            self._client.close()
+            raise
+
+    def _check_workers(self, timeout_s: float) -> None:
+        try:
+            self._client.wait_for_workers(1, timeout=timeout_s)
+        except Exception:  # noqa: BLE001 - a TimeoutError of whichever flavour
+            raise SimulatorError(f"the Dask scheduler at {self.address} has no workers "
+                                 f"(waited {timeout_s:g} s)",
+                                 hint="start some: dask worker ADDRESS --nthreads 1") from None
+        reports = self._client.run(worker_check, on_error="return")
+        for worker, report in sorted(reports.items()):
+            if isinstance(report, BaseException) or not isinstance(report, dict):
+                raise SimulatorError(f"Dask worker {worker} cannot run amploop: {report!r}",
+                                     hint="install amploop (and ngspice) on every worker")
+            if report.get("amploop") != __version__:
+                raise SimulatorError(
+                    f"Dask worker {worker} has amploop {report.get('amploop')}, this machine "
+                    f"{__version__}", hint="install the same amploop on every worker")
+
+    @property
+    def client(self):
+        """The ``distributed.Client`` connected to the scheduler."""
+        return self._client
+
+    @property
+    def size(self) -> int:
+        """Analyses the cluster runs at once (its workers' threads)."""
+        return max(1, sum(self._client.nthreads().values()))
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Disconnect from the scheduler (the cluster keeps running)."""
+        self._client.close()
+
+    def run(
+        self, requests: Iterable[tuple[Hashable, AnalysisRequest]]
+    ) -> Iterator[tuple[Hashable, AnalysisOutput | SimulatorError]]:
+        """Run every request on the cluster; yield ``(key, output or SimulatorError)`` as
+        each finishes. Analyses still queued are cancelled if the caller stops early.
+
+        Each analysis has a deadline here as well as its time limit inside the task; one
+        that misses it is handed to the other workers (:mod:`amploop.sim.deadlines`).
+
+        Parameters
+        ----------
+        requests
+            ``(key, request)`` pairs; the key comes back with the request's result. Each
+            request travels with the files its deck includes, without its ``after``.
+
+        Raises
+        ------
+        SimulatorError
+            When the connection to the scheduler is lost.
+        """
+        _distributed()
+
+        def submit(request: AnalysisRequest, workers: list[str] | None):
+            bundled = replace(request, files=self._bundler.bundle(request.deck), after=None)
+            self._count += 1
+            return self._client.submit(run_analysis, bundled, pure=False, workers=workers,
+                                       key=f"amploop-analysis-{self._token}-{self._count}")
+
+        yield from run_with_deadlines(self._client, requests, submit, self._outcome,
+                                      slots=2 * self.size, retries=self.retries,
+                                      grace_s=self.grace_s, address=self.address)
+
+    @staticmethod
+    def _outcome(future, request: AnalysisRequest,
+                 timeout_s: float) -> AnalysisOutput | SimulatorError:
+        """The finished ``future``'s output or SimulatorError, fetched within
+        ``timeout_s`` seconds (``TimeoutError`` when its worker does not answer)."""
+        from distributed import KilledWorker
+
+        try:
+            status, payload = future.result(timeout=timeout_s)
+        except TimeoutError:
+            raise  # kept, so that the caller can ask who holds it
+        except KilledWorker as exc:
+            allowed = getattr(exc, "allowed_failures", None)
+            tries = ("repeatedly" if allowed is None else "once" if allowed == 0
+                     else f"{allowed + 1} times")
+            status, payload = "error", (
+                f"the Dask workers running this analysis died {tries} "
+                "(KilledWorker; distributed.scheduler.allowed-failures)")
+        except Exception as exc:  # noqa: BLE001 - cancelled, lost, or the task raised
+            text = str(exc).splitlines()[0] if str(exc) else ""
+            status, payload = "error", f"on the Dask cluster: {type(exc).__name__}: {text}".rstrip(": ")
+        future.release()
+        if status == "ok":
+            return payload
+        return SimulatorError(payload, place=request.label)

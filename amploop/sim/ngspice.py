@@ -1,0 +1,382 @@
+"""The only place that talks to ngspice: one shared-library session per process.
+
+An analysis is a deck (netlist text) plus a list of simulator commands, each with the
+vectors to read from the plot it makes. :class:`NgspiceSession` loads the deck through
+PySpice's binding of ngspice's shared library, sends the commands itself and reads
+ngspice's own messages to decide whether each step worked (PySpice's built-in check
+treats every non-warning message on stderr as an error, which makes a healthy circuit
+that needed gmin stepping look like a failed one). After every analysis it frees the
+circuit and its plots, so a worker can run thousands of analyses without growing.
+
+Known simulator behaviour handled here (ngspice 39):
+
+- ``set num_threads=1`` before any circuit: Debian's build uses OpenMP, and an idle
+  second thread busy-waits (2 processes on 2 cores ran 15–30x slower).
+- A parse error leaves the library unable to recover ("cannot recover and awaits to be
+  detached"); the session is then marked broken and its process must be replaced.
+- A floating node shows as "singular matrix" and gmin stepping then "succeeds" with
+  arbitrary values: an error.
+- An operating point found only by the transient fallback ("Transient op") is reported:
+  it depends slightly on the capacitors, so compensation changes move it.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from amploop.errors import SimulatorError
+
+__all__ = ["AnalysisOutput", "AnalysisRequest", "NgspiceSession", "Step", "summarise_failure"]
+
+_ANALYSES = {"ac", "op", "tran", "dc", "noise", "tf", "pz", "sens", "disto"}
+
+# ngspice messages that mean the step failed, whatever the rest says
+_FATAL = [
+    re.compile(p, re.IGNORECASE)
+    for p in (
+        r"^\s*error",
+        r"singular matrix",
+        r"simulation\(s\) aborted",
+        r"operating point failed",
+        r"dc solution failed",
+        r"timestep too small",
+        r"cannot recover",
+        r"no such (device|vector|parameter)",
+        r"unknown (subckt|model|parameter)",
+        r"undefined parameter",
+        r"can't find model",
+        r"could not find",
+    )
+]
+_TRANSIENT_OP = re.compile(r"transient op started", re.IGNORECASE)
+
+
+@dataclass(frozen=True)
+class Step:
+    """One simulator command and the vectors to read from the plot it makes.
+
+    Attributes
+    ----------
+    command
+        An ngspice command: ``"ac dec 40 1 10G"``, ``"alter vprobe acmag=0"``, ``"op"``.
+    read
+        Vector names as ngspice knows them in that plot: ``"frequency"``, ``"v(tb_out)"``,
+        ``"i(vprobe)"``, ``"@m.x1.m1[gm]"``.
+    optional
+        For a command that is not an analysis: its rejection, or a vector it cannot find,
+        leaves out what it could not read instead of failing the analysis (the
+        operating-point read-out after the loop gain, where a model may lack a quantity).
+    """
+
+    command: str
+    read: tuple[str, ...] = ()
+    optional: bool = False
+
+    @property
+    def is_analysis(self) -> bool:
+        return self.command.split()[0].lower() in _ANALYSES
+
+    @property
+    def is_ac(self) -> bool:
+        return self.command.split()[0].lower() == "ac"
+
+
+@dataclass(frozen=True)
+class AnalysisRequest:
+    """Everything a worker needs to run one analysis.
+
+    Attributes
+    ----------
+    label
+        For messages: the corner (and point) this analysis belongs to.
+    deck
+        Netlist text: a title line first, ``.end`` last, no ``.control`` block.
+    steps
+        The commands to send after loading it.
+    time_limit_s
+        Wall-clock seconds after which the analysis counts as hung.
+    files
+        Contents of files the deck includes, by the path the deck uses, for workers that
+        do not share the file system (empty for local workers).
+    after
+        Optional work for the worker once the analysis has succeeded: a picklable
+        callable taking the :class:`AnalysisOutput` and returning a small picklable
+        value, which comes back as ``AnalysisOutput.after``. It is not part of the
+        analysis: it never changes a journal key and is never recorded.
+    """
+
+    label: str
+    deck: str
+    steps: tuple[Step, ...]
+    time_limit_s: float = 120.0
+    files: tuple[tuple[str, str], ...] = ()
+    after: object = field(default=None, compare=False, repr=False)
+
+    @property
+    def ac_runs(self) -> int:
+        return sum(step.is_ac for step in self.steps)
+
+
+@dataclass(frozen=True)
+class AnalysisOutput:
+    """What a finished analysis gives back.
+
+    Attributes
+    ----------
+    reads
+        One dict per step: vector name -> numpy array (complex for AC, float otherwise).
+    warnings
+        Simulator messages worth showing the user (transient-op fallback, gmin stepping).
+    transient_op
+        True when the operating point needed ngspice's transient fallback.
+    seconds
+        Wall time of the analysis inside ngspice.
+    after
+        What the request's ``after`` returned in the worker (None: no such work, or it
+        failed, which ``after_error`` then says; the caller does the work itself).
+    messages
+        Every line ngspice printed while loading the deck and running its steps.
+    after_error
+        Why the request's ``after`` failed in the worker (exception type and message);
+        None when it did not fail.
+    """
+
+    reads: tuple[dict[str, np.ndarray], ...]
+    warnings: tuple[str, ...] = ()
+    transient_op: bool = False
+    seconds: float = 0.0
+    messages: tuple[str, ...] = field(default=(), repr=False)
+    after: object = field(default=None, repr=False)
+    after_error: str | None = field(default=None, repr=False)
+
+
+#: Longest echo of a deck line kept in a failure's summary, characters (a BSIM4 instance
+#: line, flattened with all its parameters, runs to hundreds).
+ECHO_CHARS = 72
+
+
+def _echo(line: str) -> str:
+    """A deck line as ngspice echoed it, cut at a word to about :data:`ECHO_CHARS`."""
+    line = " ".join(line.split())
+    if len(line) <= ECHO_CHARS:
+        return line
+    cut = line.rfind(" ", 0, ECHO_CHARS)
+    return line[: cut if cut > 0 else ECHO_CHARS].rstrip(" .") + " …"
+
+
+def _model_issue(text: list[str]) -> str | None:
+    """ngspice's own note on a model card it refused ("Model issue on line N :", the card,
+    then the note, such as the MOS levels this binary supports), when an element then
+    failed for want of that model; None otherwise."""
+    joined = " ".join(text).lower()
+    if "valid modelname" not in joined and "find model" not in joined:
+        return None
+    for i, line in enumerate(text[:-2]):
+        issue = re.search(r"model issue on line (\d+)", line, re.IGNORECASE)
+        if issue is None:
+            continue
+        card = text[i + 1].split()
+        if len(card) < 2 or card[0].lower() != ".model":
+            continue
+        level = re.search(r"\blevel\s*=\s*([^\s.]+)", text[i + 1], re.IGNORECASE)
+        what = f"model {card[1]}" + (f" (level={level.group(1)})" if level else "")
+        rejected = next((text[j + 1] for j in range(i + 2, len(text) - 1)
+                         if text[j].lower().startswith("error on line")), None)
+        tail = f"; rejected: {_echo(rejected).split()[0]}" if rejected else ""
+        return f"{what} on line {issue.group(1)}: {text[i + 2]}{tail}"
+    return None
+
+
+def summarise_failure(lines: list[str]) -> str:
+    """One line naming what went wrong, from ngspice's messages ``lines``: ngspice's own
+    words, with the deck lines it echoes cut short and, for a model card it refused, its
+    note on why (the model levels it supports) rather than the element that missed it."""
+    text = [line.strip() for line in lines if line.strip()]
+    joined = " ".join(text).lower()
+    issue = _model_issue(text)
+    if issue is not None:
+        return issue
+    singular = next((line for line in text if "singular matrix" in line.lower()), None)
+    if singular:
+        node = singular.split("check node", 1)[-1].strip() if "check node" in singular else "?"
+        return f"singular matrix at node {node} (a floating node or a loop of voltage sources?)"
+    undefined = [i for i, line in enumerate(text) if "undefined parameter" in line.lower()]
+    if undefined:
+        i = undefined[0]
+        where = text[i - 1] if i > 0 and "line" in text[i - 1].lower() else ""
+        return f"{text[i]} {('(' + where.rstrip(':') + ' of the deck)') if where else ''}".strip()
+    if "operating point failed" in joined or "dc solution failed" in joined or (
+        "timestep too small" in joined and "transient op" in joined
+    ):
+        return "no DC operating point: gmin stepping, source stepping and transient op all failed"
+    for i, line in enumerate(text):
+        if any(p.search(line) for p in _FATAL) and "cannot recover" not in line.lower() \
+                and "please check your input" not in line.lower():
+            if line.endswith(":"):  # "Error on line:" followed by the line and the reason
+                return " ".join([line, *map(_echo, text[i + 1 : i + 2]), *text[i + 2 : i + 3]])
+            if line.lower().endswith("from line") and i + 1 < len(text):
+                # "can't find model 'x' from line" followed by the element's line
+                return f"{line[: -len('from line')].rstrip()} (element line: {_echo(text[i + 1])})"
+            return line
+    for line in text:
+        if "please check your input" in line.lower():
+            return "ngspice could not parse the deck"
+    return text[-1] if text else "no message"
+
+
+class NgspiceSession:
+    """ngspice's shared library in this process (one per process; not thread-safe).
+
+    Create it in the worker process that will use it. ``broken`` turns True when ngspice
+    can no longer be used and the process should be replaced.
+    """
+
+    _FREE_EVERY = 2000  # commands between releases of ngspice's command history
+
+    def __init__(self) -> None:
+        logging.getLogger("PySpice").setLevel(logging.CRITICAL)
+        from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
+
+        self._ffi = ffi
+        self._shared = NgSpiceShared.new_instance()
+        self._lib = self._shared._ngspice_shared
+        self._commands = 0
+        self.broken = False
+        self._command("set num_threads=1")
+
+    # -- low level ------------------------------------------------------------------------
+
+    def _drain(self) -> tuple[list[str], list[str]]:
+        out, err = list(self._shared._stdout), list(self._shared._stderr)
+        self._shared._stdout.clear()
+        self._shared._stderr.clear()
+        return out, err
+
+    def _command(self, command: str) -> tuple[int, list[str], list[str]]:
+        self._commands += 1
+        if self._commands % self._FREE_EVERY == 0:
+            self._lib.ngSpice_Command(self._ffi.NULL)
+        self._drain()
+        rc = self._lib.ngSpice_Command(command.encode("ascii", "replace"))
+        out, err = self._drain()
+        return rc, out, err
+
+    def _load(self, deck: str) -> tuple[int, list[str], list[str]]:
+        lines = deck.splitlines() + [""]
+        keep = [self._ffi.new("char[]", line.encode("utf-8", "replace")) for line in lines]
+        array = self._ffi.new("char *[]", keep + [self._ffi.NULL])
+        self._drain()
+        rc = self._lib.ngSpice_Circ(array)
+        out, err = self._drain()
+        return rc, out, err
+
+    def _current_plot(self) -> str:
+        return self._ffi.string(self._lib.ngSpice_CurPlot()).decode("utf-8", "replace")
+
+    def _vector(self, plot: str, name: str) -> np.ndarray | None:
+        info = self._lib.ngGet_Vec_Info(f"{plot}.{name}".encode("ascii", "replace"))
+        if info == self._ffi.NULL or info.v_length <= 0:
+            return None
+        n = info.v_length
+        if info.v_compdata != self._ffi.NULL:
+            raw = np.frombuffer(self._ffi.buffer(info.v_compdata, n * 16), dtype=np.float64)
+            return (raw[0::2] + 1j * raw[1::2]).astype(np.complex128)
+        raw = np.frombuffer(self._ffi.buffer(info.v_realdata, n * 8), dtype=np.float64)
+        return raw.copy()
+
+    def _free(self) -> None:
+        self._command("destroy all")
+        self._command("remcirc")
+
+    # -- one analysis ---------------------------------------------------------------------
+
+    def run(self, request: AnalysisRequest) -> AnalysisOutput:
+        """Load the deck, run its steps, read the vectors, free everything.
+
+        Parameters
+        ----------
+        request
+            The deck, its steps and the vectors each step reads; its label names the
+            analysis in errors.
+
+        Returns
+        -------
+        AnalysisOutput
+            The vectors read, one dict per step, with the warnings worth showing.
+
+        Raises
+        ------
+        SimulatorError
+            On a parse error, a failed analysis (no DC solution, singular matrix), a
+            rejected command, or a vector that is not there. The problem text starts with
+            the kind of failure so callers can tell a bad netlist from a bad circuit.
+        """
+        import time
+
+        if self.broken:
+            raise SimulatorError("ngspice session is no longer usable", place=request.label)
+        started = time.perf_counter()
+        rc, out, err = self._load(request.deck)
+        messages = out + err
+        if rc != 0 or any(p.search(line) for line in err for p in _FATAL):
+            if rc != 0 or any("cannot recover" in line.lower() for line in err):
+                self.broken = True
+            else:
+                self._free()
+            raise SimulatorError(f"parse error: {summarise_failure(err or out)}",
+                                 place=request.label)
+        reads: list[dict[str, np.ndarray]] = []
+        warnings: list[str] = []
+        transient_op = False
+        try:
+            for step in request.steps:
+                before = self._current_plot()
+                rc, out, err = self._command(step.command)
+                messages += out + err
+                lines = out + err
+                if step.is_analysis:
+                    if any(_TRANSIENT_OP.search(line) for line in lines):
+                        transient_op = True
+                        warnings.append(
+                            "operating point found only by ngspice's transient fallback; "
+                            "it may move with the compensation values"
+                        )
+                    plot = self._current_plot()
+                    failed = rc != 0 or plot == before or plot == "const"
+                    if failed or any(p.search(line) for line in lines for p in _FATAL):
+                        raise SimulatorError(f"{step.command.split()[0]} failed: "
+                                             f"{summarise_failure(lines)}", place=request.label)
+                    if any("gmin stepping" in line.lower() for line in lines):
+                        warnings.append("operating point needed gmin stepping")
+                elif rc != 0 or any(p.search(line) for line in err for p in _FATAL):
+                    if step.optional:
+                        reads.append({})
+                        continue
+                    raise SimulatorError(f"command {step.command!r} rejected: "
+                                         f"{summarise_failure(err)}", place=request.label)
+                values: dict[str, np.ndarray] = {}
+                if step.read:
+                    plot = self._current_plot()
+                    for name in step.read:
+                        vector = self._vector(plot, name)
+                        if vector is None and step.optional:
+                            continue
+                        if vector is None:
+                            raise SimulatorError(f"vector {name} not found in plot {plot}",
+                                                 place=request.label)
+                        values[name] = vector
+                reads.append(values)
+        finally:
+            if not self.broken:
+                self._free()
+        return AnalysisOutput(
+            reads=tuple(reads),
+            warnings=tuple(dict.fromkeys(warnings)),
+            transient_op=transient_op,
+            seconds=time.perf_counter() - started,
+            messages=tuple(messages),
+        )

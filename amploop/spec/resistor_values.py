@@ -1,0 +1,102 @@
+"""Resistor values in a job that SPICE reads otherwise than their writer meant.
+
+In SPICE ``M`` is milli, as ``m`` is: ``1M`` is 1 mΩ, and a megaohm is ``1Meg``. A feedback
+resistor written ``1M`` for 1 MΩ makes a loop that never crosses 0 dB or a feedback network
+that shorts the output, and the measurement then fails far from the cause. So the job's
+resistors are checked when the job is read:
+
+- the feedback network's resistors (``[feedback].input`` and ``.feedback`` of a resistive
+  loop, ``.dc_path`` of a capacitive one): a value written with a milli suffix, or below
+  1 Ω at any corner, is refused (0 stays allowed: a short, written as one);
+- Rc's bounds in ``[compensation]`` and a ``--set rc=`` value: a milli suffix is refused
+  (Rc may well be 0 or small, but nobody writes ``20m`` for it).
+
+Each refusal says what SPICE reads and what was probably meant (``did you mean 1Meg?``).
+"""
+
+from __future__ import annotations
+
+import re
+
+from amploop.errors import JobError
+from amploop.spice.expressions import evaluate
+from amploop.spice.units import engineering, parse_value
+
+__all__ = ["check_feedback_resistors", "check_rc_text", "megaohm_reading"]
+
+# a SPICE number whose scale suffix is milli: "1M", "2.2m", "4.7mohm" (not "meg", "mil")
+_MILLI = re.compile(r"^\s*(?P<mantissa>[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
+                    r"(?P<suffix>m)(?!eg|il)(?P<unit>(?:ohms?)?)\s*$", re.IGNORECASE)
+
+
+def megaohm_reading(text: object) -> str | None:
+    """The megaohm value ``text`` was probably meant to be (``"1M"`` -> ``"1Meg"``) when it
+    is a SPICE number with the milli suffix ``m``/``M``; None otherwise."""
+    if not isinstance(text, str):
+        return None
+    match = _MILLI.match(text)
+    return None if match is None else f"{match.group('mantissa')}Meg{match.group('unit')}"
+
+
+def _milli_problem(text: str) -> str | None:
+    meant = megaohm_reading(text)
+    if meant is None:
+        return None
+    return (f"{text.strip()!r} is {engineering(parse_value(text), 'Ω')} in SPICE (M and m both "
+            f"mean milli); did you mean {meant!r}?")
+
+
+def check_rc_text(text: object, *, file=None, place: str) -> None:
+    """Refuse an Rc value ``text`` written with the milli suffix.
+
+    Parameters
+    ----------
+    text
+        The value as written (a TOML string or number, or the text after ``--set rc=``).
+    file, place
+        Where it was written, for the message.
+
+    Raises
+    ------
+    JobError
+        When ``text`` reads like a megaohm written with SPICE's milli suffix.
+    """
+    problem = isinstance(text, str) and _milli_problem(text)
+    if problem:
+        raise JobError(problem, file=file, place=place)
+
+
+def check_feedback_resistors(job) -> None:
+    """Refuse feedback-network resistors of ``job`` that are written with the milli suffix
+    or come out below 1 Ω (but not 0) at a corner.
+
+    Parameters
+    ----------
+    job
+        A loaded :class:`~amploop.spec.job.Job` (its corners expanded).
+
+    Raises
+    ------
+    JobError
+        Naming the job file, the key and, for a value set through corner parameters, the
+        corner.
+    """
+    keys = ("input", "feedback") if job.feedback.kind == "resistive" else ("dc_path",)
+    for key in keys:
+        text = getattr(job.feedback, key)
+        place = f"[feedback].{key}"
+        problem = _milli_problem(text)
+        if problem:
+            raise JobError(problem, file=job.path, place=place)
+        varies = "{" in text or "'" in text  # an expression: may differ per corner
+        for corner in job.corners if varies else job.corners[:1]:
+            try:
+                value = evaluate(text, {k: repr(v) for k, v in corner.params.items()})
+            except ValueError:
+                break  # left to the simulator, as the other checks do
+            if 0 < value < 1:
+                at = f" at corner {corner.name!r}" if varies else ""
+                raise JobError(
+                    f"is {engineering(value, 'Ω')}{at}: a feedback resistor below 1 Ω "
+                    "shorts the network (write 0 for a short)", file=job.path, place=place,
+                    hint="a megaohm is 'Meg' in SPICE: 1M and 1m are 1 milliohm")

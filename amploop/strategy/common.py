@@ -1,0 +1,411 @@
+"""What every tuning strategy shares: simulating points at all corners, worst cases, history.
+
+A *point* is a set of compensation values by role (``{"cc": 1.2e-12, "rc": 900.0}``).
+The :class:`Evaluator` simulates points at every corner through the runner (so every
+analysis is journalled and counted), and records each simulated point in the history.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from amploop.analysis.loopgain import FrequencyResponse
+from amploop.bench.amplifier import Amplifier
+from amploop.bench.testbench import build_testbench
+from amploop.corners.measure import CornerResult, result_from_output
+from amploop.errors import SimulatorError
+from amploop.sim.ngspice import AnalysisOutput, Step
+from amploop.sim.runner import Runner
+from amploop.spec.job import Corner, Knob, Target
+
+__all__ = [
+    "Evaluator",
+    "HistoryEntry",
+    "Outcome",
+    "PointResult",
+    "WorstCase",
+    "bounds_of",
+    "corner_shortfall",
+    "gm_quantity",
+    "meets_target",
+    "missed_target",
+    "not_simulated",
+    "worst_case",
+]
+
+
+@dataclass(frozen=True)
+class WorstCase:
+    """The worst corner figures of one point.
+
+    Attributes
+    ----------
+    phase_margin_deg
+        The smallest phase margin over the corners.
+    unity_gain_hz
+        The smallest unity-gain frequency over the corners (the bandwidth that is sure).
+    gain_margin_db
+        The smallest gain margin, None when no corner reaches −180°.
+    limiting_corner
+        The corner with the smallest phase margin.
+    bandwidth_corner
+        The corner with the smallest unity-gain frequency.
+    """
+
+    phase_margin_deg: float
+    unity_gain_hz: float
+    gain_margin_db: float | None
+    limiting_corner: str
+    bandwidth_corner: str
+
+
+def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
+    """The worst figures over ``corners`` (one point's results), or None if there are none or
+    any corner did not measure."""
+    if not corners or any(c.status != "ok" or c.margins is None for c in corners):
+        return None
+    by_pm = min(corners, key=lambda c: c.margins.phase_margin_deg)
+    by_ugf = min(corners, key=lambda c: c.margins.unity_gain_hz)
+    gms = [c.margins.gain_margin_db for c in corners if c.margins.gain_margin_db is not None]
+    return WorstCase(
+        phase_margin_deg=float(by_pm.margins.phase_margin_deg),
+        unity_gain_hz=float(by_ugf.margins.unity_gain_hz),
+        gain_margin_db=min(gms) if gms else None,
+        limiting_corner=by_pm.corner.name,
+        bandwidth_corner=by_ugf.corner.name,
+    )
+
+
+def meets_target(worst: WorstCase | None, target: Target) -> bool:
+    """Whether ``worst`` has its phase margin at or above that of ``target`` and its gain
+    margin at or above the target's minimum (a point without a gain margin passes that);
+    False when ``worst`` is None."""
+    if worst is None or worst.phase_margin_deg < target.phase_margin_deg:
+        return False
+    if target.gain_margin_db is not None and worst.gain_margin_db is not None:
+        return worst.gain_margin_db >= target.gain_margin_db
+    return True
+
+
+def _below(value: float, bound: float, unit: str) -> str:
+    """``value`` with as many decimals (2 to 6) as it takes to read below ``bound``."""
+    for decimals in range(2, 7):
+        text = f"{value:.{decimals}f}"
+        if float(text) < bound:
+            break
+    return f"{text}{unit}"
+
+
+def corner_shortfall(corner: CornerResult, target: Target) -> str | None:
+    """What one measured corner misses of ``target``, e.g. ``"GM 9.9956 dB < 10 dB"``;
+    None when it meets it or did not measure.
+
+    Parameters
+    ----------
+    corner
+        One corner's result.
+    target
+        The phase margin (degrees) and the minimum gain margin (dB) every corner must reach.
+    """
+    m = corner.margins
+    if corner.status != "ok" or m is None:
+        return None
+    missed = []
+    if m.phase_margin_deg is not None and m.phase_margin_deg < target.phase_margin_deg:
+        missed.append(f"PM {_below(m.phase_margin_deg, target.phase_margin_deg, '°')} "
+                      f"< {target.phase_margin_deg:g}°")
+    if target.gain_margin_db is not None and m.gain_margin_db is not None and \
+            m.gain_margin_db < target.gain_margin_db:
+        missed.append(f"GM {_below(m.gain_margin_db, target.gain_margin_db, ' dB')} "
+                      f"< {target.gain_margin_db:g} dB")
+    return ", ".join(missed) or None
+
+
+def missed_target(corners: tuple[CornerResult, ...], target: Target) -> str | None:
+    """One sentence on which target the verified corners miss, naming the margin and the
+    corner; None when every corner meets it.
+
+    Parameters
+    ----------
+    corners
+        One point's verified results, one per corner.
+    target
+        The phase margin (degrees) and the minimum gain margin (dB) every corner must reach.
+    """
+    measured = [c for c in corners if c.status == "ok" and c.margins is not None]
+    missed = []
+    for what, attribute, bound, unit in (
+            ("phase margin", "phase_margin_deg", target.phase_margin_deg, "°"),
+            ("gain margin", "gain_margin_db", target.gain_margin_db, " dB")):
+        have = [c for c in measured if getattr(c.margins, attribute) is not None]
+        if bound is None or not have:
+            continue
+        worst = min(have, key=lambda c: getattr(c.margins, attribute))
+        value = getattr(worst.margins, attribute)
+        if value < bound:
+            missed.append(f"the verified {what} {_below(value, bound, unit)} at corner "
+                          f"{worst.corner.name} misses the target {bound:g}{unit}")
+    return "; ".join(missed) or None
+
+
+@dataclass(frozen=True)
+class PointResult:
+    """One point simulated at every corner.
+
+    Attributes
+    ----------
+    values
+        The compensation values in effect by role, SI.
+    corners
+        One result per corner, in the evaluator's corner order.
+    """
+
+    values: dict[str, float]
+    corners: tuple[CornerResult, ...]
+
+    @property
+    def worst(self) -> WorstCase | None:
+        return worst_case(self.corners)
+
+    @property
+    def errors(self) -> list[CornerResult]:
+        return [c for c in self.corners if c.status != "ok"]
+
+
+@dataclass(frozen=True)
+class HistoryEntry:
+    """One simulated point in the story of a tuning run.
+
+    Attributes
+    ----------
+    step
+        Its number in the history, from 1.
+    kind
+        What it was simulated for: ``"characterise"``, ``"verify"``, ``"start"``,
+        ``"dominant-pole"``, ``"lead"``, ``"adjust-cc"``, ``"evaluate"`` or
+        ``"report-map"`` (samples for the report only).
+    values
+        The compensation values in effect by role, SI.
+    worst
+        Its worst-corner figures; None when a corner did not measure.
+    ac_analyses
+        AC analyses (run and reused) so far, this point included.
+    note
+        A remark, such as the round it belongs to.
+    analyses
+        Corner name -> journal key of its analysis.
+    """
+
+    step: int
+    kind: str
+    values: dict[str, float]
+    worst: WorstCase | None
+    ac_analyses: int  # AC analyses (run + reused) so far, this point included
+    note: str = ""
+    analyses: dict[str, str] = field(default_factory=dict)  # corner -> journal key
+
+    def as_json(self) -> dict:
+        """The entry's record in the ``history`` of results.json."""
+        w = self.worst
+        return {
+            "step": self.step,
+            "kind": self.kind,
+            "values": dict(self.values),
+            "worst_phase_margin_deg": w and w.phase_margin_deg,
+            "worst_unity_gain_hz": w and w.unity_gain_hz,
+            "worst_gain_margin_db": w and w.gain_margin_db,
+            "limiting_corner": w and w.limiting_corner,
+            "ac_analyses": self.ac_analyses,
+            "note": self.note,
+            "analyses": dict(self.analyses),
+        }
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What a strategy returns.
+
+    ``status`` is ``"converged"``, ``"infeasible"`` or ``"failed"``; ``final`` is the
+    verified (simulated) point the status is about; ``message`` explains in one sentence.
+
+    Attributes
+    ----------
+    status
+        ``"converged"``, ``"infeasible"`` or ``"failed"``.
+    values
+        The chosen compensation values by role, SI.
+    final
+        The verified point at those values; None when there is none.
+    message
+        One sentence on the result.
+    extra
+        What the strategy adds for results.json (the map's predictions and rounds; the
+        device's figures per corner under ``"device"``).
+    """
+
+    status: str
+    values: dict[str, float]
+    final: PointResult | None
+    message: str
+    extra: dict = field(default_factory=dict)
+
+
+def not_simulated(point: PointResult, values: dict[str, float] | None = None) -> Outcome:
+    """The "failed" outcome of a point with a corner that did not simulate or is suspect
+    (its operating point broken: tuning on it would mean nothing).
+
+    Parameters
+    ----------
+    point
+        The simulated point; its first corner error is the one reported.
+    values
+        The values to report, by role, SI; None for the point's own.
+    """
+    first = point.errors[0]
+    if first.status == "suspect":
+        what = f"corner {first.corner.name} is suspect: " \
+            f"{first.suspect_reason}"
+    else:
+        what = f"corner {first.corner.name} did not simulate: {first.error}"
+    return Outcome("failed", point.values if values is None else values, point, what)
+
+
+def gm_quantity(device: str) -> str:
+    """ngspice's name of the operating-point gm of MOSFET ``device`` inside the amplifier
+    instance X1."""
+    return f"@m.x1.{device.lower()}[gm]"
+
+
+def bounds_of(knob: Knob | None, fallback: float) -> tuple[float, float]:
+    """(min, max) of ``knob``, SI; a bound it lacks is ``fallback``, and so are both when
+    ``knob`` is None."""
+    if knob is None:
+        return fallback, fallback
+    low = knob.minimum if knob.minimum is not None else fallback
+    high = knob.maximum if knob.maximum is not None else fallback
+    return low, high
+
+
+class Evaluator:
+    """Simulates compensation points at every corner, through the journal.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier.
+    corners
+        The corners to simulate at.
+    runner
+        Runs analyses through the journal and the worker pool.
+    time_limit_s
+        Per-analysis time limit.
+    """
+
+    def __init__(self, amplifier: Amplifier, corners: tuple[Corner, ...], runner: Runner,
+                 time_limit_s: float) -> None:
+        self.amplifier = amplifier
+        self.corners = corners
+        self.runner = runner
+        self.time_limit_s = time_limit_s
+        self.history: list[HistoryEntry] = []
+        self.loop_gains: dict[tuple[int, str], FrequencyResponse] = {}
+        self.progress = None  # callable(history_entry) or None
+
+    @property
+    def ac_analyses(self) -> int:
+        return self.runner.ac_run + self.runner.ac_reused
+
+    def full_values(self, values: dict[str, float]) -> dict[str, float]:
+        """The compensation values in effect with ``values`` (by role, SI) applied."""
+        return self.amplifier.values_in_effect(values)
+
+    def simulate(self, points: list[dict[str, float]], kind: str, note: str = ""
+                 ) -> list[PointResult]:
+        """Simulate every point at every corner in one parallel batch; record history.
+
+        Parameters
+        ----------
+        points
+            Compensation values by role, SI; roles left out keep the netlist's value.
+        kind
+            What the points are for, recorded in their history entries
+            (:attr:`HistoryEntry.kind`).
+        note
+            A remark recorded with each of them.
+
+        Returns
+        -------
+        list of PointResult
+            One per point, in order.
+        """
+        points = [self.full_values(p) for p in points]
+        benches = {}
+        for i, values in enumerate(points):
+            for corner in self.corners:
+                label = f"{corner.name} @ " + " ".join(f"{k}={v:.4g}" for k, v in values.items())
+                benches[(i, corner.name)] = build_testbench(self.amplifier, corner, values,
+                                                            label=label)
+        results: dict[tuple[int, str], CornerResult] = {}
+        before = self.ac_analyses
+        requests = [(key, b.request(self.time_limit_s)) for key, b in benches.items()]
+        requests_by_key = dict(requests)
+        for key, output, _ in self.runner.run(requests):
+            results[key] = result_from_output(benches[key], output, self.amplifier)
+        out = []
+        per_point = (self.ac_analyses - before) / max(len(points), 1)
+        for i, values in enumerate(points):
+            corners = tuple(results[(i, c.name)] for c in self.corners)
+            point = PointResult(values=values, corners=corners)
+            out.append(point)
+            keys = {c.name: self.runner.key_of(requests_by_key[(i, c.name)])
+                    for c in self.corners}
+            entry = HistoryEntry(step=len(self.history) + 1, kind=kind, values=values,
+                                 worst=point.worst, ac_analyses=round(before + per_point * (i + 1)),
+                                 note=note, analyses=keys)
+            self.history.append(entry)
+            for c in corners:
+                if c.loop_gain is not None:
+                    self.loop_gains[(entry.step, c.corner.name)] = c.loop_gain
+            if self.progress is not None:
+                self.progress(entry)
+        return out
+
+    def device_quantities(self, quantities: dict[str, str], values: dict[str, float]
+                          ) -> dict[str, dict[str, float]]:
+        """Operating-point quantities per corner, e.g. ``{"gm1": "@m.x1.m1[gm]"}``.
+
+        Runs an ``op`` (no AC) per corner; raises SimulatorError naming the corner when a
+        quantity cannot be read.
+
+        Parameters
+        ----------
+        quantities
+            Name -> ngspice's expression of the quantity.
+        values
+            Compensation values by role, SI; roles left out keep the netlist's value.
+
+        Returns
+        -------
+        dict
+            Corner name -> name -> value (SI).
+        """
+        values = self.full_values(values)
+        names = list(quantities)
+        steps = [Step("op")]
+        for name in names:
+            steps.append(Step(f"let amploop_{name} = {quantities[name]}", (f"amploop_{name}",)))
+        benches = {}
+        for corner in self.corners:
+            bench = build_testbench(self.amplifier, corner, values, label=f"{corner.name} (op)")
+            deck_only = bench.request(self.time_limit_s)
+            benches[corner.name] = type(deck_only)(label=deck_only.label, deck=deck_only.deck,
+                                                   steps=tuple(steps),
+                                                   time_limit_s=self.time_limit_s)
+        found: dict[str, dict[str, float]] = {}
+        for name, output, _ in self.runner.run(list(benches.items())):
+            if isinstance(output, SimulatorError):
+                raise SimulatorError(output.problem, place=name)
+            assert isinstance(output, AnalysisOutput)
+            found[name] = {q: float(output.reads[1 + k][f"amploop_{q}"].real[0])
+                           for k, q in enumerate(names)}
+        return found

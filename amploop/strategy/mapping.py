@@ -1,0 +1,171 @@
+"""The ``map`` strategy: characterise each corner three times, solve on the maps, verify.
+
+1. Simulate every corner at three branch impedances that differ in Cc (spread over the Cc
+   bounds, at one Rc): three double-injection analyses per corner.
+2. Build each corner's :class:`~amploop.analysis.compmap.CompensationMap` and solve the whole
+   multi-corner problem on them (:func:`~.mapsolve.solve_on_maps`).
+3. Simulate every corner at the chosen point. If a verified margin differs from the
+   prediction by more than a tenth of the tolerance (an operating point that moved, a
+   triode device, a parasitic the map does not hold), characterise again around the point
+   and repeat, up to ``max_rounds``. The reported margins are always the verified ones.
+"""
+
+from __future__ import annotations
+
+import math
+
+from amploop.analysis.compmap import CompensationMap
+from amploop.spec.job import Target
+from amploop.spice.units import describe_values
+from amploop.strategy.common import (
+    Evaluator,
+    Outcome,
+    PointResult,
+    bounds_of,
+    missed_target,
+    not_simulated,
+)
+from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
+
+__all__ = ["initial_samples", "tune_by_map"]
+
+
+def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dict[str, float]]:
+    """Three Cc values spread over the bounds at one Rc.
+
+    Parameters
+    ----------
+    cc_bounds
+        (min, max) of Cc, farads: the samples sit at 15, 50 and 85 % of the way from one
+        to the other on a log scale; at 0.8, 1 and 1.25 times the lower bound when the
+        bounds are equal.
+    rc_value
+        The Rc of all three, ohms (or the size of a device standing in for Rc).
+    """
+    low, high = cc_bounds
+    if high <= low:
+        centre = low
+        return [{"cc": centre * f, "rc": rc_value} for f in (0.8, 1.0, 1.25)]
+    span = math.log(high / low)
+    return [{"cc": low * math.exp(span * q), "rc": rc_value} for q in (0.15, 0.5, 0.85)]
+
+
+def samples_around(cc: float, rc: float, cc_bounds) -> list[dict[str, float]]:
+    """Three Cc values close around a point (±20 %), kept inside the bounds."""
+    low, high = cc_bounds
+    values = []
+    for factor in (0.8, 1.0, 1.25):
+        values.append(min(max(cc * factor, low), high))
+    if len(set(values)) < 3:  # squeezed against a bound
+        values = [cc, cc * 1.1, cc * 1.21] if cc * 1.21 <= high else [cc / 1.21, cc / 1.1, cc]
+    return [{"cc": v, "rc": rc} for v in values]
+
+
+def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
+    """A point on the map, ``{"cc", "rc"}``, as the values to simulate by role.
+
+    Without an Rc to tune, the map's Rc coordinate is 0: Z = 1/(sCc), and whatever fixed Rc
+    the netlist holds is part of the map's coefficients (Z_netlist = Rc_fixed + Z is affine
+    in Z, so the loop gain stays bilinear in Z). Only Cc is then set in the netlist.
+    """
+    return dict(point) if has_rc else {"cc": point["cc"]}
+
+
+def _maps(evaluator: Evaluator, results: list[PointResult]) -> dict[str, CompensationMap]:
+    maps = {}
+    for index, corner in enumerate(evaluator.corners):
+        samples = [(p.values["cc"], p.values.get("rc", 0.0)) for p in results]
+        responses = [p.corners[index].loop_gain for p in results]
+        maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
+    return maps
+
+
+def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) -> Outcome:
+    """Run the map strategy; see the module docstring.
+
+    With a MOSFET standing in for Rc, :func:`~.devicemap.tune_device_by_map` runs instead
+    (with at least four rounds).
+
+    Parameters
+    ----------
+    evaluator
+        Simulates points at every corner of its job, within the job's bounds (a value
+        without bounds stays at the netlist's).
+    target
+        The worst-corner phase margin to reach (aiming a tenth of the tolerance above it),
+        the tolerance, and the minimum gain margin.
+    max_rounds
+        How many times at most to characterise, solve and verify.
+
+    Returns
+    -------
+    Outcome
+        ``converged`` with verified margins meeting the target; ``infeasible`` (verified)
+        when no point within the bounds meets it; ``failed`` when corners do not simulate
+        or verification keeps disagreeing with the maps.
+    """
+    if evaluator.amplifier.device is not None:
+        from amploop.strategy.devicemap import tune_device_by_map
+
+        return tune_device_by_map(evaluator, target, max_rounds=max(max_rounds, 4))
+    knobs = evaluator.amplifier.job.compensation
+    in_effect = evaluator.full_values({})
+    has_rc = "rc" in knobs
+    cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])
+    rc_now = in_effect.get("rc", 0.0) if has_rc else 0.0
+    rc_bounds = bounds_of(knobs.get("rc"), rc_now)
+    rc_sample = min(max(rc_now, rc_bounds[0]), rc_bounds[1])
+    aim = target.phase_margin_deg + 0.1 * target.tolerance_deg
+    agreement = target.tolerance_deg / 10.0
+
+    samples = initial_samples(cc_bounds, rc_sample)
+    solution: MapSolution | None = None
+    verified: PointResult | None = None
+    predictions = []
+    for round_number in range(1, max_rounds + 1):
+        characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
+                                           kind="characterise",
+                                           note=f"round {round_number}")
+        failed = next((p for p in characterised if p.errors), None)
+        if failed is not None:
+            return not_simulated(failed, in_effect)
+        maps = _maps(evaluator, characterised)
+        optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        # 4 significant digits, what a designer writes into the netlist and what is
+        # verified, chosen on the maps so that rounding keeps every constraint met
+        solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        point = knob_values({"cc": solution.cc, "rc": solution.rc}, has_rc)
+        verified = evaluator.simulate([point], kind="verify",
+                                      note=f"round {round_number}")[0]
+        predictions.append(solution)
+        worst = verified.worst
+        if worst is None:
+            return not_simulated(verified)
+        if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
+            break
+        samples = samples_around(solution.cc, solution.rc, cc_bounds)
+    assert solution is not None and verified is not None
+    worst = verified.worst
+    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
+    if not solution.feasible:
+        return Outcome(
+            "infeasible", verified.values, verified,
+            f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
+            f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
+            f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
+            extra,
+        )
+    if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
+        return Outcome(
+            "failed", verified.values, verified,
+            f"the maps and the simulation still disagree by "
+            f"{abs(worst.phase_margin_deg - solution.phase_margin_deg):.2f}° after "
+            f"{len(predictions)} rounds (does the operating point depend on Cc or Rc?)", extra,
+        )
+    missed = missed_target(verified.corners, target)
+    if missed is not None:
+        return Outcome("failed", verified.values, verified, missed, extra)
+    return Outcome("converged", verified.values, verified,
+                   f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
+                   f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
+                   extra)

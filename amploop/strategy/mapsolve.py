@@ -1,0 +1,285 @@
+"""Solving the multi-corner compensation problem on compensation maps, in numpy.
+
+Given one :class:`~amploop.analysis.compmap.CompensationMap` per corner, find the (Cc, Rc) within
+the bounds that maximises the worst-corner unity-gain frequency subject to worst-corner
+phase margin ≥ the aim and gain margin ≥ its minimum. A coarse grid over the bounds
+(log-spaced Cc; Rc log-spaced with 0 added when the lower bound is 0) is searched with
+the vectorised :func:`~amploop.analysis.margins.grid_margins`, then four zoom levels refine around
+the best point; the final figures come from the exact :func:`~amploop.analysis.margins.loop_margins`.
+When no point is feasible, the same search minimises the shortfall instead.
+:func:`round_on_maps` then picks the point with 4 significant digits (what a designer
+writes into the netlist) next to the optimum that stays on its feasible side.
+Pure functions: no files, no simulator.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from amploop.analysis.compmap import CompensationMap
+from amploop.analysis.margins import grid_margins, loop_margins
+
+__all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
+           "rounded_neighbours", "solve_on_maps"]
+
+
+@dataclass(frozen=True)
+class MapSolution:
+    """The best point found on the maps, with its predicted worst-corner figures.
+
+    Attributes
+    ----------
+    cc
+        Cc, farads.
+    rc
+        Rc, ohms (the device's size when a device stands in for Rc).
+    feasible
+        Whether the point meets the phase-margin aim and the gain-margin minimum.
+    phase_margin_deg
+        The predicted worst-corner phase margin, degrees.
+    unity_gain_hz
+        The predicted worst-corner unity-gain frequency, Hz.
+    gain_margin_db
+        The predicted worst-corner gain margin, dB; None when no corner has a phase
+        crossover.
+    limiting_corner
+        The corner with the smallest predicted phase margin.
+    """
+
+    cc: float
+    rc: float
+    feasible: bool
+    phase_margin_deg: float
+    unity_gain_hz: float
+    gain_margin_db: float | None
+    limiting_corner: str
+
+
+def cc_grid(low: float, high: float, n: int) -> np.ndarray:
+    """``n`` log-spaced capacitances (F) over [``low``, ``high``]; ``low`` alone when
+    ``high`` is not above it."""
+    if high <= low:
+        return np.array([low])
+    return np.geomspace(low, high, n)
+
+
+def rc_grid(low: float, high: float, n: int) -> np.ndarray:
+    """``n`` resistances (Ω) over [``low``, ``high``]: log-spaced, or, when ``low`` is 0, 0
+    and ``n`` − 1 log-spaced from 1e-4·``high`` (1 mΩ at least); ``low`` alone when ``high``
+    is not above it."""
+    if high <= low:
+        return np.array([low])
+    if low <= 0:
+        return np.concatenate([[0.0], np.geomspace(max(high * 1e-4, 1e-3), high, n - 1)])
+    return np.geomspace(low, high, n)
+
+
+def _worst_on_grid(maps: dict[str, CompensationMap], cc: np.ndarray, rc: np.ndarray,
+                   every: int = 1, rc_of=None):
+    """Worst-corner PM (deg), UGF (Hz), GM (dB) on the cc × rc grid, and the PM corner.
+
+    ``every`` > 1 uses every n-th analysis frequency (a faster, coarser first look)."""
+    shape = (cc.size, rc.size)
+    pm_w = np.full(shape, np.inf)
+    ugf_w = np.full(shape, np.inf)
+    gm_w = np.full(shape, np.inf)
+    limiting = np.zeros(shape, dtype=int)
+    for index, (name, cmap) in enumerate(maps.items()):
+        pick = slice(None, None, every)
+        rc_here = rc if rc_of is None else rc_of[name](rc)
+        values = cmap.loop_gain_values(cc[:, None], rc_here[None, :], frequency_index=pick)
+        pm, ugf, gm = grid_margins(cmap.frequency_hz[pick], values)
+        pm = np.where(np.isnan(pm), -np.inf, pm)
+        ugf = np.where(np.isnan(ugf), 0.0, ugf)
+        limiting = np.where(pm < pm_w, index, limiting)
+        pm_w = np.minimum(pm_w, pm)
+        ugf_w = np.minimum(ugf_w, ugf)
+        gm_w = np.minimum(gm_w, gm)
+    return pm_w, ugf_w, gm_w, limiting
+
+
+def _score(pm_w, ugf_w, gm_w, aim_pm: float, gm_min: float | None):
+    """Feasible mask and a score to maximise (UGF where feasible, −shortfall otherwise)."""
+    gm_ok = np.ones_like(pm_w, dtype=bool) if gm_min is None else gm_w >= gm_min
+    feasible = (pm_w >= aim_pm) & gm_ok & (ugf_w > 0)
+    shortfall = np.maximum(aim_pm - pm_w, 0.0)
+    if gm_min is not None:
+        shortfall = np.maximum(shortfall, np.where(np.isfinite(gm_w), gm_min - gm_w, 0.0))
+    return feasible, shortfall
+
+
+def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min):
+    feasible, shortfall = _score(pm_w, ugf_w, gm_w, aim_pm, gm_min)
+    if feasible.any():
+        score = np.where(feasible, ugf_w, -np.inf)
+        return np.unravel_index(np.argmax(score), score.shape), True
+    # nothing feasible: least shortfall, then the largest phase margin
+    score = -shortfall * 1e3 + np.where(np.isfinite(pm_w), pm_w, -1e9) * 1e-3
+    return np.unravel_index(np.argmax(score), score.shape), False
+
+
+def predicted_worst(maps: dict[str, CompensationMap], cc: float, rc: float, rc_of=None):
+    """Exact worst-corner (PM deg, UGF Hz, GM dB or None, limiting corner) at one point.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    cc
+        Cc, farads.
+    rc
+        Rc, ohms; or, with ``rc_of``, the size of the device standing in for Rc.
+    rc_of
+        For a device standing in for Rc: corner name -> function from the device's size to
+        that corner's channel resistance (Ω); None for a resistor.
+    """
+    worst_pm, worst_ugf, worst_gm, limiting = np.inf, np.inf, None, ""
+    for name, cmap in maps.items():
+        rc_here = rc if rc_of is None else float(rc_of[name](np.array([rc]))[0])
+        m = loop_margins(cmap.loop_gain(cc, rc_here))
+        pm = m.phase_margin_deg if m.phase_margin_deg is not None else -np.inf
+        ugf = m.unity_gain_hz if m.unity_gain_hz is not None else 0.0
+        if pm < worst_pm:
+            worst_pm, limiting = pm, name
+        worst_ugf = min(worst_ugf, ugf)
+        if m.gain_margin_db is not None:
+            worst_gm = m.gain_margin_db if worst_gm is None else min(worst_gm, m.gain_margin_db)
+    return float(worst_pm), float(worst_ugf), worst_gm, limiting
+
+
+def solve_on_maps(
+    maps: dict[str, CompensationMap],
+    cc_bounds: tuple[float, float],
+    rc_bounds: tuple[float, float],
+    aim_pm: float,
+    gm_min: float | None = None,
+    *,
+    points: int = 31,
+    zooms: int = 4,
+    rc_of: dict | None = None,
+) -> MapSolution:
+    """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    cc_bounds, rc_bounds
+        (min, max) in F and Ω; equal bounds fix the value.
+    aim_pm
+        Worst-corner phase margin to reach, degrees.
+    gm_min
+        Worst-corner gain margin to reach, dB (None: no constraint).
+    points
+        Grid points per axis for the coarse search.
+    zooms
+        Refinement levels around the best grid point (9 × 9 each, every frequency).
+    rc_of
+        For a device standing in for Rc: corner name -> function from the device's size to
+        that corner's channel resistance (Ω); ``rc_bounds`` are then size bounds.
+
+    Returns
+    -------
+    MapSolution
+        ``feasible`` False means no grid point met the constraints; the point returned then
+        has the least shortfall (the best worst-corner margin reachable).
+    """
+    cc = cc_grid(*cc_bounds, points)
+    rc = rc_grid(*rc_bounds, points)
+    (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, every=2, rc_of=rc_of)[:3],
+                                   aim_pm, gm_min)
+    best_cc, best_rc = float(cc[i]), float(rc[j])
+    for _ in range(zooms):
+        cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
+        rc_lo, rc_hi = rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)]
+        cc = np.unique(np.concatenate([np.geomspace(cc_lo, cc_hi, 9) if cc_hi > cc_lo
+                                       else [cc_lo], [best_cc]]))
+        rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 9) if rc_hi > rc_lo
+                                       else [rc_lo], [best_rc]]))
+        (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, rc_of=rc_of)[:3],
+                                       aim_pm, gm_min)
+        best_cc, best_rc = float(cc[i]), float(rc[j])
+    pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
+    return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
+                       unity_gain_hz=ugf, gain_margin_db=gm, limiting_corner=limiting)
+
+
+def rounded_neighbours(value: float, bounds: tuple[float, float], digits: int = 4,
+                       reach: int = 2) -> list[float]:
+    """Values with ``digits`` significant digits around ``value``, kept inside ``bounds``.
+
+    ``reach`` steps of the last digit below and above: with ``reach`` = 2 and
+    ``value`` = 2.95812e-13, [2.957e-13, 2.958e-13, 2.959e-13, 2.96e-13] (sorted, without
+    repeats; a value clipped to a bound is the bound itself). 0 and non-finite values are
+    only clipped.
+
+    Parameters
+    ----------
+    value
+        The value, SI.
+    bounds
+        (min, max), SI.
+    digits
+        Significant digits of the neighbours.
+    reach
+        How many steps of the last digit to go each way.
+    """
+    low, high = bounds
+    if value == 0 or not math.isfinite(value):
+        return [min(max(value, low), high)]
+    step = 10.0 ** (math.floor(math.log10(abs(value))) - digits + 1)
+    down, up = math.floor(value / step), math.ceil(value / step)
+    candidates = [(down - k) * step for k in range(reach)] + [(up + k) * step for k in range(reach)]
+    return sorted({min(max(float(f"{v:.{digits}g}"), low), high) for v in candidates})
+
+
+def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
+                  cc_bounds: tuple[float, float], rc_bounds: tuple[float, float],
+                  aim_pm: float, gm_min: float | None = None, *, digits: int = 4,
+                  rc_of: dict | None = None) -> MapSolution:
+    """The point with ``digits`` significant digits next to ``solution`` that keeps its
+    constraints met on the maps.
+
+    The optimum usually sits on a constraint (the phase-margin aim, or the gain-margin
+    minimum, which has no slack), so rounding each value to its nearest neighbour can
+    step just outside it (9.9956 dB against 10 dB). Instead, every pair of
+    :func:`rounded_neighbours` of Cc and Rc (two steps each way) is evaluated exactly on
+    the maps (:func:`predicted_worst`) and the best is chosen as in the search: the largest
+    worst-corner unity-gain frequency among the feasible pairs, else the least shortfall.
+
+    Parameters
+    ----------
+    maps
+        One compensation map per corner (by name).
+    solution
+        The optimum found by :func:`solve_on_maps`.
+    cc_bounds, rc_bounds
+        (min, max) in F and Ω (sizes with ``rc_of``).
+    aim_pm
+        Worst-corner phase margin to reach, degrees.
+    gm_min
+        Worst-corner gain margin to reach, dB (None: no constraint).
+    digits
+        Significant digits of the values.
+    rc_of
+        As for :func:`solve_on_maps`.
+
+    Returns
+    -------
+    MapSolution
+        The rounded point with its predicted figures; ``feasible`` is that of ``solution``
+        (whether the problem has an answer within the bounds).
+    """
+    cc_values = rounded_neighbours(solution.cc, cc_bounds, digits)
+    rc_values = rounded_neighbours(solution.rc, rc_bounds, digits)
+    figures = [[predicted_worst(maps, cc, rc, rc_of) for rc in rc_values] for cc in cc_values]
+    pm = np.array([[f[0] for f in row] for row in figures])
+    ugf = np.array([[f[1] for f in row] for row in figures])
+    gm = np.array([[np.inf if f[2] is None else f[2] for f in row] for row in figures])
+    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min)
+    best_pm, best_ugf, best_gm, limiting = figures[i][j]
+    return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,
+                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, limiting_corner=limiting)

@@ -1,0 +1,379 @@
+"""``amploop tune``: choose Cc and Rc so the worst corner meets the target margin.
+
+Callable from Python as :func:`tune`. Every analysis goes through the out folder's
+journal, so a rerun (or ``--resume``) of the same job repeats none that finished; the
+strategies are deterministic, so the rerun retraces the same steps and lands on the same
+values.
+"""
+
+from __future__ import annotations
+
+import difflib
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+from amploop.bench.amplifier import Amplifier, prepare_amplifier
+from amploop.corners.measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
+from amploop.corners.outputs import OutFolder, remove_stale
+from amploop.corners.portable_decks import copy_includes
+from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
+from amploop.errors import JobError, JournalError
+from amploop.sim.journal import Journal, file_digests
+from amploop.sim.pool import WorkerPool
+from amploop.sim.runner import Runner
+from amploop.spec.job import Job
+from amploop.strategy import STRATEGIES, Evaluator, Outcome
+from amploop.strategy.common import Evaluator as _Evaluator
+from amploop.strategy.common import HistoryEntry, bounds_of
+from amploop.strategy.mapping import initial_samples
+from amploop.strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
+
+__all__ = ["TuneResult", "tune"]
+
+
+@dataclass(frozen=True)
+class TuneResult:
+    """A finished tuning run.
+
+    Attributes
+    ----------
+    job
+        The job tuned.
+    strategy
+        The strategy's name (``"map"``, ``"textbook"``).
+    outcome
+        What the strategy returned: status, values, the verified point, message.
+    history
+        Every simulated point, in order.
+    ac_run, ac_reused
+        AC analyses simulated, and AC analyses taken from the journal.
+    out
+        The out folder.
+    seconds
+        Wall time of the run, seconds.
+    compensated
+        The compensated netlist: ``{"path", "files", "diff"}``; None unless the run
+        converged (a run that misses its target writes none).
+    loop_gains
+        (history step, corner name) -> the loop gain simulated there.
+    simulator_seconds
+        Wall time, seconds, the workers spent inside ngspice.
+    step_checks
+        Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` at the final values (empty
+        when not run).
+    transient_run, transient_reused
+        Transient analyses simulated, and transient analyses taken from the journal.
+    values_in_netlist
+        The compensation values the netlist holds, by role, SI.
+    warnings
+        Remarks on the amplifier and on the tuned point, then the step checks' warnings,
+        then the journal's notes (damaged records recomputed).
+    """
+
+    job: Job
+    strategy: str
+    outcome: Outcome
+    history: tuple[HistoryEntry, ...]
+    ac_run: int
+    ac_reused: int
+    out: Path | None
+    seconds: float
+    compensated: dict | None = None
+    loop_gains: dict | None = None
+    simulator_seconds: float = 0.0
+    step_checks: dict = field(default_factory=dict)
+    transient_run: int = 0
+    transient_reused: int = 0
+    values_in_netlist: dict = field(default_factory=dict)
+    warnings: tuple = ()
+
+    @property
+    def status(self) -> str:
+        return self.outcome.status
+
+    @property
+    def corners(self) -> tuple[CornerResult, ...]:
+        return self.outcome.final.corners if self.outcome.final else ()
+
+    def as_json(self) -> dict:
+        """The content of results.json for this tuning run."""
+        target = self.job.target
+        worst = self.outcome.final.worst if self.outcome.final else None
+        return {
+            "schema": SCHEMA,
+            "command": "tune",
+            "job": self.job.name,
+            "strategy": self.strategy,
+            "status": self.status,
+            "message": self.outcome.message,
+            "values": dict(self.outcome.values),
+            "target": {
+                "phase_margin_deg": target.phase_margin_deg,
+                "tolerance_deg": target.tolerance_deg,
+                "gain_margin_db": target.gain_margin_db,
+            },
+            "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
+                        for c in self.corners],
+            "limiting_corner": worst.limiting_corner if worst else None,
+            "worst": None if worst is None else {
+                "phase_margin_deg": worst.phase_margin_deg,
+                "unity_gain_hz": worst.unity_gain_hz,
+                "gain_margin_db": worst.gain_margin_db,
+                "bandwidth_corner": worst.bandwidth_corner,
+            },
+            "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
+            "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
+            "probe": self.job.analysis.probe,
+            "job_file": str(self.job.path),
+            "values_in_netlist": dict(self.values_in_netlist),
+            "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
+            "history": [h.as_json() for h in self.history],
+            "compensated_netlist": self.compensated,
+            "device": self.outcome.extra.get("device"),
+            "warnings": list(self.warnings),
+            "seconds": self.seconds,
+        }
+
+
+def _step_warnings(checks: dict) -> tuple[str, ...]:
+    return tuple(c.warning for c in checks.values() if getattr(c, "warning", None))
+
+
+def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
+    knobs = evaluator.amplifier.job.compensation
+    in_effect = evaluator.full_values({})
+    rc_bounds = bounds_of(knobs.get("rc"), in_effect.get("rc", 0.0))
+    rc = min(max(in_effect.get("rc", 0.0), rc_bounds[0]), rc_bounds[1])
+    samples = initial_samples(bounds_of(knobs["cc"], in_effect["cc"]), rc)
+    if "rc" not in in_effect:
+        samples = [{"cc": p["cc"]} for p in samples]
+    return samples
+
+
+def compensated_netlist(amplifier: Amplifier, values: dict[str, float], folder: OutFolder
+                        ) -> dict:
+    """Write copies of the changed netlist files with ``values`` in; return path(s) and diff."""
+    changed = amplifier.compensated_files(values)
+    written = []
+    diffs = []
+    for path, text in changed.items():
+        target = folder.write_text(f"compensated/{path.name}", text)
+        written.append(str(target))
+        original = path.read_text(encoding="utf-8", errors="replace").splitlines(keepends=True)
+        diffs.extend(difflib.unified_diff(original, text.splitlines(keepends=True),
+                                          fromfile=str(path), tofile=str(target)))
+    root_copy = folder.path / "compensated" / amplifier.netlist.root.name
+    return {
+        "path": str(root_copy) if str(root_copy) in written else (written[0] if written else None),
+        "files": written,
+        "diff": "".join(diffs),
+    }
+
+
+def tune(
+    job: Job,
+    *,
+    out: str | Path,
+    strategy: str = "map",
+    workers: int | None = None,
+    pool: WorkerPool | None = None,
+    allow_control: bool = False,
+    resume: bool = False,
+    progress: Callable[[HistoryEntry], None] | None = None,
+    time_domain: bool = True,
+    finish: Callable[[TuneResult], None] | None = None,
+) -> TuneResult:
+    """Tune the compensation of ``job`` at all its corners.
+
+    Parameters
+    ----------
+    job
+        A loaded job with a ``[target]`` table and bounds on its compensation.
+    out
+        The out folder (results.json, journal, compensated netlist, decks).
+    strategy
+        ``"map"`` (default) or ``"textbook"``.
+    workers, pool
+        Worker processes (default: the CPU count), or an existing pool.
+    allow_control
+        Accept ``.control`` blocks in the user's files.
+    resume
+        Require an existing journal in ``out`` (a rerun without it reuses one too).
+    progress
+        Called after every simulated point with its history entry.
+    time_domain
+        Run the closed-loop step check per corner at the final values (for the report).
+    finish
+        Called with the result once results.json is written, while the out folder is still
+        held (the command line prints the results and draws the report there).
+
+    Returns
+    -------
+    TuneResult
+        Its ``status`` is "converged", "infeasible" or "failed" (Ctrl-C raises
+        KeyboardInterrupt after writing results.json with status "interrupted", the
+        history so far and the command that resumes); the figures are from the
+        final verifying simulation.
+    """
+    if job.target is None:
+        raise JobError("tuning needs a [target] table (phase_margin, tolerance, gain_margin)",
+                       file=job.path, place="[target]")
+    if "cc" not in job.compensation or job.compensation["cc"].minimum is None or \
+            job.compensation["cc"].maximum is None:
+        raise JobError("tuning needs bounds on Cc: cc = { ..., min = \"0.1p\", max = \"20p\" }",
+                       file=job.path, place="[compensation].cc")
+    rc_knob = job.compensation.get("rc")
+    if rc_knob is not None and (rc_knob.minimum is None or rc_knob.maximum is None):
+        raise JobError("tuning needs bounds on Rc: rc = { ..., min = \"0\", max = \"50k\" }",
+                       file=job.path, place="[compensation].rc")
+    if strategy not in STRATEGIES:
+        from amploop.errors import did_you_mean
+
+        raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
+    started = time.perf_counter()
+    amplifier = prepare_amplifier(job, allow_control=allow_control)
+    folder = OutFolder(out)
+    journal_path = folder.path / JOURNAL_FILE
+    if resume and not journal_path.exists():
+        raise JournalError("nothing to resume: this out folder has no journal", file=folder.path,
+                           hint="run without --resume to start")
+    with folder.lock(), Journal(journal_path) as journal:
+        own_pool = pool is None
+        pool = pool or WorkerPool(workers)
+        runner = Runner(pool, journal, file_digests(amplifier.files))
+        evaluator = Evaluator(amplifier, job.corners, runner, job.analysis.time_limit_s)
+        evaluator.progress = progress
+        try:
+            outcome = _refuse_suspect(STRATEGIES[strategy](evaluator, job.target))
+            outcome, remarks = _with_remarks(evaluator, outcome)
+            if outcome.final is not None and time_domain and not any(
+                    h.kind == "characterise" for h in evaluator.history):
+                # the report's map page needs three samples per corner; journalled like the
+                # rest, kept apart in the history
+                evaluator.simulate(_report_samples(evaluator), kind="report-map",
+                                   note="samples for the report's compensation map")
+            checks = {}
+            if outcome.final is not None and time_domain:
+                ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
+                stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
+                                                 outcome.final.corners if c.status == "ok"])
+                device = outcome.extra.get("device")
+                vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
+                checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
+                                         job.analysis.time_limit_s, device_vt=vt)
+        except KeyboardInterrupt:
+            _write_interrupted(folder, amplifier, strategy, evaluator, runner, started)
+            raise
+        finally:
+            if own_pool:
+                pool.close()
+        compensated = None
+        if outcome.status == "converged":
+            compensated = compensated_netlist(amplifier, outcome.values, folder)
+        else:
+            _remove_compensated(folder, amplifier)
+        corner_files_written = []
+        if outcome.final is not None:
+            corner_files_written = _write_final_files(folder, amplifier, outcome)
+        remove_stale(folder.path, corner_files_written)
+        result = TuneResult(job=job, strategy=strategy, outcome=outcome,
+                            history=tuple(evaluator.history), ac_run=runner.ac_run,
+                            ac_reused=runner.ac_reused, out=folder.path,
+                            seconds=time.perf_counter() - started, compensated=compensated,
+                            loop_gains=dict(evaluator.loop_gains),
+                            simulator_seconds=runner.simulator_seconds, step_checks=checks,
+                            transient_run=runner.transient_run,
+                            transient_reused=runner.transient_reused,
+                            values_in_netlist=amplifier.values_in_effect({}),
+                            warnings=amplifier.warnings + remarks + _step_warnings(checks)
+                            + journal.notes())
+        folder.write_json("results.json", result.as_json())
+        journal.commit()
+        if finish is not None:
+            finish(result)
+    return result
+
+
+def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tuple[str, ...]]:
+    """The outcome with a note on values at or near their bounds added to its message, and
+    the warning on a lead zero below the unity-gain frequency (when the job names the
+    second-stage device and tunes a resistor for Rc)."""
+    if outcome.final is None or outcome.final.worst is None:
+        return outcome, ()
+    job = evaluator.amplifier.job
+    outcome = replace(outcome, message=outcome.message
+                      + bound_remark(outcome.values, job.compensation))
+    if "rc" not in job.compensation:
+        return outcome, ()
+    gm2 = second_stage_gm(evaluator)
+    lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
+    return outcome, (lead,) if lead else ()
+
+
+def _remove_compensated(folder: OutFolder, amplifier: Amplifier) -> None:
+    """Remove compensated copies an earlier run wrote into this out folder: a run that did
+    not meet its target writes none, and an old copy would read as this run's answer."""
+    for path in amplifier.netlist.files:
+        stale = folder.path / "compensated" / path.name
+        if stale.is_file():
+            stale.unlink()
+
+
+def _refuse_suspect(outcome: Outcome) -> Outcome:
+    """``outcome``, or "failed" when it claims convergence with a corner that is not "ok"
+    (a suspect corner's margins describe a broken operating point)."""
+    if outcome.status != "converged" or outcome.final is None:
+        return outcome
+    bad = next((c for c in outcome.final.corners if c.status != "ok"), None)
+    if bad is None:
+        return outcome
+    return Outcome("failed", outcome.values, outcome.final,
+                   f"not converged: corner {bad.corner.name} is {bad.status}: {bad.problem}",
+                   outcome.extra)
+
+
+def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
+                       evaluator: _Evaluator, runner: Runner, started: float) -> None:
+    """results.json of a run stopped by Ctrl-C: status "interrupted", every point simulated
+    so far in the history, the analyses counted, and the command that resumes it (and no
+    compensated netlist of an earlier run left to read as this one's)."""
+    job = amplifier.job
+    _remove_compensated(folder, amplifier)
+    command = f"amploop tune {job.path} --out {folder.path}"
+    if strategy != "map":
+        command += f" --strategy {strategy}"
+    message = (f"interrupted after {len(evaluator.history)} simulated points "
+               f"({runner.ac_run + runner.ac_reused} AC analyses); `{command} --resume` "
+               "continues from the journal")
+    result = TuneResult(job=job, strategy=strategy,
+                        outcome=Outcome("interrupted", {}, None, message),
+                        history=tuple(evaluator.history), ac_run=runner.ac_run,
+                        ac_reused=runner.ac_reused, out=folder.path,
+                        seconds=time.perf_counter() - started,
+                        simulator_seconds=runner.simulator_seconds,
+                        transient_run=runner.transient_run,
+                        transient_reused=runner.transient_reused,
+                        values_in_netlist=amplifier.values_in_effect({}),
+                        warnings=amplifier.warnings)
+    folder.write_json("results.json", result.as_json())
+
+
+def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> list[str]:
+    """Per-corner loop-gain CSVs and rerunnable decks at the final values; returns the
+    files written, relative to the folder."""
+    from amploop.bench.testbench import build_testbench
+
+    stems = corner_files(amplifier.job.corners)
+    written = []
+    includes = None
+    for corner_result in outcome.final.corners:
+        name = corner_result.corner.name
+        bench = build_testbench(amplifier, corner_result.corner, outcome.values)
+        includes = includes or copy_includes(folder.path, bench.deck)
+        work = CornerWork.for_corner(bench, folder.path, stems[name], includes)
+        work.write_files(corner_result.loop_gain)
+        written += work.files(corner_result)
+    return written
+
