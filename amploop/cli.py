@@ -9,8 +9,8 @@ import argparse
 import json
 import sys
 from enum import IntEnum
+from importlib.metadata import version
 
-from amploop import __version__
 from amploop.errors import (
     AmploopError,
     JobError,
@@ -54,7 +54,7 @@ def _parser() -> argparse.ArgumentParser:
         epilog="Results are only as good as the device models; sign-off stays with your own "
         "models, flow and foundry rules.",
     )
-    parser.add_argument("--version", action="version", version=f"amploop {__version__}")
+    parser.add_argument("--version", action="version", version=f"amploop {version('amploop')}")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     common = argparse.ArgumentParser(add_help=False)
@@ -265,7 +265,8 @@ def _cluster_pool(args):
 
 def _run_measure(args) -> ExitCode:
     from amploop.corners.measure import measure
-    from amploop.spec.job import load_job, parse_overrides
+    from amploop.spec.job import load_job
+    from amploop.spec.overrides import parse_overrides
 
     job = load_job(args.job)
     overrides = parse_overrides(args.set, job)
@@ -350,7 +351,8 @@ def _tune_progress(quiet: bool, job):
 
 
 def _run_tune(args) -> ExitCode:
-    from amploop.spec.job import load_job, parse_overrides
+    from amploop.spec.job import load_job
+    from amploop.spec.overrides import parse_overrides
     from amploop.strategy.tune import tune
 
     job = load_job(args.job)

@@ -57,11 +57,13 @@ class AmploopError(Exception):
         text = f"{where}: {self.problem}" if where else self.problem
         if self.hint:
             text += f" ({self.hint})"
-        return _one_line(text)
+        return one_line(text)
 
 
-def _one_line(text: str) -> str:
-    """Control characters (a newline in a file name, say) escaped: a message is one line."""
+def one_line(text: object) -> str:
+    """``text`` (a message, a path, a name) with control characters and line breaks
+    escaped, so that a message that quotes it stays one line: the one escaping helper."""
+    text = str(text)
     if text.isprintable():
         return text
     return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)

@@ -24,13 +24,13 @@ distributed = pytest.importorskip("distributed")
 
 from conftest import DEMO
 
-from amploop.sim import cluster as cluster_module
 from amploop.bench.amplifier import prepare_amplifier
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.bench.testbench import build_testbench
 from amploop.cli import main
 from amploop.errors import SimulatorError
+from amploop.sim import cluster as cluster_module
 from amploop.sim.cluster import ClusterPool, FileBundler, include_targets, run_analysis
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest, Step
 from amploop.sim.pool import WorkerPool
 from amploop.spec.job import load_job
 from amploop.strategy.tune import tune

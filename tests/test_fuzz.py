@@ -51,7 +51,8 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from amploop.errors import AmploopError, JobError, NetlistError
-from amploop.spec.job import Job, load_job
+from amploop.spec.job import load_job
+from amploop.spec.model import Job
 from amploop.spice.expressions import evaluate
 from amploop.spice.netlist import (
     Netlist,

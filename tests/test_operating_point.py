@@ -19,11 +19,12 @@ from pathlib import Path
 import pytest
 from conftest import DEMO, REPO
 
+from amploop.bench.requests import AnalysisRequest, Step
 from amploop.bench.testbench import build_testbench
 from amploop.cli import main
 from amploop.corners.measure import measure
 from amploop.errors import JobError
-from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step
+from amploop.sim.ngspice import NgspiceSession
 from amploop.spec.job import load_job
 from amploop.strategy.tune import tune
 

@@ -8,8 +8,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from amploop.bench.requests import AnalysisRequest, Step
 from amploop.errors import SimulatorError
-from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step, summarise_failure
+from amploop.sim.ngspice import NgspiceSession, summarise_failure
 
 RC = "rc low-pass\nV1 a 0 dc 0 ac 1\nR1 a b 1k\nC1 b 0 1n\n.end\n"
 

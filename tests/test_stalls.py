@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 from stopping import StopHalfwayThroughTheAnswer
 
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest, Step
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.sim.pool import WorkerPool
 
 FAST = AnalysisRequest("fast", "* fast\nV1 a 0 dc 1\nR1 a 0 1k\n.end\n",

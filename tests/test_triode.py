@@ -21,9 +21,10 @@ from amploop.analysis.triode import (
     size_for_resistance,
     square_law_resistance,
 )
+from amploop.bench.requests import AnalysisRequest, Step
 from amploop.cli import main
 from amploop.corners.measure import measure
-from amploop.sim.ngspice import AnalysisRequest, NgspiceSession, Step
+from amploop.sim.ngspice import NgspiceSession
 from amploop.spec.job import load_job
 from amploop.strategy.tune import tune
 

@@ -18,7 +18,8 @@ from conftest import DEMO
 
 from amploop.cli import corner_table, main
 from amploop.corners.measure import measure
-from amploop.spec.job import Knob, Target, load_job
+from amploop.spec.job import load_job
+from amploop.spec.model import Knob, Target
 from amploop.strategy.common import corner_shortfall, missed_target
 from amploop.strategy.remarks import bound_remark
 from amploop.strategy.tune import tune

@@ -11,8 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+from amploop.bench.nodes import NODE_AMP, port_node
 from amploop.errors import NetlistError, did_you_mean
-from amploop.spec.job import Job, Knob
+from amploop.spec.model import Job, Knob
 from amploop.spice.deckfiles import files_read
 from amploop.spice.netlist import (
     Netlist,
@@ -112,7 +113,6 @@ class Amplifier:
     def node_vector(self, node: str) -> str:
         """ngspice's vector name of the voltage of subckt node ``node`` in the testbench:
         ``v(x1.nz)`` for an inner node, the testbench node's for a port, ``"0"`` for ground."""
-        from amploop.bench.testbench import NODE_AMP, port_node
 
         index = self.subckt.port_index(node)
         if node == "0":

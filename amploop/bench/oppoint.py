@@ -26,7 +26,9 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from amploop.sim.ngspice import Step
+from amploop.bench.nodes import NODE_AMP, port_node
+from amploop.bench.requests import Step
+from amploop.spec.model import OperatingPointLimits
 from amploop.spice.units import engineering
 
 if TYPE_CHECKING:
@@ -34,17 +36,7 @@ if TYPE_CHECKING:
     from amploop.analysis.margins import Margins
     from amploop.bench.amplifier import Amplifier
 
-__all__ = [
-    "DeviceRegion",
-    "OperatingPoint",
-    "OperatingPointLimits",
-    "OperatingPointProbe",
-    "corner_status",
-    "device_vector",
-    "read_limits",
-    "status_label",
-    "warning_advice",
-]
+__all__ = ["DeviceRegion", "OperatingPoint", "OperatingPointProbe", "corner_status", "device_vector", "status_label", "warning_advice"]
 
 #: The plot ngspice makes of the first AC analysis's operating point (``keepopinfo``).
 OP_PLOT = "op1"
@@ -56,38 +48,6 @@ KEEP_OP_LINE = ".options keepopinfo"
 INPUT_SHIFT_V = 1e-3
 
 _ROLES = ("input_device", "second_stage_device")
-_KEYS = {"min_dc_loop_gain", "max_output_shift"}
-
-
-@dataclass(frozen=True)
-class OperatingPointLimits:
-    """``[operating_point]``: when a measured corner counts as suspect.
-
-    Attributes
-    ----------
-    min_dc_loop_gain_db
-        The lowest DC loop gain a usable corner has, dB (default 20).
-    max_output_shift
-        How far the DC output may sit from the common mode, as a share of the supply span
-        (the highest minus the lowest of the voltage sources on the ports and ground);
-        default 0.1.
-    """
-
-    min_dc_loop_gain_db: float = 20.0
-    max_output_shift: float = 0.1
-
-
-def read_limits(reader, data: dict) -> OperatingPointLimits:
-    """The ``[operating_point]`` table ``data`` read with the job reader ``reader``
-    (``job._Reader``); defaults for what it leaves out."""
-    reader.known(data, _KEYS, "[operating_point]")
-    gain = reader.number(data.get("min_dc_loop_gain", 20.0),
-                         "[operating_point].min_dc_loop_gain")
-    share = reader.number(data.get("max_output_shift", 0.1), "[operating_point].max_output_shift")
-    if not 0 < share <= 1:
-        raise reader.fail("[operating_point].max_output_shift",
-                          f"expected a share of the supply span such as 0.1, got {share:g}")
-    return OperatingPointLimits(min_dc_loop_gain_db=gain, max_output_shift=share)
 
 
 def device_vector(name: str, quantity: str) -> str:
@@ -245,7 +205,6 @@ class OperatingPointProbe:
     @classmethod
     def for_amplifier(cls, amplifier: Amplifier) -> OperatingPointProbe:
         """The read-out for ``amplifier``'s testbench."""
-        from amploop.bench.testbench import NODE_AMP, port_node
 
         job = amplifier.job
         supplies = tuple(dict.fromkeys(f"v({port_node(s.port)})" for s in job.bias.sources

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from amploop.analysis.loopgain import FrequencyResponse, double_injection, voltage_break
-from amploop.sim.ngspice import Step
+from amploop.bench.requests import Step
 
 __all__ = ["DoubleInjection", "LcBreak", "Probe", "make_probe"]
 

@@ -23,32 +23,15 @@ from pathlib import Path
 
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.amplifier import Amplifier
+from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK, port_node
 from amploop.bench.oppoint import KEEP_OP_LINE, OperatingPoint, OperatingPointProbe
 from amploop.bench.probe import Probe, make_probe
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest, Step
-from amploop.spec.job import Corner
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
+from amploop.spec.model import Corner
 from amploop.spice.ngread import deck_text
 from amploop.spice.units import parse_value, spice_number
 
-__all__ = [
-    "NODE_AMP",
-    "NODE_FEEDBACK",
-    "StepBench",
-    "Testbench",
-    "build_step_testbench",
-    "build_testbench",
-    "port_node",
-]
-
-#: Amplifier side of the probe: the subckt's output with the load.
-NODE_AMP = "tb_out"
-#: Feedback side of the probe: where the feedback network meets the output.
-NODE_FEEDBACK = "tb_fb"
-
-
-def port_node(port: str) -> str:
-    """Top-level node name the testbench gives the subckt port ``port``."""
-    return "tb_" + "".join(ch if ch.isalnum() or ch == "_" else "_" for ch in port.lower())
+__all__ = ["StepBench", "Testbench", "build_step_testbench", "build_testbench"]
 
 
 @dataclass(frozen=True)

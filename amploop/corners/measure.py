@@ -15,15 +15,21 @@ import numpy as np
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
-from amploop.bench.oppoint import OperatingPoint, OperatingPointLimits, corner_status
+from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.bench.testbench import Testbench, build_testbench
-from amploop.corners.outputs import OutFolder, loop_gain_csv, remove_stale, write_into
+from amploop.corners.outputs import (
+    OutFolder,
+    loop_gain_csv,
+    remove_stale,
+    safe_filename,
+    write_into,
+)
 from amploop.corners.portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
 from amploop.errors import AmploopError, MeasurementError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool, default_workers
 from amploop.sim.runner import Runner
-from amploop.spec.job import Corner, Job, safe_filename
+from amploop.spec.model import Corner, Job, OperatingPointLimits
 
 __all__ = [
     "CornerResult",

@@ -15,7 +15,7 @@ from amploop.bench.amplifier import Amplifier
 from amploop.bench.testbench import build_step_testbench
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
-from amploop.spec.job import Corner
+from amploop.spec.model import Corner
 
 __all__ = ["StepCheck", "run_step_checks", "step_stop_s", "with_step"]
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 from matplotlib.backends.backend_pdf import PdfPages
 
-from amploop.corners.outputs import OutFolder, is_folder
+from amploop.corners.outputs import OutFolder, is_folder, safe_filename
 from amploop.errors import OutputError
 from amploop.report import selection, style
 from amploop.report.data import ReportData, load_report_data
@@ -29,7 +29,6 @@ from amploop.report.pages import (
     summary_pages,
     time_domain_page,
 )
-from amploop.spec.job import safe_filename
 
 __all__ = ["PNG_CORNER_PAGES", "ReportOutcome", "build_report"]
 

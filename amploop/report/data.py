@@ -18,8 +18,8 @@ import numpy as np
 
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.loopgain import FrequencyResponse
+from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK
 from amploop.bench.probe import make_probe
-from amploop.bench.testbench import NODE_AMP, NODE_FEEDBACK
 from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JournalError, OutputError
 from amploop.sim.journal import Journal

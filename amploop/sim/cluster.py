@@ -48,12 +48,12 @@ from collections import OrderedDict
 from collections.abc import Callable, Hashable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import replace
+from importlib.metadata import version
 from typing import Self
 
-from amploop import __version__
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import JobError, SimulatorError
 from amploop.sim.deadlines import run_with_deadlines
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
 
 __all__ = ["ClusterPool", "FileBundler", "include_targets", "move_include_paths", "run_analysis",
            "worker_check"]
@@ -370,7 +370,7 @@ def worker_check() -> dict:
     """What a worker reports when the coordinator connects (run there by ``client.run``)."""
     import sys
 
-    return {"amploop": __version__, "python": sys.version.split()[0], "pid": os.getpid()}
+    return {"amploop": version("amploop"), "python": sys.version.split()[0], "pid": os.getpid()}
 
 
 # -- on the coordinator -----------------------------------------------------------------
@@ -461,10 +461,10 @@ class ClusterPool:
             if isinstance(report, BaseException) or not isinstance(report, dict):
                 raise SimulatorError(f"Dask worker {worker} cannot run amploop: {report!r}",
                                      hint="install amploop (and ngspice) on every worker")
-            if report.get("amploop") != __version__:
+            if report.get("amploop") != version("amploop"):
                 raise SimulatorError(
                     f"Dask worker {worker} has amploop {report.get('amploop')}, this machine "
-                    f"{__version__}", hint="install the same amploop on every worker")
+                    f"{version('amploop')}", hint="install the same amploop on every worker")
 
     @property
     def client(self):

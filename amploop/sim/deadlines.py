@@ -27,8 +27,8 @@ from collections import deque
 from collections.abc import Callable, Hashable, Iterable, Iterator
 from dataclasses import dataclass
 
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import SimulatorError
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
 
 __all__ = ["deadline_s", "run_with_deadlines"]
 

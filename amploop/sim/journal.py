@@ -34,8 +34,8 @@ from urllib.parse import quote
 
 import numpy as np
 
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import JournalError
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
 
 __all__ = ["JOURNAL_SCHEMA", "Journal", "analysis_key", "file_digests"]
 

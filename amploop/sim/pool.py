@@ -23,9 +23,9 @@ from dataclasses import dataclass, field, replace
 from multiprocessing.connection import wait
 from typing import Self
 
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import SimulatorError
 from amploop.sim.frames import FrameReader, Sender, send_frame
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
 
 __all__ = ["WorkerPool", "default_workers", "start_fork_server"]
 

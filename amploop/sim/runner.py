@@ -9,9 +9,9 @@ from __future__ import annotations
 from collections.abc import Hashable, Iterable, Iterator
 from dataclasses import dataclass, field
 
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import SimulatorError
 from amploop.sim.journal import Journal, analysis_key
-from amploop.sim.ngspice import AnalysisOutput, AnalysisRequest
 from amploop.sim.pool import WorkerPool
 
 __all__ = ["Runner"]

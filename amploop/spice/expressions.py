@@ -209,3 +209,23 @@ class _Parser:
                 return _CONSTANTS[name]
             raise ValueError(f"unknown parameter {text!r}")
         raise ValueError(f"unexpected {text!r}")
+
+
+_BRACED = re.compile(r"\{([^{}]*)\}|'([^']*)'")
+
+
+PARAM_NAME = re.compile(r"[A-Za-z_][\w.]*")
+
+
+_FUNCTION_NAMES = {"sqrt", "exp", "log", "ln", "log10", "abs", "min", "max", "pow", "pwr", "pi"}
+
+
+def referenced_params(expression: str) -> set[str]:
+    """Lower-case parameter names used inside ``{...}`` or quotes of the SPICE ``expression``."""
+    names: set[str] = set()
+    for match in _BRACED.finditer(expression):
+        inner = match.group(1) if match.group(1) is not None else match.group(2)
+        # drop numbers with suffixes such as 2p, 1e-12, 3meg before looking for names
+        inner = re.sub(r"(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[a-zA-Z]*", " ", inner)
+        names.update(n.lower() for n in PARAM_NAME.findall(inner))
+    return names - _FUNCTION_NAMES

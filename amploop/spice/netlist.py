@@ -18,7 +18,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from amploop.errors import NetlistError, did_you_mean
+from amploop.errors import NetlistError, did_you_mean, one_line
 from amploop.spice.expressions import evaluate
 from amploop.spice.ngread import command_line, deck_text, dot_command, not_a_file
 
@@ -446,12 +446,8 @@ def include_target(statement: Statement) -> tuple[Path, str | None] | None:
 
 
 # Characters that end a line for str.splitlines (and so for a reader of the message).
-_LINE_BREAKS = str.maketrans({c: repr(c)[1:-1] for c in "\n\r\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029"})
 
 
-def _shown(text: str) -> str:
-    """Netlist text for a message: line breaks escaped, so that the message stays one line."""
-    return text.translate(_LINE_BREAKS)
 
 
 def _resolve(statement: Statement, name: str) -> Path:
@@ -474,8 +470,8 @@ def check_target(statement: Statement, path: Path) -> None:
     file: missing, a directory, a device and a FIFO each get their own message."""
     problem = not_a_file(path)
     if problem is not None:
-        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: {problem} "
-                           f"({_shown(str(path))})", file=statement.file, place=statement.line)
+        raise NetlistError(f"{statement.tokens[0]} {one_line(statement.tokens[1])}: {problem} "
+                           f"({one_line(str(path))})", file=statement.file, place=statement.line)
 
 
 def read_source(path: Path, text: str | None = None) -> SourceFile:
@@ -563,11 +559,11 @@ def _parse_source(path: Path, text: str | None, *, stop_at_end: bool) -> SourceF
             break
     if subckt_stack:
         name, number = subckt_stack[-1]
-        raise NetlistError(f".subckt {_shown(name)} is never closed by .ends", file=path,
+        raise NetlistError(f".subckt {one_line(name)} is never closed by .ends", file=path,
                            place=number)
     if section is not None:
         raise NetlistError(
-            f".lib section {_shown(section[0])} is never closed by .endl", file=path,
+            f".lib section {one_line(section[0])} is never closed by .endl", file=path,
             place=section[1],
         )
     if in_control is not None:
@@ -689,7 +685,7 @@ def _read_into(netlist: Netlist, path: Path, section: str | None, seen: set) -> 
             sections = _sections(netlist.files[target_path])
             if target_section is not None and target_section not in sections:
                 raise NetlistError(
-                    f".lib section {target_section!r} not found in {_shown(str(target_path))}"
+                    f".lib section {target_section!r} not found in {one_line(str(target_path))}"
                     + did_you_mean(target_section, sections),
                     file=statement.file,
                     place=statement.line,
@@ -776,7 +772,7 @@ def element_value_index(statement: Statement) -> int:
     keys = _VALUE_KEYS.get(kind)
     if keys is None:
         raise NetlistError(
-            f"element {_shown(tokens[0])} is not a resistor or capacitor: its value cannot be set",
+            f"element {one_line(tokens[0])} is not a resistor or capacitor: its value cannot be set",
             file=statement.file,
             place=statement.line,
         )
@@ -786,7 +782,7 @@ def element_value_index(statement: Statement) -> int:
     if len(tokens) >= 4 and not _is_assignment(tokens[3]):
         return 3
     raise NetlistError(
-        f"element {_shown(tokens[0])} has no value to set", file=statement.file,
+        f"element {one_line(tokens[0])} has no value to set", file=statement.file,
         place=statement.line,
     )
 
@@ -989,7 +985,7 @@ def _include_line(statement: Statement, path: Path, section: str | None) -> str:
         parts.append(statement.tokens[2])
     line = " ".join(parts)
     if tokenize(_strip_inline_comment(line).strip()) != parts:
-        raise NetlistError(f"{statement.tokens[0]} {_shown(statement.tokens[1])}: cannot write "
+        raise NetlistError(f"{statement.tokens[0]} {one_line(statement.tokens[1])}: cannot write "
                            f"an include line that reads back the same for {text!r}",
                            file=statement.file, place=statement.line)
     return line

@@ -11,12 +11,12 @@ from dataclasses import dataclass, field
 
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.amplifier import Amplifier
+from amploop.bench.requests import AnalysisOutput, Step
 from amploop.bench.testbench import build_testbench
 from amploop.corners.measure import CornerResult, result_from_output
 from amploop.errors import SimulatorError
-from amploop.sim.ngspice import AnalysisOutput, Step
 from amploop.sim.runner import Runner
-from amploop.spec.job import Corner, Knob, Target
+from amploop.spec.model import Corner, Knob, Target
 
 __all__ = [
     "Evaluator",

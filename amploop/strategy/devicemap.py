@@ -16,7 +16,7 @@ import math
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.triode import in_triode, resistance_at_size, square_law_resistance
 from amploop.errors import TuningError
-from amploop.spec.job import Target
+from amploop.spec.model import Target
 from amploop.spice.units import describe_values, engineering
 from amploop.strategy.common import (
     Evaluator,
@@ -26,8 +26,8 @@ from amploop.strategy.common import (
     missed_target,
     not_simulated,
 )
-from amploop.strategy.mapping import initial_samples, samples_around
 from amploop.strategy.mapsolve import round_on_maps, solve_on_maps
+from amploop.strategy.samples import initial_samples, samples_around
 
 __all__ = ["device_operating_points", "model_card", "tune_device_by_map"]
 

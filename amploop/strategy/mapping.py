@@ -12,10 +12,8 @@
 
 from __future__ import annotations
 
-import math
-
 from amploop.analysis.compmap import CompensationMap
-from amploop.spec.job import Target
+from amploop.spec.model import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import (
     Evaluator,
@@ -25,40 +23,11 @@ from amploop.strategy.common import (
     missed_target,
     not_simulated,
 )
+from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.samples import initial_samples, samples_around
 
-__all__ = ["initial_samples", "tune_by_map"]
-
-
-def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dict[str, float]]:
-    """Three Cc values spread over the bounds at one Rc.
-
-    Parameters
-    ----------
-    cc_bounds
-        (min, max) of Cc, farads: the samples sit at 15, 50 and 85 % of the way from one
-        to the other on a log scale; at 0.8, 1 and 1.25 times the lower bound when the
-        bounds are equal.
-    rc_value
-        The Rc of all three, ohms (or the size of a device standing in for Rc).
-    """
-    low, high = cc_bounds
-    if high <= low:
-        centre = low
-        return [{"cc": centre * f, "rc": rc_value} for f in (0.8, 1.0, 1.25)]
-    span = math.log(high / low)
-    return [{"cc": low * math.exp(span * q), "rc": rc_value} for q in (0.15, 0.5, 0.85)]
-
-
-def samples_around(cc: float, rc: float, cc_bounds) -> list[dict[str, float]]:
-    """Three Cc values close around a point (±20 %), kept inside the bounds."""
-    low, high = cc_bounds
-    values = []
-    for factor in (0.8, 1.0, 1.25):
-        values.append(min(max(cc * factor, low), high))
-    if len(set(values)) < 3:  # squeezed against a bound
-        values = [cc, cc * 1.1, cc * 1.21] if cc * 1.21 <= high else [cc / 1.21, cc / 1.1, cc]
-    return [{"cc": v, "rc": rc} for v in values]
+__all__ = ["tune_by_map"]
 
 
 def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
@@ -105,7 +74,6 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         or verification keeps disagreeing with the maps.
     """
     if evaluator.amplifier.device is not None:
-        from amploop.strategy.devicemap import tune_device_by_map
 
         return tune_device_by_map(evaluator, target, max_rounds=max(max_rounds, 4))
     knobs = evaluator.amplifier.job.compensation

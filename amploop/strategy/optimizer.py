@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy.optimize import minimize
 
-from amploop.spec.job import Target
+from amploop.spec.model import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, bounds_of, meets_target, missed_target
 

@@ -13,7 +13,7 @@ import math
 from amploop.analysis.twostage import rhp_zero_rad_s
 from amploop.corners.measure import CornerResult
 from amploop.errors import SimulatorError
-from amploop.spec.job import Knob
+from amploop.spec.model import Knob
 from amploop.spice.units import engineering
 from amploop.strategy.common import Evaluator, gm_quantity
 

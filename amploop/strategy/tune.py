@@ -23,12 +23,12 @@ from amploop.errors import JobError, JournalError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool
 from amploop.sim.runner import Runner
-from amploop.spec.job import Job
+from amploop.spec.model import Job
 from amploop.strategy import STRATEGIES, Evaluator, Outcome
 from amploop.strategy.common import Evaluator as _Evaluator
 from amploop.strategy.common import HistoryEntry, bounds_of
-from amploop.strategy.mapping import initial_samples
 from amploop.strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
+from amploop.strategy.samples import initial_samples
 
 __all__ = ["TuneResult", "tune"]
 

@@ -1,0 +1,304 @@
+"""TODO docstring."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+
+@dataclass(frozen=True)
+class OperatingPointLimits:
+    """``[operating_point]``: when a measured corner counts as suspect.
+
+    Attributes
+    ----------
+    min_dc_loop_gain_db
+        The lowest DC loop gain a usable corner has, dB (default 20).
+    max_output_shift
+        How far the DC output may sit from the common mode, as a share of the supply span
+        (the highest minus the lowest of the voltage sources on the ports and ground);
+        default 0.1.
+    """
+
+    min_dc_loop_gain_db: float = 20.0
+    max_output_shift: float = 0.1
+
+
+ProbeKind = Literal["double-injection", "lc"]
+
+
+FeedbackKind = Literal["resistive", "capacitive"]
+
+
+@dataclass(frozen=True)
+class Amplifier:
+    """``[amplifier]``: where the subckt is and which ports are the inputs and output.
+
+    Attributes
+    ----------
+    netlist
+        The file holding the ``.subckt`` (absolute path).
+    subckt
+        The subckt's name.
+    in_p, in_n, out
+        Its non-inverting input, inverting input and output ports.
+    models
+        A model file, plain or of ``.lib`` sections (each corner's ``lib`` picks one);
+        None when not given.
+    includes
+        More files to include in the deck (absolute paths).
+    input_device, second_stage_device
+        An input-pair transistor and the second-stage driver, for the textbook strategy
+        (their gm come from the operating point); None when not given.
+    """
+
+    netlist: Path
+    subckt: str
+    in_p: str
+    in_n: str
+    out: str
+    models: Path | None = None
+    includes: tuple[Path, ...] = ()
+    input_device: str | None = None
+    second_stage_device: str | None = None
+
+
+@dataclass(frozen=True)
+class BiasSource:
+    """One ``[bias]`` port: a voltage source to ground, or a current drawn out of the port.
+
+    Attributes
+    ----------
+    port
+        The subckt port.
+    kind
+        ``"volts"`` (a voltage source to ground) or ``"amps"`` (a current drawn out of the
+        port to ground; negative: into it).
+    value
+        The voltage (volts) or current (amperes), a SPICE expression.
+    """
+
+    port: str
+    kind: Literal["volts", "amps"]
+    value: str  # SPICE expression
+
+
+@dataclass(frozen=True)
+class Bias:
+    """``[bias]``: input common mode (SPICE expression, volts) and the other ports' sources.
+
+    Attributes
+    ----------
+    common_mode
+        The input common-mode voltage, volts (a SPICE expression).
+    sources
+        One source per other biased port, in the order of the job file.
+    """
+
+    common_mode: str
+    sources: tuple[BiasSource, ...]
+
+
+@dataclass(frozen=True)
+class Feedback:
+    """``[feedback]``: the network around the amplifier (values are SPICE expressions).
+
+    ``input`` (Z1) runs from the AC-grounded signal source to the inverting input,
+    ``feedback`` (Z2) from the output to the inverting input; ``load`` is a capacitor from
+    the output to ground; ``dc_path`` (capacitive loops only) a resistor across Z2.
+
+    Attributes
+    ----------
+    kind
+        ``"resistive"`` (Z1 and Z2 are resistors, ohms) or ``"capacitive"`` (capacitors,
+        farads).
+    input
+        Z1, ohms or farads.
+    feedback
+        Z2, ohms or farads.
+    load
+        The load capacitance, farads (``"0"`` when not given).
+    dc_path
+        The resistor across Z2 of a capacitive loop, ohms (default ``"1G"``).
+    """
+
+    kind: FeedbackKind
+    input: str
+    feedback: str
+    load: str
+    dc_path: str = "1G"
+
+
+@dataclass(frozen=True)
+class Knob:
+    """One ``[compensation]`` entry: a role (``cc`` or ``rc``) and where the netlist keeps it.
+
+    Attributes
+    ----------
+    role
+        ``"cc"`` (farads) or ``"rc"`` (ohms; or metres / a count for a device size).
+    where
+        ``"param"`` (global ``.param`` or subckt parameter), ``"element"`` (an R or C whose
+        value is rewritten) or ``"device"`` (a MOSFET whose ``size`` is tuned).
+    name
+        The parameter, element or device name.
+    size
+        For ``where == "device"``: ``"w"``, ``"l"`` or ``"m"``.
+    minimum, maximum
+        Tuning bounds in SI units; None when not given.
+    """
+
+    role: str
+    where: Literal["param", "element", "device"]
+    name: str
+    size: str | None = None
+    minimum: float | None = None
+    maximum: float | None = None
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """``[analysis]``: the AC sweep, the probe and the per-analysis time limit.
+
+    Attributes
+    ----------
+    start_hz, stop_hz
+        The first and last frequency of the AC sweep, Hz.
+    points_per_decade
+        Points per decade of the sweep.
+    probe
+        The loop-gain probe: ``"double-injection"`` or ``"lc"``.
+    time_limit_s
+        Seconds one analysis may take before it counts as hung.
+    """
+
+    start_hz: float = 1.0
+    stop_hz: float = 10e9
+    points_per_decade: int = 40
+    probe: ProbeKind = "double-injection"
+    time_limit_s: float = 120.0
+
+    def ac_command(self) -> str:
+        """The ngspice ``ac dec`` command of this sweep."""
+        from amploop.spice.units import spice_number
+
+        return (
+            f"ac dec {self.points_per_decade} {spice_number(self.start_hz)} "
+            f"{spice_number(self.stop_hz)}"
+        )
+
+
+@dataclass(frozen=True)
+class Corner:
+    """One corner: a model section, a temperature (°C) and SPICE parameter values (SI).
+
+    Attributes
+    ----------
+    name
+        The corner's name (given, or made from its values).
+    lib
+        The ``.lib`` section of ``[amplifier].models``; None for none.
+    temp
+        The temperature, degrees Celsius.
+    params
+        Lower-case parameter name -> value (SI), the ``[params]`` defaults included.
+    """
+
+    name: str
+    lib: str | None = None
+    temp: float = 27.0
+    params: dict[str, float] = field(default_factory=dict)
+
+    def __hash__(self) -> int:
+        return hash((self.name, self.lib, self.temp, tuple(sorted(self.params.items()))))
+
+
+@dataclass(frozen=True)
+class Target:
+    """``[target]``: phase margin to reach (degrees), how far above it may land, minimum GM.
+
+    Attributes
+    ----------
+    phase_margin_deg
+        The phase margin the worst corner must reach, degrees.
+    tolerance_deg
+        How far above it the worst corner may land where the bounds allow, degrees.
+    gain_margin_db
+        The minimum gain margin at every corner, dB; None for no minimum.
+    """
+
+    phase_margin_deg: float
+    tolerance_deg: float = 1.0
+    gain_margin_db: float | None = None
+
+
+@dataclass(frozen=True)
+class Transient:
+    """``[transient]``: the closed-loop small-step check of the report.
+
+    Attributes
+    ----------
+    step_v
+        Input step at the signal source, volts (small, so the loop stays linear).
+    band
+        Settling band relative to the output step (0.001 = 0.1 %).
+    stop_s
+        Length of the run, seconds; None: 40/(2π·f_u) of the slowest corner.
+    resistance_share
+        With a MOSFET standing in for Rc: warn when its channel resistance moves by more
+        than this share during the step.
+    """
+
+    step_v: float = 5e-3
+    band: float = 1e-3
+    stop_s: float | None = None
+    resistance_share: float = 0.1
+
+
+@dataclass(frozen=True)
+class Job:
+    """A loaded, checked job file. Paths are absolute; values SI.
+
+    Attributes
+    ----------
+    path
+        The job file.
+    name
+        The job's name (default: the job file's name without its suffix).
+    amplifier, bias, feedback
+        The ``[amplifier]``, ``[bias]`` and ``[feedback]`` tables.
+    compensation
+        Role (``"cc"``, and ``"rc"`` when given) -> where the netlist keeps it.
+    analysis
+        The ``[analysis]`` table (defaults when it is left out).
+    corners
+        Every corner, listed ones first, then the ``[corner_grid]`` product; one
+        ``nominal`` corner when there are none.
+    target
+        The ``[target]`` table; None when left out (enough for measure, not for tune).
+    transient
+        The ``[transient]`` table (defaults when it is left out).
+    operating_point
+        The ``[operating_point]`` limits that make a measured corner suspect (defaults
+        when it is left out).
+    raw
+        The TOML data as read.
+    """
+
+    path: Path
+    name: str
+    amplifier: Amplifier
+    bias: Bias
+    feedback: Feedback
+    compensation: dict[str, Knob]
+    analysis: Analysis
+    corners: tuple[Corner, ...]
+    target: Target | None = None
+    transient: Transient = field(default_factory=Transient)
+    operating_point: OperatingPointLimits = field(default_factory=OperatingPointLimits)
+    raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent

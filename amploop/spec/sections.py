@@ -1,0 +1,210 @@
+"""TODO docstring."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from amploop.errors import did_you_mean
+from amploop.spec.model import (
+    Analysis,
+    Bias,
+    BiasSource,
+    Feedback,
+    Knob,
+    OperatingPointLimits,
+    Target,
+    Transient,
+)
+from amploop.spec.reader import Reader, key_path
+from amploop.spec.resistor_values import check_rc_text
+from amploop.spice.expressions import PARAM_NAME
+
+
+def read_bias(r: Reader, data: dict) -> Bias:
+    common_mode = r.expression(data, "common_mode", "[bias]")
+    sources = []
+    for port, spec in data.items():
+        if port == "common_mode":
+            continue
+        place = f"[bias].{key_path(port)}"
+        if not isinstance(spec, dict):
+            raise r.fail(place, 'expected a table such as { volts = "1.8" } or { amps = "10u" }')
+        r.known(spec, {"volts", "amps"}, place)
+        if len(spec) != 1:
+            raise r.fail(place, "give exactly one of 'volts' or 'amps'")
+        kind = next(iter(spec))
+        sources.append(BiasSource(port=port, kind=kind, value=r.expression(spec, kind, place)))
+    return Bias(common_mode=common_mode, sources=tuple(sources))
+
+
+def read_feedback(r: Reader, data: dict) -> Feedback:
+    r.known(data, _FEEDBACK_KEYS, "[feedback]")
+    kind = r.string(data, "kind", "[feedback]")
+    if kind not in ("resistive", "capacitive"):
+        raise r.fail("[feedback].kind", f"expected 'resistive' or 'capacitive', got {kind!r}"
+                     + did_you_mean(kind, ["resistive", "capacitive"]))
+    if kind == "resistive" and "dc_path" in data:
+        raise r.fail("[feedback].dc_path", "only a capacitive loop takes a dc_path resistor")
+    return Feedback(
+        kind=kind,
+        input=r.expression(data, "input", "[feedback]", nonnegative=True),
+        feedback=r.expression(data, "feedback", "[feedback]", nonnegative=True),
+        load=r.expression(data, "load", "[feedback]", default="0", nonnegative=True),
+        dc_path=r.expression(data, "dc_path", "[feedback]", default="1G", nonnegative=True),
+    )
+
+
+def read_compensation(r: Reader, data: dict) -> dict[str, Knob]:
+    r.known(data, set(_ROLES), "[compensation]")
+    if "cc" not in data:
+        raise r.fail("[compensation]", "missing key 'cc' (where the netlist keeps Cc)")
+    knobs = {}
+    for role, spec in data.items():
+        place = f"[compensation].{role}"
+        if not isinstance(spec, dict):
+            raise r.fail(place, 'expected a table such as { param = "cc" }')
+        r.known(spec, _KNOB_KEYS, place)
+        wheres = [w for w in ("param", "element", "device") if w in spec]
+        if len(wheres) != 1:
+            raise r.fail(place, "give exactly one of 'param', 'element' or 'device'")
+        where = wheres[0]
+        if where == "device" and role != "rc":
+            raise r.fail(place, "only rc can be a device (a MOSFET in triode)")
+        size = None
+        if where == "device":
+            size = r.string(spec, "size", place, required=False, default="w").lower()
+            if size not in ("w", "l", "m"):
+                raise r.fail(f"{place}.size", f"expected 'w', 'l' or 'm', got {size!r}")
+        elif "size" in spec:
+            raise r.fail(f"{place}.size", "only a device takes a size")
+        for bound in ("min", "max") if role == "rc" and where != "device" else ():
+            check_rc_text(spec.get(bound), file=r.path, place=f"{place}.{bound}")
+        minimum = None if "min" not in spec else r.number(spec["min"], f"{place}.min",
+                                                            nonnegative=True)
+        maximum = None if "max" not in spec else r.number(spec["max"], f"{place}.max",
+                                                            nonnegative=True)
+        if minimum is not None and maximum is not None and minimum > maximum:
+            raise r.fail(place, f"min ({spec['min']}) is larger than max ({spec['max']})")
+        for bound, value in (("min", minimum), ("max", maximum)):
+            if value == 0 and (role == "cc" or where == "device"):  # searched on a log scale
+                what = "Cc" if role == "cc" else f"the device's {size.upper()}"
+                raise r.fail(f"{place}.{bound}", f"{what} must stay above zero: its {bound} "
+                             "bound is 0", hint="give the smallest value worth trying")
+        knobs[role] = Knob(role=role, where=where, name=r.string(spec, where, place), size=size,
+                           minimum=minimum, maximum=maximum)
+    return knobs
+
+
+def read_analysis(r: Reader, data: dict) -> Analysis:
+    r.known(data, _ANALYSIS_KEYS, "[analysis]")
+    start = r.number(data.get("start", 1.0), "[analysis].start")
+    stop = r.number(data.get("stop", 10e9), "[analysis].stop")
+    if start <= 0:
+        raise r.fail("[analysis].start", f"must be above 0 Hz, got {data.get('start')!r}")
+    if stop <= start:
+        raise r.fail("[analysis].stop", "must be above start")
+    points = data.get("points_per_decade", 40)
+    if isinstance(points, bool) or not isinstance(points, int) or not 2 <= points <= 10000:
+        raise r.fail("[analysis].points_per_decade", f"expected an integer 2..10000, got {points!r}")
+    probe = data.get("probe", "double-injection")
+    if probe not in ("double-injection", "lc"):
+        raise r.fail("[analysis].probe", f"expected 'double-injection' or 'lc', got {probe!r}"
+                     + did_you_mean(str(probe), ["double-injection", "lc"]))
+    time_limit = r.number(data.get("time_limit", 120), "[analysis].time_limit")
+    if not 0 < time_limit <= MAX_TIME_LIMIT_S:
+        raise r.fail("[analysis].time_limit", f"must be above 0 and at most "
+                     f"{MAX_TIME_LIMIT_S:g} seconds (about 11 days), got {data['time_limit']!r}")
+    return Analysis(start_hz=start, stop_hz=stop, points_per_decade=points, probe=probe,
+                    time_limit_s=time_limit)
+
+
+def read_target(r: Reader, data: dict) -> Target | None:
+    if not data:
+        return None
+    r.known(data, _TARGET_KEYS, "[target]")
+    if "phase_margin" not in data:
+        raise r.fail("[target]", "missing key 'phase_margin' (degrees)")
+    pm = r.number(data["phase_margin"], "[target].phase_margin")
+    if not 0 < pm < 180:
+        raise r.fail("[target].phase_margin", f"expected degrees between 0 and 180, got {pm:g}")
+    tolerance = r.number(data.get("tolerance", 1.0), "[target].tolerance")
+    if tolerance <= 0:
+        raise r.fail("[target].tolerance", "must be above 0 degrees")
+    gm = data.get("gain_margin")
+    gm = None if gm is None else r.number(gm, "[target].gain_margin")
+    return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm)
+
+
+def read_transient(r: Reader, data: dict) -> Transient:
+    r.known(data, _TRANSIENT_KEYS, "[transient]")
+    step = r.number(data.get("step", 5e-3), "[transient].step")
+    if step == 0:
+        raise r.fail("[transient].step", "must not be 0 V")
+    band = r.number(data.get("band", 1e-3), "[transient].band")
+    if not 0 < band < 0.5:
+        raise r.fail("[transient].band", f"expected a fraction such as 0.001, got {band:g}")
+    stop = data.get("stop")
+    stop_s = None if stop is None else r.number(stop, "[transient].stop")
+    if stop_s is not None and stop_s <= 0:
+        raise r.fail("[transient].stop", "must be above 0 s")
+    share = r.number(data.get("resistance_share", 0.1), "[transient].resistance_share")
+    if not 0 < share < 10:
+        raise r.fail("[transient].resistance_share", f"expected a share such as 0.1, got {share:g}")
+    return Transient(step_v=step, band=band, stop_s=stop_s, resistance_share=share)
+
+
+def read_params(r: Reader, data: Any, place: str) -> dict[str, float]:
+    if not isinstance(data, dict):
+        raise r.fail(place, "expected a table of parameter = value")
+    params = {}
+    for key, value in data.items():
+        if not PARAM_NAME.fullmatch(key):
+            raise r.fail(f"{place}.{key_path(key)}", "not a valid SPICE parameter name")
+        params[key.lower()] = r.number(value, f"{place}.{key}")
+    return params
+
+
+def read_temperature(r: Reader, value: Any, place: str) -> float:
+    temp = r.number(value, place)
+    if temp < -273.15:
+        raise r.fail(place, f"{temp:g} °C is below absolute zero")
+    return temp
+
+
+_KEYS = {"min_dc_loop_gain", "max_output_shift"}
+
+
+def read_limits(reader, data: dict) -> OperatingPointLimits:
+    """The ``[operating_point]`` table ``data`` read with the job reader ``reader``
+    (``job._Reader``); defaults for what it leaves out."""
+    reader.known(data, _KEYS, "[operating_point]")
+    gain = reader.number(data.get("min_dc_loop_gain", 20.0),
+                         "[operating_point].min_dc_loop_gain")
+    share = reader.number(data.get("max_output_shift", 0.1), "[operating_point].max_output_shift")
+    if not 0 < share <= 1:
+        raise reader.fail("[operating_point].max_output_shift",
+                          f"expected a share of the supply span such as 0.1, got {share:g}")
+    return OperatingPointLimits(min_dc_loop_gain_db=gain, max_output_shift=share)
+
+
+_FEEDBACK_KEYS = {"kind", "input", "feedback", "load", "dc_path"}
+
+
+_KNOB_KEYS = {"param", "element", "device", "size", "min", "max"}
+
+
+_ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
+
+
+#: The longest [analysis].time_limit, seconds: the pool waits for its workers through
+#: poll(), whose time-out is a C int of milliseconds (at most about 2.1e6 s).
+MAX_TIME_LIMIT_S = 1e6
+
+
+_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
+
+
+_TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}
+
+
+_ROLES = ("cc", "rc")
