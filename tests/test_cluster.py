@@ -30,7 +30,8 @@ from amploop.bench.testbench import build_testbench
 from amploop.cli import main
 from amploop.errors import SimulatorError
 from amploop.sim import cluster as cluster_module
-from amploop.sim.cluster import ClusterPool, FileBundler, include_targets, run_analysis
+from amploop.sim.bundles import FileBundler, include_targets
+from amploop.sim.cluster import ClusterPool, run_analysis
 from amploop.sim.pool import WorkerPool
 from amploop.spec.job import load_job
 from amploop.strategy.tune import tune

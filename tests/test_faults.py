@@ -112,7 +112,7 @@ def test_ngspice_that_cannot_recover_costs_its_worker_not_the_run(tmp_path):
     job_path = demo_copy(tmp_path / "job")
     (tmp_path / "job" / "quit.inc").write_text("* asks ngspice to leave\n.control\nquit\n.endc\n")
     job_path.write_text(job_path.read_text().replace('models = "', 'includes = ["quit.inc"]\nmodels = "', 1))
-    from amploop.bench.amplifier import prepare_amplifier  # noqa: F401  (imported for clarity)
+    from amploop.bench.amplifier import prepare_amplifier  # noqa: F401  (imported for clarity
 
     with WorkerPool(2) as pool:
         broken = measure(load_job(job_path), out=tmp_path / "out", pool=pool, time_domain=False,

@@ -54,19 +54,16 @@ from amploop.errors import AmploopError, JobError, NetlistError
 from amploop.spec.job import load_job
 from amploop.spec.model import Job
 from amploop.spice.expressions import evaluate
-from amploop.spice.netlist import (
-    Netlist,
+from amploop.spice.lexer import split_logical_lines, tokenize
+from amploop.spice.netlist import Netlist, read_netlist, value_of
+from amploop.spice.rewrite import (
     element_value,
-    read_netlist,
-    read_source,
     render_file,
     replace_element_value,
     replace_instance_param,
     replace_param,
-    split_logical_lines,
-    tokenize,
-    value_of,
 )
+from amploop.spice.source import read_source
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "netlists" / "demo"
@@ -447,19 +444,19 @@ def test_the_shortcuts_of_the_reader_give_what_its_general_routines_give(head, i
     """The reader's quick paths (a line without comment characters, a statement without
     groups, a ``.model`` card with one plain pair of parentheses) agree with the
     character-by-character routines they skip."""
-    from amploop.spice.netlist import (
-        _SEPARATORS,
-        _grouped_tokens,
-        _strip_inline_comment,
-        _unwrap_model_parentheses,
-        _unwrap_outer_group,
+    from amploop.spice.lexer import (
+        SEPARATORS,
+        grouped_tokens,
+        strip_inline_comment,
+        unwrap_model_parentheses,
+        unwrap_outer_group,
     )
 
-    assert [t for t in _SEPARATORS.split(head) if t] == _grouped_tokens(head)
+    assert [t for t in SEPARATORS.split(head) if t] == grouped_tokens(head)
     plain = head.translate(str.maketrans("", "", ";$/"))
-    assert _strip_inline_comment(plain) == plain
+    assert strip_inline_comment(plain) == plain
     card = f".model {head}{')' if swap else '('}{inner}{'(' if swap else ')'}{tail}"
-    assert _unwrap_model_parentheses(card) == _unwrap_outer_group(card)
+    assert unwrap_model_parentheses(card) == unwrap_outer_group(card)
 
 
 # --- the netlist reader on random and mutated input ----------------------------------------

@@ -18,21 +18,17 @@ import pytest
 
 from amploop.errors import NetlistError
 from amploop.spice.expressions import evaluate
-from amploop.spice.netlist import (
+from amploop.spice.lexer import split_logical_lines, tokenize
+from amploop.spice.netlist import read_netlist, value_of
+from amploop.spice.rewrite import (
     ANALYSIS_COMMANDS,
     element_value,
-    is_name,
-    lib_sections,
-    read_netlist,
-    read_source,
     render_file,
     replace_element_value,
     replace_instance_param,
     replace_param,
-    split_logical_lines,
-    tokenize,
-    value_of,
 )
+from amploop.spice.source import lib_sections, read_source
 
 # --- helpers ---------------------------------------------------------------------------
 
@@ -1191,11 +1187,3 @@ class TestEvaluate:
 # --- small helpers ---------------------------------------------------------------------
 
 
-class TestIsName:
-    @pytest.mark.parametrize("text, expected", [
-        ("cc", True), ("c_c1", True), ("x1.n2", True), ("_a", True),
-        ("1a", False), ("{cc}", False), ("a-b", False), ("", False),
-    ])
-    def test_is_name(self, text, expected):
-        """Plausible SPICE parameter or node names (the module's definition)."""
-        assert is_name(text) is expected

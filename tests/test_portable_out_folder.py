@@ -19,7 +19,7 @@ import numpy as np
 from conftest import DEMO, recorded_analyses
 
 from amploop.cli import main
-from amploop.sim.cluster import include_targets
+from amploop.sim.bundles import include_targets
 
 
 def nested_demo_job(folder: Path) -> Path:

@@ -18,7 +18,7 @@ import pytest
 from nodal import Macromodel
 
 from amploop.cli import main
-from amploop.report import report_data
+from amploop.report.data import load_report_data
 from amploop.report.selection import EVERY_CORNER_UP_TO, WORST_PAGES
 
 needs_poppler = pytest.mark.skipif(shutil.which("pdftotext") is None,
@@ -124,7 +124,7 @@ def _peak_bytes_reading_every_corner(out) -> tuple[int, int]:
     of one corner's arrays."""
     tracemalloc.start()
     try:
-        with report_data(out) as data:
+        with load_report_data(out) as data:
             one = 0
             for name in data.corner_names:
                 curves = data.curves[name]

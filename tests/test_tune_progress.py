@@ -9,7 +9,8 @@ import json
 
 from conftest import DEMO
 
-from amploop.cli import TUNE_PROGRESS_KEY, main
+from amploop.cli import main
+from amploop.cli.terminal import TUNE_PROGRESS_KEY
 
 
 class Terminal(io.StringIO):

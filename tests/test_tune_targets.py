@@ -16,7 +16,8 @@ from pathlib import Path
 import pytest
 from conftest import DEMO
 
-from amploop.cli import corner_table, main
+from amploop.cli import main
+from amploop.cli.terminal import corner_table
 from amploop.corners.measure import measure
 from amploop.spec.job import load_job
 from amploop.spec.model import Knob, Target

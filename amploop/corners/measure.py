@@ -7,15 +7,14 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from amploop.analysis.loopgain import FrequencyResponse
-from amploop.analysis.margins import Margins, loop_margins
+from amploop.analysis.margins import Margins
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
-from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.bench.testbench import Testbench, build_testbench
 from amploop.corners.outputs import (
     OutFolder,
@@ -25,196 +24,17 @@ from amploop.corners.outputs import (
     write_into,
 )
 from amploop.corners.portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
-from amploop.errors import AmploopError, MeasurementError
+from amploop.corners.results import CornerResult, MeasureResult, assess_loop_gain
+from amploop.errors import AmploopError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool, default_workers
 from amploop.sim.runner import Runner
-from amploop.spec.model import Corner, Job, OperatingPointLimits
+from amploop.spec.model import Corner, Job
 
-__all__ = [
-    "CornerResult",
-    "CornerWork",
-    "MeasureResult",
-    "assess_loop_gain",
-    "corner_files",
-    "measure",
-]
+__all__ = ["CornerWork", "corner_files", "measure"]
 
-SCHEMA = 1
 #: The journal's file name inside an out folder.
 JOURNAL_FILE = "journal.sqlite"
-
-
-@dataclass(frozen=True)
-class CornerResult:
-    """One corner's measurement.
-
-    ``status`` is ``"ok"``, ``"suspect"`` or ``"error"``. On error ``error`` says why and
-    the margins hold what could still be read (possibly nothing). A suspect corner has its
-    margins, but the operating point behind them is broken or its DC loop gain too low
-    (:func:`~amploop.bench.oppoint.corner_status`); ``suspect_reason`` says which.
-
-    Attributes
-    ----------
-    corner
-        The corner measured.
-    status
-        ``"ok"``, ``"suspect"`` or ``"error"``.
-    error
-        Why the corner failed (the simulator's problem, or why its loop gain is unusable);
-        None unless it is ``"error"``.
-    margins
-        The margins read off the loop gain; None when there is no loop gain.
-    loop_gain
-        The measured loop gain; None when the analysis failed or its output was unusable.
-    warnings
-        The simulator's warnings of its analysis (gmin stepping, transient-op fallback).
-    operating_point
-        The DC operating point of its analysis; None when it could not be read.
-    suspect_reason
-        Why a ``"suspect"`` corner's margins cannot be trusted (one sentence); else None.
-    """
-
-    corner: Corner
-    status: str
-    error: str | None = None
-    margins: Margins | None = None
-    loop_gain: FrequencyResponse | None = field(default=None, repr=False)
-    warnings: tuple[str, ...] = ()
-    operating_point: OperatingPoint | None = None
-    suspect_reason: str | None = None
-
-    @property
-    def problem(self) -> str | None:
-        """Why the corner is not ``"ok"`` (its error or its suspect reason); None when it is."""
-        return self.error or self.suspect_reason
-
-    def as_json(self) -> dict:
-        """The corner's entry in results.json: the corner, status, error, figures, warnings."""
-        figures = dict.fromkeys(
-            ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
-             "phase_crossover_hz"))
-        if self.margins is not None:
-            figures.update(self.margins.as_dict())
-        return {
-            "name": self.corner.name,
-            "lib": self.corner.lib,
-            "temp": self.corner.temp,
-            "params": dict(self.corner.params),
-            "status": self.status,
-            "error": self.error,
-            "suspect_reason": self.suspect_reason,
-            **figures,
-            "operating_point": self.operating_point and self.operating_point.as_json(),
-            "warnings": list(self.warnings),
-        }
-
-
-@dataclass(frozen=True)
-class MeasureResult:
-    """The whole measurement: values in effect, every corner, analysis counts.
-
-    Attributes
-    ----------
-    job
-        The job measured.
-    values
-        The compensation values in effect by role, SI (the netlist's with the overrides).
-    corners
-        One result per corner, in the job's order.
-    ac_run, ac_reused
-        AC analyses simulated, and AC analyses taken from the journal.
-    out
-        The out folder; None when nothing was written.
-    seconds
-        Wall time of the measurement, seconds.
-    keys
-        Corner name -> journal key of its loop-gain analysis.
-    step_checks
-        Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` (empty when not run).
-    transient_run, transient_reused
-        Transient analyses simulated, and transient analyses taken from the journal.
-    simulator_seconds
-        Wall time the workers spent inside ngspice on the analyses simulated, seconds.
-    warnings
-        Remarks on the amplifier for the user (:attr:`~amploop.bench.amplifier.Amplifier.warnings`),
-        then the journal's (:meth:`~amploop.sim.journal.Journal.notes`: damaged records recomputed).
-    """
-
-    job: Job
-    values: dict[str, float]
-    corners: tuple[CornerResult, ...]
-    ac_run: int
-    ac_reused: int
-    out: Path | None
-    seconds: float = 0.0
-    keys: dict = field(default_factory=dict)  # corner -> journal key of its analysis
-    step_checks: dict = field(default_factory=dict)
-    transient_run: int = 0
-    transient_reused: int = 0
-    simulator_seconds: float = 0.0
-    warnings: tuple[str, ...] = ()
-
-    @property
-    def status(self) -> str:
-        """``"failed"`` when a corner failed, else ``"suspect"`` when one is suspect, else
-        ``"ok"``."""
-        if any(c.status == "error" for c in self.corners):
-            return "failed"
-        return "suspect" if any(c.status == "suspect" for c in self.corners) else "ok"
-
-    def as_json(self) -> dict:
-        """The content of results.json for this measurement."""
-        from amploop.corners.stepcheck import with_step
-
-        corners = []
-        for c in self.corners:
-            data = with_step(c.as_json(), self.step_checks.get(c.corner.name))
-            data["analysis"] = self.keys.get(c.corner.name)
-            corners.append(data)
-        return {
-            "schema": SCHEMA,
-            "command": "measure",
-            "job": self.job.name,
-            "status": self.status,
-            "values": dict(self.values),
-            "corners": corners,
-            "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
-            "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
-            "probe": self.job.analysis.probe,
-            "job_file": str(self.job.path),
-            "seconds": self.seconds,
-            "warnings": list(self.warnings),
-        }
-
-
-def assess_loop_gain(response: FrequencyResponse, op: OperatingPoint | None = None,
-                     limits: OperatingPointLimits | None = None
-                     ) -> tuple[Margins, str, str | None]:
-    """Margins of a measured loop gain, the corner's status and the reason for it.
-
-    A loop that is positive feedback at DC (phase near ±180° at the lowest frequency) or
-    never crosses 0 dB within the sweep is an error; one whose margins exist but whose
-    operating point ``op`` is broken, or whose DC loop gain is below the limit, is suspect
-    (:func:`~amploop.bench.oppoint.corner_status`). The figures that exist are kept.
-
-    Parameters
-    ----------
-    response
-        The measured loop gain of one corner.
-    op
-        Its DC operating point (None: not read).
-    limits
-        The job's ``[operating_point]`` limits (None: the defaults).
-
-    Returns
-    -------
-    margins, status, reason
-        ``status`` is ``"ok"`` (``reason`` None), ``"suspect"`` or ``"error"``.
-    """
-    margins = loop_margins(response)
-    status, reason = corner_status(response, margins, op, limits or OperatingPointLimits())
-    return margins, status, reason
 
 
 def corner_files(corners: tuple[Corner, ...]) -> dict[str, str]:
@@ -470,9 +290,3 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
                                    for f in works[name].files(r)])
     return result
 
-
-def require_measured(result: CornerResult) -> Margins:
-    """The margins of a corner that measured, or a MeasurementError saying why not."""
-    if result.status != "ok" or result.margins is None:
-        raise MeasurementError(result.problem or "not measured", place=result.corner.name)
-    return result.margins

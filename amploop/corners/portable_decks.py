@@ -22,7 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from amploop.corners.outputs import write_into
-from amploop.sim.cluster import FileBundler, move_include_paths
+from amploop.sim.bundles import FileBundler, move_include_paths
 
 __all__ = ["DECKS", "INCLUDES", "INCLUDE_FOLDER", "NO_COPIES", "PortableIncludes", "copy_includes"]
 

@@ -19,16 +19,13 @@ from matplotlib.backends.backend_pdf import PdfPages
 from amploop.corners.outputs import OutFolder, is_folder, safe_filename
 from amploop.errors import OutputError
 from amploop.report import selection, style
+from amploop.report.corner import corner_page
 from amploop.report.data import ReportData, load_report_data
-from amploop.report.pages import (
-    convergence_page,
-    corner_page,
-    map_page,
-    overview_page,
-    summary_page_count,
-    summary_pages,
-    time_domain_page,
-)
+from amploop.report.history import convergence_page
+from amploop.report.mapview import map_page
+from amploop.report.overview import overview_page
+from amploop.report.steps import time_domain_page
+from amploop.report.summary import summary_page_count, summary_pages
 
 __all__ = ["PNG_CORNER_PAGES", "ReportOutcome", "build_report"]
 
@@ -201,8 +198,3 @@ def _remove(paths) -> None:
         except OSError:
             pass
 
-
-def report_data(out: str | Path) -> ReportData:
-    """The report's data without drawing (for tests and notebooks); close it when done
-    (it holds the journal open)."""
-    return load_report_data(out)

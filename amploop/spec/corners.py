@@ -1,4 +1,6 @@
-"""TODO docstring."""
+"""The corner list: ``[[corners]]`` and ``[corner_grid]`` expanded to :class:`Corner`
+objects, each checked against the model file's ``.lib`` sections and the parameters the
+netlist knows."""
 
 from __future__ import annotations
 
@@ -11,6 +13,8 @@ from amploop.spec.reader import Reader, key_path
 from amploop.spec.sections import read_params, read_temperature
 from amploop.spice.expressions import PARAM_NAME, evaluate, referenced_params
 
+__all__ = ["MAX_CORNERS", "check_corner_libs", "check_corner_params", "read_corners"]
+
 _CORNER_KEYS = {"name", "lib", "temp", "params"}
 
 
@@ -22,6 +26,9 @@ MAX_CORNERS = 100_000
 
 
 def read_corners(r: Reader, data: dict, defaults: dict[str, float]) -> tuple[Corner, ...]:
+    """The corners of ``data`` (the whole job table), read with ``r``: ``[[corners]]``
+    as listed, or ``[corner_grid]`` expanded; ``defaults`` are the job's ``[params]``,
+    which each corner's own override."""
     corners: list[Corner] = []
     listed = data.get("corners", [])
     if not isinstance(listed, list):
@@ -97,8 +104,10 @@ def _corner_name(lib: str | None, temp: float, params: dict[str, float],
 
 
 def check_corner_libs(r: Reader, job: Job) -> None:
+    """Every ``.lib`` section a corner of ``job`` names exists in its models file; a
+    miss is raised through ``r`` with the sections that do exist."""
     from amploop.errors import NetlistError
-    from amploop.spice.netlist import lib_sections
+    from amploop.spice.source import lib_sections
 
     models = job.amplifier.models
     wanted = [c for c in job.corners if c.lib is not None]
@@ -130,7 +139,8 @@ def check_corner_libs(r: Reader, job: Job) -> None:
 
 
 def check_corner_params(r: Reader, job: Job) -> None:
-    """Every parameter an expression uses is set by every corner; passive values not negative."""
+    """Every parameter an expression of ``job`` uses is set by every corner; passive
+    values not negative (failures raised through ``r``)."""
     expressions = [("[bias].common_mode", job.bias.common_mode, False)]
     expressions += [(f"[bias].{key_path(s.port)}", s.value, False) for s in job.bias.sources]
     for key in ("input", "feedback", "load", "dc_path"):

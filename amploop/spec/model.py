@@ -1,10 +1,28 @@
-"""TODO docstring."""
+"""The job as frozen dataclasses: the amplifier, its bias, the feedback network, the
+compensation knobs, the analysis, the corners, the targets. Units are SI throughout
+(farads, ohms, hertz, volts, kelvin-free degrees Celsius for temperatures)."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
+
+__all__ = [
+    "Amplifier",
+    "Analysis",
+    "Bias",
+    "BiasSource",
+    "Corner",
+    "Feedback",
+    "FeedbackKind",
+    "Job",
+    "Knob",
+    "OperatingPointLimits",
+    "ProbeKind",
+    "Target",
+    "Transient",
+]
 
 
 @dataclass(frozen=True)

@@ -1,4 +1,5 @@
-"""TODO docstring."""
+"""``--set ROLE=VALUE`` on the command line: compensation values that replace the
+netlist's own for one measurement."""
 
 from __future__ import annotations
 
@@ -6,6 +7,8 @@ from amploop.errors import JobError, did_you_mean
 from amploop.spec.model import Job
 from amploop.spec.resistor_values import check_rc_text
 from amploop.spice.units import parse_value
+
+__all__ = ["parse_overrides"]
 
 
 def parse_overrides(items: list[str] | None, job: Job) -> dict[str, float]:

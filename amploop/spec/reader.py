@@ -1,4 +1,6 @@
-"""TODO docstring."""
+"""Reading values out of parsed TOML with messages that name the key path, and finding
+where in the file a TOML syntax error is (the parser's own position is often a line off
+or missing)."""
 
 from __future__ import annotations
 
@@ -9,17 +11,31 @@ from typing import Any
 from amploop.errors import JobError, did_you_mean
 from amploop.spice.units import parse_value
 
+__all__ = ["Reader", "deepest_nesting", "key_path", "place_of"]
+
 
 class Reader:
-    """Reads values out of the TOML tables with messages that name the key path."""
+    """Reads values out of the TOML tables with messages that name the key path.
+
+    Each method takes the table it reads (``data``), the key and the key path of the
+    table (``place``, such as ``"[analysis]"``) for the message; a value that is missing
+    or wrong raises :class:`~amploop.errors.JobError` naming the job file and the place.
+
+    Attributes
+    ----------
+    path
+        The job file, for messages.
+    """
 
     def __init__(self, path: Path) -> None:
         self.path = path
 
     def fail(self, place: str, problem: str, hint: str | None = None) -> JobError:
+        """A JobError for ``problem`` at ``place`` of the job file, with an optional ``hint``."""
         return JobError(problem, file=self.path, place=place, hint=hint)
 
     def table(self, data: dict, key: str, place: str, *, required: bool = True) -> dict:
+        """The table ``key`` of ``data`` at ``place``; ``{}`` when absent and not ``required``."""
         value = data.get(key)
         if value is None:
             if required:
@@ -30,6 +46,7 @@ class Reader:
         return value
 
     def known(self, data: dict, allowed: set[str], place: str) -> None:
+        """Refuse a key of ``data`` (at ``place``) not in ``allowed``, with a did-you-mean."""
         for key in data:
             if key not in allowed:
                 raise self.fail(
@@ -39,6 +56,8 @@ class Reader:
 
     def string(self, data: dict, key: str, place: str, *, required: bool = True,
                default: str | None = None) -> str | None:
+        """The non-empty string ``key`` of ``data`` at ``place``, stripped; ``default`` when absent,
+        and None when that is None and the key is not ``required``."""
         value = data.get(key, default)
         if value is None:
             if required:
@@ -50,7 +69,9 @@ class Reader:
 
     def expression(self, data: dict, key: str, place: str, *, default: str | None = None,
                    nonnegative: bool = False) -> str:
-        """A SPICE value or ``{expression}``; plain numbers are checked right away."""
+        """The value ``key`` of ``data`` at ``place`` (``default`` when absent): a SPICE value or
+        ``{expression}``, as text; plain numbers are checked right away (and refused below
+        zero when ``nonnegative``)."""
         value = data.get(key, default)
         if value is None:
             raise self.fail(place, f"missing key {key!r}")
@@ -66,6 +87,8 @@ class Reader:
         return text
 
     def number(self, value: Any, place: str, *, nonnegative: bool = False) -> float:
+        """``value`` at ``place`` as a float (SPICE suffixes read; ``nonnegative`` refuses
+        a negative one)."""
         try:
             number = parse_value(value)
         except ValueError as exc:
@@ -83,8 +106,8 @@ _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 
 
 def key_path(key: str) -> str:
-    """A key as a TOML key path writes it: bare, or quoted with escapes, so that a place
-    in a message is one line however odd the key (``""``, ``"a\\nb"``)."""
+    """``key`` as a TOML key path writes it: bare, or quoted with escapes, so that a
+    place in a message is one line however odd the key (``""``, ``"a\\nb"``)."""
     if _BARE_KEY.fullmatch(key):
         return key
     escaped = []
@@ -116,8 +139,9 @@ def place_of(text: str, match: re.Match | None) -> str | None:
 
 
 def deepest_nesting(text: str) -> str | None:
-    """``line:column`` of the deepest ``[`` / ``{`` outside comments and one-line strings
-    (only to point at the place after tomllib gave up on the nesting)."""
+    """``line:column`` of the deepest ``[`` / ``{`` of the TOML ``text`` outside
+    comments and one-line strings (only to point at the place after tomllib gave up on
+    the nesting)."""
     depth = deepest = 0
     place = None
     quote = ""

@@ -1,4 +1,6 @@
-"""TODO docstring."""
+"""One reader per table of the job file (``[bias]``, ``[feedback]``, ``[compensation]``,
+``[analysis]``, ``[target]``, ``[transient]``, ``[operating_point]``): keys checked,
+values parsed to SI, each failure one line naming the key path."""
 
 from __future__ import annotations
 
@@ -19,8 +21,23 @@ from amploop.spec.reader import Reader, key_path
 from amploop.spec.resistor_values import check_rc_text
 from amploop.spice.expressions import PARAM_NAME
 
+__all__ = [
+    "MAX_TIME_LIMIT_S",
+    "read_analysis",
+    "read_bias",
+    "read_compensation",
+    "read_feedback",
+    "read_limits",
+    "read_params",
+    "read_target",
+    "read_temperature",
+    "read_transient",
+]
+
 
 def read_bias(r: Reader, data: dict) -> Bias:
+    """``[bias]`` of the job table ``data``, read with ``r``: one voltage or current
+    source per port."""
     common_mode = r.expression(data, "common_mode", "[bias]")
     sources = []
     for port, spec in data.items():
@@ -38,6 +55,8 @@ def read_bias(r: Reader, data: dict) -> Bias:
 
 
 def read_feedback(r: Reader, data: dict) -> Feedback:
+    """``[feedback]`` of the job table ``data``, read with ``r``: the kind and the
+    input, feedback, load and DC-path elements."""
     r.known(data, _FEEDBACK_KEYS, "[feedback]")
     kind = r.string(data, "kind", "[feedback]")
     if kind not in ("resistive", "capacitive"):
@@ -55,6 +74,8 @@ def read_feedback(r: Reader, data: dict) -> Feedback:
 
 
 def read_compensation(r: Reader, data: dict) -> dict[str, Knob]:
+    """``[compensation]`` of the job table ``data``, read with ``r``: a :class:`Knob` by
+    role (``cc``, and ``rc`` when given)."""
     r.known(data, set(_ROLES), "[compensation]")
     if "cc" not in data:
         raise r.fail("[compensation]", "missing key 'cc' (where the netlist keeps Cc)")
@@ -96,6 +117,8 @@ def read_compensation(r: Reader, data: dict) -> dict[str, Knob]:
 
 
 def read_analysis(r: Reader, data: dict) -> Analysis:
+    """``[analysis]`` of the job table ``data``, read with ``r``: the AC sweep (Hz), the
+    probe and the time limit (s); defaults for what it leaves out."""
     r.known(data, _ANALYSIS_KEYS, "[analysis]")
     start = r.number(data.get("start", 1.0), "[analysis].start")
     stop = r.number(data.get("stop", 10e9), "[analysis].stop")
@@ -119,6 +142,8 @@ def read_analysis(r: Reader, data: dict) -> Analysis:
 
 
 def read_target(r: Reader, data: dict) -> Target | None:
+    """``[target]`` of the job table ``data``, read with ``r`` (degrees and dB); None
+    when the table is absent."""
     if not data:
         return None
     r.known(data, _TARGET_KEYS, "[target]")
@@ -136,6 +161,8 @@ def read_target(r: Reader, data: dict) -> Target | None:
 
 
 def read_transient(r: Reader, data: dict) -> Transient:
+    """``[transient]`` of the job table ``data``, read with ``r``: the step (V), the
+    settling band (a share), the stop time (s), the triode check's resistance share."""
     r.known(data, _TRANSIENT_KEYS, "[transient]")
     step = r.number(data.get("step", 5e-3), "[transient].step")
     if step == 0:
@@ -154,6 +181,8 @@ def read_transient(r: Reader, data: dict) -> Transient:
 
 
 def read_params(r: Reader, data: Any, place: str) -> dict[str, float]:
+    """A table of SPICE parameters ``data`` at ``place``, read with ``r``: lower-case
+    name -> value."""
     if not isinstance(data, dict):
         raise r.fail(place, "expected a table of parameter = value")
     params = {}
@@ -165,6 +194,8 @@ def read_params(r: Reader, data: Any, place: str) -> dict[str, float]:
 
 
 def read_temperature(r: Reader, value: Any, place: str) -> float:
+    """A corner temperature ``value`` at ``place`` in degrees Celsius, read with ``r``;
+    below absolute zero is refused."""
     temp = r.number(value, place)
     if temp < -273.15:
         raise r.fail(place, f"{temp:g} °C is below absolute zero")

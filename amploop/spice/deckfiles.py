@@ -23,7 +23,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from amploop.errors import NetlistError
-from amploop.spice.netlist import Netlist, SourceFile, check_target, include_target, read_source
+from amploop.spice.netlist import Netlist
+from amploop.spice.source import SourceFile, check_target, include_target, read_source
 
 __all__ = ["FilesRead", "files_read"]
 

@@ -24,7 +24,7 @@ import re
 from pathlib import Path
 
 from amploop.errors import AmploopError
-from amploop.spice.netlist import Statement, read_source
+from amploop.spice.source import Statement, read_source
 
 __all__ = ["locate_parse_error"]
 

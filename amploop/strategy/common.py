@@ -13,7 +13,8 @@ from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.amplifier import Amplifier
 from amploop.bench.requests import AnalysisOutput, Step
 from amploop.bench.testbench import build_testbench
-from amploop.corners.measure import CornerResult, result_from_output
+from amploop.corners.measure import result_from_output
+from amploop.corners.results import CornerResult
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner, Knob, Target

@@ -53,7 +53,7 @@ def model_card(evaluator: Evaluator, corner, model: str) -> dict[str, float]:
         number are left out.
     """
     from amploop.spice.expressions import evaluate
-    from amploop.spice.netlist import read_source
+    from amploop.spice.source import read_source
 
     amplifier = evaluator.amplifier
     sources = list(amplifier.netlist.files.values())

@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 
 from amploop.analysis.twostage import rhp_zero_rad_s
-from amploop.corners.measure import CornerResult
+from amploop.corners.results import CornerResult
 from amploop.errors import SimulatorError
 from amploop.spec.model import Knob
 from amploop.spice.units import engineering

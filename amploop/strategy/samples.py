@@ -30,7 +30,8 @@ def initial_samples(cc_bounds: tuple[float, float], rc_value: float) -> list[dic
 
 
 def samples_around(cc: float, rc: float, cc_bounds) -> list[dict[str, float]]:
-    """Three Cc values close around a point (±20 %), kept inside the bounds."""
+    """Three Cc values close around the point (``cc`` farads, ``rc`` ohms or device size):
+    ±20 % in Cc at the same ``rc``, kept inside ``cc_bounds`` (min, max; farads)."""
     low, high = cc_bounds
     values = []
     for factor in (0.8, 1.0, 1.25):

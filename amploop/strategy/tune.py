@@ -15,9 +15,10 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
-from amploop.corners.measure import JOURNAL_FILE, SCHEMA, CornerResult, CornerWork, corner_files
+from amploop.corners.measure import JOURNAL_FILE, CornerWork, corner_files
 from amploop.corners.outputs import OutFolder, remove_stale
 from amploop.corners.portable_decks import copy_includes
+from amploop.corners.results import SCHEMA, CornerResult
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
 from amploop.errors import JobError, JournalError
 from amploop.sim.journal import Journal, file_digests

@@ -11,6 +11,15 @@ import sys
 from enum import IntEnum
 from importlib.metadata import version
 
+from amploop.cli.terminal import (
+    corner_table,
+    page_progress,
+    print_corner_errors,
+    print_corner_remarks,
+    progress_printer,
+    tune_progress,
+    values_line,
+)
 from amploop.errors import (
     AmploopError,
     JobError,
@@ -101,25 +110,12 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _page_progress(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done: int, total: int) -> None:
-        sys.stderr.write(f"\r  report: page {done}/{total}")
-        if done == total:
-            sys.stderr.write("\r" + " " * 40 + "\r")
-        sys.stderr.flush()
-
-    return show
-
-
 def _write_report(out, args, *, quiet: bool, pngs: bool = True) -> None:
     from amploop.report import build_report
 
     outcome = build_report(out, pngs=pngs, corner_pages=args.corner_page,
                            all_corner_pages=args.all_corner_pages,
-                           progress=_page_progress(quiet))
+                           progress=page_progress(quiet))
     if not quiet:
         print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
 
@@ -131,125 +127,6 @@ def _run_report(args) -> ExitCode:
         raise OutputError("not a folder", file=args.out)
     _write_report(args.out, args, quiet=False, pngs=not args.no_png)
     return ExitCode.OK
-
-
-def _table(rows: list[list[str]], header: list[str]) -> str:
-    widths = [max(len(header[i]), *(len(r[i]) for r in rows)) for i in range(len(header))]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths))]
-    lines.append("  ".join("-" * w for w in widths))
-    for row in rows:
-        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w)
-                               for i, (c, w) in enumerate(zip(row, widths))))
-    return "\n".join(lines)
-
-
-def _figure(value, fmt: str) -> str:
-    return "–" if value is None else format(value, fmt)
-
-
-def _corner_note(corner, target) -> str:
-    """``ok``, ``SUSPECT``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956
-    dB < 10 dB``); followed by ``gmin`` where its operating point needed gmin stepping."""
-    from amploop.bench.oppoint import status_label
-
-    label = status_label(corner.status, corner.warnings)
-    if corner.status == "ok" and target is not None:
-        from amploop.strategy.common import corner_shortfall
-
-        missed = corner_shortfall(corner, target)
-        if missed:
-            return missed + label[len("ok"):]
-    return label
-
-
-def corner_table(corners, target=None) -> str:
-    """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
-    corner that misses the ``target`` says which margin and by how much)."""
-    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover",
-              "out - CM", "note"]
-    rows = []
-    for c in corners:
-        m = c.margins
-        op = c.operating_point
-        rows.append([
-            c.corner.name,
-            _figure(m and m.dc_loop_gain_db, ".1f"),
-            engineering(m and m.unity_gain_hz, "Hz"),
-            _figure(m and m.phase_margin_deg, ".2f"),
-            _figure(m and m.gain_margin_db, ".2f"),
-            engineering(m and m.phase_crossover_hz, "Hz"),
-            engineering(op and op.output_shift_v, "V"),
-            _corner_note(c, target),
-        ])
-    return _table(rows, header)
-
-
-_SUSPECT_LINES = 5  # suspect corners named one by one; the rest are counted
-
-
-def print_corner_remarks(corners) -> None:
-    """On stderr: each suspect corner's reason, then each simulator warning once with the
-    corners it hit and what it means."""
-    from amploop.bench.oppoint import warning_advice
-
-    suspect = [c for c in corners if c.status == "suspect"]
-    for c in suspect[:_SUSPECT_LINES]:
-        print(f"amploop: suspect: corner {c.corner.name}: {c.suspect_reason}", file=sys.stderr)
-    if len(suspect) > _SUSPECT_LINES:
-        print(f"amploop: suspect: {len(suspect) - _SUSPECT_LINES} more corners (each one's "
-              "reason is in results.json)", file=sys.stderr)
-    by_warning: dict[str, list[str]] = {}
-    for c in corners:
-        for warning in c.warnings:
-            by_warning.setdefault(warning, []).append(c.corner.name)
-    for warning, names in by_warning.items():
-        advice = warning_advice(warning)
-        print(f"amploop: warning: {warning} ({_who(names, len(corners))})"
-              + (f": {advice}" if advice else ""), file=sys.stderr)
-
-
-def _progress_printer(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done: int, total: int, result) -> None:
-        sys.stderr.write(f"\r  corners {done}/{total}")
-        if done == total:
-            sys.stderr.write("\r" + " " * 40 + "\r")
-        sys.stderr.flush()
-
-    return show
-
-
-def _values_line(job, values: dict) -> str:
-    """``cc = 292.8 fF, rc = 20 kΩ``, or the device's size when one stands in for Rc."""
-    parts = []
-    for role, value in values.items():
-        knob = job.compensation.get(role)
-        if knob is not None and knob.where == "device":
-            unit = "" if knob.size == "m" else "m"
-            parts.append(f"{knob.name} {knob.size} = {engineering(value, unit, 4)}")
-        else:
-            parts.append(f"{role} = {engineering(value, 'F' if role == 'cc' else 'Ω', 4)}")
-    return ", ".join(parts)
-
-
-def _who(names: list[str], total: int) -> str:
-    """``corner a``, ``corners a, b``, ``corners a, b, c and 4 more``, ``all 9 corners``."""
-    if len(names) == total and total > 1:
-        return f"all {total} corners"
-    if len(names) > 3:
-        return f"corners {', '.join(names[:3])} and {len(names) - 3} more"
-    return ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
-
-
-def _print_corner_errors(failed, total: int) -> None:
-    """One line per distinct problem, naming the corners it hit."""
-    by_problem: dict[str, list[str]] = {}
-    for c in failed:
-        by_problem.setdefault(c.error or "failed", []).append(c.corner.name)
-    for problem, names in by_problem.items():
-        print(f"amploop: error: {problem} ({_who(names, total)})", file=sys.stderr)
 
 
 def _cluster_pool(args):
@@ -282,7 +159,7 @@ def _run_measure(args) -> ExitCode:
                                 "suspect_corners": [c.corner.name for c in suspect],
                                 "out": str(result.out)}))
         elif not args.quiet:
-            values = _values_line(job, result.values)
+            values = values_line(job, result.values)
             print(f"job {job.name}: {len(result.corners)} corners at {values}")
             print(corner_table(result.corners))
             print(f"{result.ac_run} AC analyses run, {result.ac_reused} reused, in "
@@ -291,14 +168,14 @@ def _run_measure(args) -> ExitCode:
             for warning in result.warnings:
                 print(f"amploop: warning: {warning}", file=sys.stderr)
             print_corner_remarks(result.corners)
-        _print_corner_errors(failed, len(result.corners))
+        print_corner_errors(failed, len(result.corners))
         if not args.no_report and any(c.margins is not None for c in result.corners):
             _write_report(result.out, args, quiet=args.quiet or args.json)
 
     with _cluster_pool(args) as pool:
         result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
                          pool=pool, allow_control=args.allow_control,
-                         progress=_progress_printer(args.quiet), time_domain=not args.no_report,
+                         progress=progress_printer(args.quiet), time_domain=not args.no_report,
                          finish=finish)
     failed = [c for c in result.corners if c.status == "error"]
     suspect = [c for c in result.corners if c.status == "suspect"]
@@ -307,47 +184,6 @@ def _run_measure(args) -> ExitCode:
             return ExitCode.BAD_INPUT
         return ExitCode.SIMULATOR_FAILURE
     return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
-
-
-TUNE_PROGRESS_KEY = ("  each point: worst-corner phase margin at worst-corner unity-gain frequency; "
-                     "best: the point so far that meets the target with the most bandwidth")
-
-
-def tune_progress_line(entry, best: dict, target) -> str:
-    """The tune progress line after history entry ``entry`` (read with
-    :data:`TUNE_PROGRESS_KEY`): the running answer first, the point so far that meets
-    ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
-    report's samples do not count), then what this point gave."""
-    from amploop.strategy.common import meets_target
-
-    w = entry.worst
-    if w is not None and entry.kind != "report-map" and meets_target(w, target) \
-            and (not best or w.unity_gain_hz > best["ugf"]):
-        best.update(ugf=w.unity_gain_hz, pm=w.phase_margin_deg, step=entry.step)
-    answer = "none yet" if not best else \
-        f"{best['pm']:.2f}° at {engineering(best['ugf'], 'Hz')} (step {best['step']})"
-    this = "a corner did not measure" if w is None else \
-        f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
-    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {entry.kind}: "
-            f"{this} | {entry.ac_analyses} AC")
-
-
-def _tune_progress(quiet: bool, job):
-    if quiet or not sys.stderr.isatty():
-        return None
-    best: dict = {}
-
-    def show(entry) -> None:
-        import shutil
-
-        if not best and entry.step == 1:
-            sys.stderr.write(TUNE_PROGRESS_KEY + "\n")
-        width = shutil.get_terminal_size((100, 24)).columns - 1
-        line = "  " + tune_progress_line(entry, best, job.target)
-        sys.stderr.write("\r" + line[:width].ljust(width))
-        sys.stderr.flush()
-
-    return show
 
 
 def _run_tune(args) -> ExitCode:
@@ -371,7 +207,7 @@ def _run_tune(args) -> ExitCode:
                                                    "limiting_corner", "worst", "ac_analyses")}
                              | {"message": result.outcome.message, "out": str(result.out)}))
         elif not args.quiet:
-            values = _values_line(job, result.outcome.values)
+            values = values_line(job, result.outcome.values)
             print(f"job {job.name}: {result.status} ({args.strategy}) at {values}")
             print(corner_table(result.corners, job.target))
             print(result.outcome.message)
@@ -401,7 +237,7 @@ def _run_tune(args) -> ExitCode:
     with _cluster_pool(args) as pool:
         result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
                       pool=pool, allow_control=args.allow_control, resume=args.resume,
-                      progress=_tune_progress(args.quiet, job),
+                      progress=tune_progress(args.quiet, job),
                       time_domain=not args.no_report, finish=finish)
     if result.status == "converged":
         return ExitCode.OK
@@ -454,7 +290,3 @@ def main(argv: list[str] | None = None) -> int:
               "folder; AMPLOOP_DEBUG=1 shows the traceback; please report it)", file=sys.stderr)
         return int(ExitCode.SIMULATOR_FAILURE)
     return int(ExitCode.OK)
-
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())

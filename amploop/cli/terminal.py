@@ -1,0 +1,181 @@
+"""What the terminal shows: the corner table, remarks on suspect corners, the progress
+lines of measure, tune and report, the chosen values. Printing only; no decisions."""
+
+from __future__ import annotations
+
+import sys
+
+from amploop.spice.units import engineering
+
+
+def page_progress(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int) -> None:
+        sys.stderr.write(f"\r  report: page {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def _table(rows: list[list[str]], header: list[str]) -> str:
+    widths = [max(len(header[i]), *(len(r[i]) for r in rows)) for i in range(len(header))]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths))]
+    lines.append("  ".join("-" * w for w in widths))
+    for row in rows:
+        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w)
+                               for i, (c, w) in enumerate(zip(row, widths))))
+    return "\n".join(lines)
+
+
+def _figure(value, fmt: str) -> str:
+    return "–" if value is None else format(value, fmt)
+
+
+def _corner_note(corner, target) -> str:
+    """``ok``, ``SUSPECT``, ``ERROR``, or what the corner misses of ``target`` (``GM 9.9956
+    dB < 10 dB``); followed by ``gmin`` where its operating point needed gmin stepping."""
+    from amploop.bench.oppoint import status_label
+
+    label = status_label(corner.status, corner.warnings)
+    if corner.status == "ok" and target is not None:
+        from amploop.strategy.common import corner_shortfall
+
+        missed = corner_shortfall(corner, target)
+        if missed:
+            return missed + label[len("ok"):]
+    return label
+
+
+def corner_table(corners, target=None) -> str:
+    """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
+    corner that misses the ``target`` says which margin and by how much)."""
+    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover",
+              "out - CM", "note"]
+    rows = []
+    for c in corners:
+        m = c.margins
+        op = c.operating_point
+        rows.append([
+            c.corner.name,
+            _figure(m and m.dc_loop_gain_db, ".1f"),
+            engineering(m and m.unity_gain_hz, "Hz"),
+            _figure(m and m.phase_margin_deg, ".2f"),
+            _figure(m and m.gain_margin_db, ".2f"),
+            engineering(m and m.phase_crossover_hz, "Hz"),
+            engineering(op and op.output_shift_v, "V"),
+            _corner_note(c, target),
+        ])
+    return _table(rows, header)
+
+
+_SUSPECT_LINES = 5  # suspect corners named one by one; the rest are counted
+
+
+def print_corner_remarks(corners) -> None:
+    """On stderr: each suspect corner's reason, then each simulator warning once with the
+    corners it hit and what it means."""
+    from amploop.bench.oppoint import warning_advice
+
+    suspect = [c for c in corners if c.status == "suspect"]
+    for c in suspect[:_SUSPECT_LINES]:
+        print(f"amploop: suspect: corner {c.corner.name}: {c.suspect_reason}", file=sys.stderr)
+    if len(suspect) > _SUSPECT_LINES:
+        print(f"amploop: suspect: {len(suspect) - _SUSPECT_LINES} more corners (each one's "
+              "reason is in results.json)", file=sys.stderr)
+    by_warning: dict[str, list[str]] = {}
+    for c in corners:
+        for warning in c.warnings:
+            by_warning.setdefault(warning, []).append(c.corner.name)
+    for warning, names in by_warning.items():
+        advice = warning_advice(warning)
+        print(f"amploop: warning: {warning} ({_who(names, len(corners))})"
+              + (f": {advice}" if advice else ""), file=sys.stderr)
+
+
+def progress_printer(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int, result) -> None:
+        sys.stderr.write(f"\r  corners {done}/{total}")
+        if done == total:
+            sys.stderr.write("\r" + " " * 40 + "\r")
+        sys.stderr.flush()
+
+    return show
+
+
+def values_line(job, values: dict) -> str:
+    """``cc = 292.8 fF, rc = 20 kΩ``, or the device's size when one stands in for Rc."""
+    parts = []
+    for role, value in values.items():
+        knob = job.compensation.get(role)
+        if knob is not None and knob.where == "device":
+            unit = "" if knob.size == "m" else "m"
+            parts.append(f"{knob.name} {knob.size} = {engineering(value, unit, 4)}")
+        else:
+            parts.append(f"{role} = {engineering(value, 'F' if role == 'cc' else 'Ω', 4)}")
+    return ", ".join(parts)
+
+
+def _who(names: list[str], total: int) -> str:
+    """``corner a``, ``corners a, b``, ``corners a, b, c and 4 more``, ``all 9 corners``."""
+    if len(names) == total and total > 1:
+        return f"all {total} corners"
+    if len(names) > 3:
+        return f"corners {', '.join(names[:3])} and {len(names) - 3} more"
+    return ("corner " if len(names) == 1 else "corners ") + ", ".join(names)
+
+
+def print_corner_errors(failed, total: int) -> None:
+    """One line per distinct problem, naming the corners it hit."""
+    by_problem: dict[str, list[str]] = {}
+    for c in failed:
+        by_problem.setdefault(c.error or "failed", []).append(c.corner.name)
+    for problem, names in by_problem.items():
+        print(f"amploop: error: {problem} ({_who(names, total)})", file=sys.stderr)
+
+
+TUNE_PROGRESS_KEY = ("  each point: worst-corner phase margin at worst-corner unity-gain frequency; "
+                     "best: the point so far that meets the target with the most bandwidth")
+
+
+def tune_progress_line(entry, best: dict, target) -> str:
+    """The tune progress line after history entry ``entry`` (read with
+    :data:`TUNE_PROGRESS_KEY`): the running answer first, the point so far that meets
+    ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
+    report's samples do not count), then what this point gave."""
+    from amploop.strategy.common import meets_target
+
+    w = entry.worst
+    if w is not None and entry.kind != "report-map" and meets_target(w, target) \
+            and (not best or w.unity_gain_hz > best["ugf"]):
+        best.update(ugf=w.unity_gain_hz, pm=w.phase_margin_deg, step=entry.step)
+    answer = "none yet" if not best else \
+        f"{best['pm']:.2f}° at {engineering(best['ugf'], 'Hz')} (step {best['step']})"
+    this = "a corner did not measure" if w is None else \
+        f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
+    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {entry.kind}: "
+            f"{this} | {entry.ac_analyses} AC")
+
+
+def tune_progress(quiet: bool, job):
+    if quiet or not sys.stderr.isatty():
+        return None
+    best: dict = {}
+
+    def show(entry) -> None:
+        import shutil
+
+        if not best and entry.step == 1:
+            sys.stderr.write(TUNE_PROGRESS_KEY + "\n")
+        width = shutil.get_terminal_size((100, 24)).columns - 1
+        line = "  " + tune_progress_line(entry, best, job.target)
+        sys.stderr.write("\r" + line[:width].ljust(width))
+        sys.stderr.flush()
+
+    return show

@@ -1,0 +1,130 @@
+"""One corner's page: the Bode plot of its loop gain (before and after, when tuned),
+its margins, its DC operating point and status, its step figures."""
+
+from __future__ import annotations
+
+import textwrap
+
+import matplotlib.pyplot as plt
+import numpy as np
+
+from amploop.analysis.margins import loop_margins
+from amploop.report import style
+from amploop.report.data import ReportData
+from amploop.report.pages import new_page, shown_value
+from amploop.report.summary import corner_status_lines
+from amploop.spice.units import engineering
+
+
+def corner_page(data: ReportData, name: str, target_pm: float | None):
+    """Magnitude and phase of one corner's loop gain, with the tuning's story.
+
+    Parameters
+    ----------
+    data
+        The out folder's figures.
+    name
+        The corner.
+    target_pm
+        The target phase margin, degrees, drawn on the phase plot; None for none.
+    """
+    corner = data.corner(name)
+    fig = new_page()
+    limiting = name == data.limiting_corner
+    title = f"Corner {name}" + ("  — limiting corner" if limiting else "")
+    fig.text(0.06, 0.95, title, fontsize=13, weight="bold",
+             color=style.LIMIT if limiting else "black")
+    params = ", ".join(f"{k} = {engineering(v)}" for k, v in corner.get("params", {}).items())
+    lib = f"lib {corner['lib']}, " if corner.get("lib") else ""
+    fig.text(0.06, 0.922, f"{lib}{corner.get('temp', 27):g} °C" + (f", {params}" if params else ""),
+             fontsize=9, color=style.MUTED)
+    status = corner.get("status", "error")
+    fig.text(0.95, 0.95, status.upper(), fontsize=12, color="white", weight="bold", ha="right",
+             bbox=dict(boxstyle="round,pad=0.35", edgecolor="none", facecolor={
+                 "ok": style.FINAL, "suspect": style.SUSPECT}.get(status, style.LIMIT)))
+    mag = fig.add_axes((0.07, 0.52, 0.6, 0.36))
+    phase = fig.add_axes((0.07, 0.1, 0.6, 0.36), sharex=mag)
+    curves = data.curves.get(name, [])
+    steps = [c for c in curves if c.kind == "step"]
+    for curve in curves:
+        if curve.kind == "final":
+            kw = dict(color=style.FINAL, lw=2.0, zorder=5)
+        elif curve.kind == "start":
+            kw = dict(color=style.START, lw=1.2, ls="--", zorder=3)
+        else:
+            kw = dict(color=style.step_colour(steps.index(curve), len(steps)), lw=0.9, zorder=2)
+        f = curve.response.frequency_hz
+        mag.semilogx(f, curve.response.magnitude_db, label=curve.label, **kw)
+        phase.semilogx(f, curve.response.phase_deg, **kw)
+    mag.axhline(0, color=style.MUTED, lw=0.8)
+    phase.axhline(-180, color=style.MUTED, lw=0.8)
+    mag.set_ylabel("loop gain |T| (dB)")
+    phase.set_ylabel("phase ∠T (°)")
+    phase.set_xlabel("frequency")
+    phase.xaxis.set_major_formatter(style.hertz)
+    plt.setp(mag.get_xticklabels(), visible=False)
+    final = data.finals.get(name)
+    notes = []
+    if final is not None:
+        m = loop_margins(final)
+        low = max(-270.0, float(np.nanmin(final.phase_deg)) - 10)
+        phase.set_ylim(low, max(20.0, float(np.nanmax(final.phase_deg)) + 10))
+        mag.set_ylim(max(-80.0, float(np.nanmin(final.magnitude_db)) - 5),
+                     float(np.nanmax(final.magnitude_db)) + 8)
+        if m.unity_gain_hz is not None:
+            fu, pm = m.unity_gain_hz, m.phase_margin_deg
+            for ax in (mag, phase):
+                ax.axvline(fu, color=style.FINAL, lw=0.8, ls=":")
+            phase.annotate("", xy=(fu, pm - 180), xytext=(fu, -180),
+                           arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+            phase.text(fu * 1.25, -180 + pm / 2, f"phase\nmargin\n{pm:.2f}°", color=style.LIMIT,
+                       fontsize=8.5, va="center", ha="left",
+                       bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+            mag.text(fu * 1.15, 2, f"crossover {engineering(fu, 'Hz')}", color=style.FINAL,
+                     fontsize=9, va="bottom")
+            notes += [f"unity gain {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
+            if target_pm is not None:
+                phase.axhline(target_pm - 180, color=style.LIMIT, lw=0.7, ls="--")
+                phase.text(final.frequency_hz[0] * 1.3, target_pm - 180 + 2,
+                           f"target {target_pm:g}° of margin", color=style.LIMIT, fontsize=7.5)
+        if m.gain_margin_db is not None:
+            fx, gm = m.phase_crossover_hz, m.gain_margin_db
+            mag.annotate("", xy=(fx, -gm), xytext=(fx, 0),
+                         arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+            mag.text(fx * 1.25, -gm / 2, f"gain margin\n{gm:.1f} dB", color=style.LIMIT,
+                     fontsize=8.5, va="center",
+                     bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+            phase.axvline(fx, color=style.LIMIT, lw=0.6, ls=":")
+            notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
+        notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
+        device = data.results.get("device")
+        if device and name in device.get("corners", {}):
+            info = device["corners"][name]
+            notes.append(f"{device['name']}: {engineering(info['resistance_ohm'], 'Ω', 4)} "
+                         f"(square law {engineering(info['square_law_ohm'], 'Ω', 3)})")
+            notes.append(f"  this corner alone would want {engineering(info['wanted_rc_ohm'], 'Ω', 4)}")
+    else:
+        mag.text(0.5, 0.5, f"not measured: {corner.get('error')}", transform=mag.transAxes,
+                 ha="center", color=style.LIMIT, wrap=True)
+    handles, labels = mag.get_legend_handles_labels()
+    if handles:
+        fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(0.69, 0.89),
+                   title="loop gain at", title_fontsize=8, alignment="left")
+    y = 0.4
+    fig.text(0.695, y + 0.035, "final values", fontsize=9, weight="bold", color=style.FINAL)
+    for note in notes:
+        fig.text(0.695, y, note, fontsize=9)
+        y -= 0.03
+    step = data.steps.get(name)
+    if step is not None and step.metrics is not None:
+        settle = shown_value(step.metrics.settling_s, "", "s")
+        fig.text(0.695, y - 0.01, f"step response: overshoot {step.metrics.overshoot_pct:.2f} %,\n"
+                 f"settles to ±{step.metrics.band:.1%} in {settle}", fontsize=9, va="top")
+        y -= 0.07
+    y -= 0.01
+    for line in corner_status_lines(corner):
+        colour = style.SUSPECT if line.startswith("SUSPECT") else "black"
+        for part in textwrap.wrap(line, 56):
+            fig.text(0.695, y, part, fontsize=7.5, color=colour)
+            y -= 0.019
+    return fig

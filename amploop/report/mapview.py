@@ -1,0 +1,126 @@
+"""The compensation-map page: the worst phase margin over all corners across the
+(Cc, Rc) plane, the region that meets the target, the chosen point."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from amploop.analysis.margins import grid_margins
+from amploop.report import style
+from amploop.report.data import ReportData
+from amploop.report.pages import new_page, values_text
+from amploop.report.selection import EVERY_CORNER_UP_TO
+from amploop.spice.units import engineering
+from amploop.strategy.mapsolve import cc_grid
+
+
+def _map_margins(cmap, cc: np.ndarray, rc: np.ndarray, pick=slice(None)):
+    """:func:`grid_margins` of ``cmap`` over the grid ``cc`` × ``rc`` (at the frequencies
+    ``pick``), a few Cc rows at a time (about 400 000 loop-gain values, 6.4 MB): a 60 × 50
+    grid at 401 frequencies would otherwise hold some twenty arrays of 19 MB at once."""
+    rows = max(1, 400_000 // (rc.size * cmap.frequency_hz[pick].size))
+    parts = []
+    for start in range(0, cc.size, rows):
+        values = cmap.loop_gain_values(cc[start:start + rows, None], rc[None, :],
+                                       frequency_index=pick)
+        parts.append(grid_margins(cmap.frequency_hz[pick], values))
+    return tuple(np.concatenate(column) for column in zip(*parts))
+
+
+def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray, every: int = 2):
+    """The smallest phase and gain margins over the corners' maps in ``data``, on the
+    grid ``cc`` × ``rc`` at every ``every``-th frequency, one corner at a time."""
+    pm_w = np.full((cc.size, rc.size), np.inf)
+    gm_w = np.full((cc.size, rc.size), np.inf)
+    for cmap in data.maps.values():
+        pm, _, gm = _map_margins(cmap, cc, rc, slice(None, None, every))
+        pm_w = np.fmin(pm_w, np.where(np.isnan(pm), -np.inf, pm))
+        gm_w = np.fmin(gm_w, gm)
+    return pm_w, gm_w
+
+
+def map_page(data: ReportData):
+    """Phase margin and unity-gain frequency of the limiting corner over (Cc, Rc), from
+    its compensation map in ``data``."""
+    name = data.limiting_corner
+    cmap = data.maps.get(name) if name else None
+    fig = new_page()
+    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name})", fontsize=13,
+             weight="bold")
+    fig.text(0.06, 0.922, "Every point computed from three analyses of the corner (the loop gain "
+             "is bilinear in the branch impedance Rc + 1/sCc); shaded: all corners meet the target.",
+             fontsize=8.5, color=style.MUTED)
+    ax = fig.add_axes((0.08, 0.1, 0.62, 0.78))
+    if cmap is None:
+        ax.text(0.5, 0.5, "no compensation map in this out folder", ha="center",
+                transform=ax.transAxes)
+        return fig
+    r = data.results
+    knobs = r.get("bounds") or {}
+    device = r.get("device")
+    cc_lo, cc_hi = knobs.get("cc", [min(s[0] for s in cmap.samples) / 3, max(s[0] for s in cmap.samples) * 3])
+    rc_lo, rc_hi = knobs.get("rc", [0.0, max(max(s[1] for s in cmap.samples) * 3, 1.0)])
+    chosen_rc = r.get("values", {}).get("rc", 0.0)
+    if device is not None:  # the device's resistance as this corner sees it
+        chosen_rc = device["corners"][name]["resistance_ohm"]
+        rc_lo, rc_hi = 0.0, 3 * max(chosen_rc, max(s[1] for s in cmap.samples))
+        fig.texts[1].set_text(f"{device['name']} stands in for Rc: the vertical axis is its "
+                              "channel resistance as this corner sees it; shaded: this corner "
+                              "meets the target.")
+    cc = cc_grid(cc_lo, cc_hi, 60)
+    rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
+    pm, ugf, _ = _map_margins(cmap, cc, rc)
+    if rc.size > 1:
+        target = r.get("target", {})
+        if target:
+            # each corner costs a grid evaluation: above the count where every corner gets
+            # a page, the region is found on a grid of half the steps, at every fourth
+            # frequency (as the map strategy's first look)
+            few = len(data.maps) <= EVERY_CORNER_UP_TO
+            shade_cc, shade_rc = (cc, rc) if few else (cc[::2], rc[::2])
+            every = 2 if few else 4
+            pm_w, gm_w = _worst_grid(data, shade_cc, shade_rc, every) if device is None else \
+                _worst_grid(ReportData(data.out, r, [name], maps={name: cmap}), shade_cc,
+                            shade_rc, every)
+            ok = pm_w >= target["phase_margin_deg"]
+            if target.get("gain_margin_db") is not None:
+                ok &= gm_w >= target["gain_margin_db"]
+            ax.contourf(shade_cc, shade_rc, ok.T.astype(float), levels=[0.5, 1.5],
+                        colors=[style.FEASIBLE])
+        levels = [lv for lv in (30, 40, 50, 55, 60, 65, 70, 75, 80, 90) if np.nanmin(pm) < lv < np.nanmax(pm)]
+        cs = ax.contour(cc, rc, pm.T, levels=levels, colors=[style.FINAL], linewidths=0.9)
+        ax.clabel(cs, fmt=lambda v: f"{v:g}°", fontsize=7.5)
+        finite = ugf[np.isfinite(ugf)]
+        if finite.size:
+            ulevels = np.geomspace(finite.min(), finite.max(), 7)[1:-1]
+            ulevels = sorted({float(f"{u:.2g}") for u in ulevels})
+            cu = ax.contour(cc, rc, ugf.T, levels=ulevels, colors=[style.MUTED], linewidths=0.7,
+                            linestyles="--")
+            ax.clabel(cu, fmt=lambda v: engineering(v, "Hz", 2), fontsize=7)
+    ax.set_xscale("log")
+    ax.xaxis.set_major_formatter(style.farads)
+    ax.yaxis.set_major_formatter(style.ohms)
+    ax.set_xlabel("Cc")
+    ax.set_ylabel("Rc")
+    history = [h for h in r.get("history", []) if h["kind"] not in ("report-map",)]
+    textbook = [h for h in history if h["kind"] in ("start", "dominant-pole", "lead", "adjust-cc")]
+    if textbook:
+        xs = [h["values"]["cc"] for h in textbook]
+        ys = [h["values"].get("rc", 0.0) for h in textbook]
+        ax.plot(xs, ys, "-o", color=style.TEXTBOOK, ms=4, lw=1.2, label="textbook procedure, step by step")
+    ax.plot([s[0] for s in cmap.samples], [s[1] for s in cmap.samples],
+            "s", color=style.START, ms=6, label="the three simulated samples the map is built on")
+    chosen = r.get("values", {})
+    if "cc" in chosen:
+        ax.plot([chosen["cc"]], [chosen_rc], "*", color=style.FINAL, ms=16,
+                markeredgecolor="white", label=f"chosen: {values_text(chosen, r)}", zorder=6)
+    if rc.size > 1:
+        pad = 0.03 * (rc[-1] - rc[0])
+        ax.set_ylim(rc[0] - pad, rc[-1] + pad)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
+    fig.text(0.72, 0.55, "solid lines: phase margin of this corner\n"
+             "dashed lines: its unity-gain frequency\n"
+             + ("green: this corner meets the target" if device else
+                "green: every corner meets the target"), fontsize=8.5, color=style.MUTED,
+             va="top")
+    return fig
