@@ -86,28 +86,81 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
         Without ``input_device`` and ``second_stage_device``, or with a MOSFET standing
         in for Rc.
     """
-    amp = evaluator.amplifier.job.amplifier
-    if not amp.input_device or not amp.second_stage_device:
+    _check_applies(evaluator)
+    job = evaluator.amplifier.job
+    in_effect = evaluator.full_values({})
+    point = _Clipped(bounds_of(job.compensation["cc"], in_effect["cc"]),
+                     bounds_of(job.compensation.get("rc"), in_effect.get("rc", 0.0))
+                     if "rc" in in_effect else None)
+    amp = job.amplifier
+    gms = evaluator.device_quantities(
+        {"gm1": gm_quantity(amp.input_device), "gm2": gm_quantity(amp.second_stage_device)},
+        in_effect)
+    rc = point.rc_bounds[0] if point.rc_bounds else 0.0
+    current = evaluator.simulate([point(max(_starting_ccs(evaluator, gms)), rc)], kind="start",
+                                 note="Cc = β·gm1·CL,eff/gm2")[0]
+    if failed := _failure(current):
+        return failed
+
+    # dominant-pole step: Cc scaled so that |L| = 1 where the phase leaves the target less
+    # the lead zero's share
+    pm_dp = target.phase_margin_deg - lead_share_deg
+    scale = _dominant_pole_scale(current, pm_dp)
+    current = evaluator.simulate([point(current.values["cc"] * scale, rc)], kind="dominant-pole",
+                                 note=f"|L| at −{180 - pm_dp:g}°: ×{scale:.3g}")[0]
+    if failed := _failure(current):
+        return failed
+
+    if point.rc_bounds:  # lead step: the zero at k·ωt of the worst corner
+        worst = min(current.corners, key=lambda c: c.margins.phase_margin_deg)
+        omega_t = 2 * math.pi * worst.margins.unity_gain_hz
+        k = lead_ratio(lead_share_deg)
+        rc = lead_resistor(gms[worst.corner.name]["gm2"], k, omega_t, current.values["cc"])
+        current = evaluator.simulate([point(current.values["cc"], rc)], kind="lead",
+                                     note=f"zero at {k:.2f}·ωt of {worst.corner.name}")[0]
+        if failed := _failure(current):
+            return failed
+        rc = current.values["rc"]
+
+    current = _adjust_cc(evaluator, target, current, point, rc, max_cc_steps)
+    if isinstance(current, Outcome):
+        return current
+    return _ending(current, target)
+
+
+def _check_applies(evaluator: Evaluator) -> None:
+    """Refuse a job the procedure cannot run on (no gm to read, or a device for Rc)."""
+    job = evaluator.amplifier.job
+    if not job.amplifier.input_device or not job.amplifier.second_stage_device:
         raise TuningError(
             "the textbook strategy needs [amplifier].input_device and second_stage_device "
             "(an input-pair transistor and the second-stage driver) to read their gm",
-            file=evaluator.amplifier.job.path, place="[amplifier]",
+            file=job.path, place="[amplifier]",
         )
-    job = evaluator.amplifier.job
     if evaluator.amplifier.device is not None:
         raise TuningError("the textbook strategy sets a resistance, not a device size: use the "
                           "map strategy for a MOSFET standing in for Rc",
                           file=job.path, place="[compensation].rc")
-    knobs = job.compensation
-    in_effect = evaluator.full_values({})
-    cc_bounds = bounds_of(knobs["cc"], in_effect["cc"])
-    has_rc = "rc" in in_effect
-    rc_bounds = bounds_of(knobs.get("rc"), in_effect.get("rc", 0.0))
 
-    gms = evaluator.device_quantities(
-        {"gm1": gm_quantity(amp.input_device), "gm2": gm_quantity(amp.second_stage_device)},
-        in_effect)
-    fb = job.feedback
+
+class _Clipped:
+    """A point of the walk, its values clipped to the bounds (farads; ohms)."""
+
+    def __init__(self, cc_bounds: tuple[float, float],
+                 rc_bounds: tuple[float, float] | None) -> None:
+        self.cc_bounds, self.rc_bounds = cc_bounds, rc_bounds
+
+    def __call__(self, cc: float, rc: float) -> dict[str, float]:
+        values = {"cc": _clip(cc, self.cc_bounds)}
+        if self.rc_bounds:
+            values["rc"] = _clip(rc, self.rc_bounds)
+        return values
+
+
+def _starting_ccs(evaluator: Evaluator, gms: dict) -> list[float]:
+    """Each corner's starting Cc, farads: β·gm1·CL,eff/gm2 with the feedback network's
+    values at that corner and the gm read from the simulator there."""
+    fb = evaluator.amplifier.job.feedback
     starts = []
     for corner in evaluator.corners:
         z_in = _corner_value(fb.input, corner.params)
@@ -116,48 +169,24 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
         beta = feedback_factor(fb.kind, z_in, z_fb)
         cl_eff = effective_load(fb.kind, cl, z_in, z_fb)
         starts.append(starting_cc(beta, gms[corner.name]["gm1"], cl_eff, gms[corner.name]["gm2"]))
+    return starts
 
-    def point(cc: float, rc: float) -> dict[str, float]:
-        values = {"cc": _clip(cc, cc_bounds)}
-        if has_rc:
-            values["rc"] = _clip(rc, rc_bounds)
-        return values
 
-    rc = rc_bounds[0]
-    current = evaluator.simulate([point(max(starts), rc)], kind="start",
-                                 note="Cc = β·gm1·CL,eff/gm2")[0]
-    failed = _failure(current)
-    if failed:
-        return failed
+def _dominant_pole_scale(current: PointResult, pm_dp: float) -> float:
+    """How much to scale Cc by so that every corner's |L| falls to 1 by the frequency where
+    its phase reaches −(180 − ``pm_dp``)° (``pm_dp`` in degrees): the largest |L| there
+    (1 when no corner reaches that phase)."""
+    factors = [found[1] for c in current.corners
+               if (found := where_phase_is(c.loop_gain, -(180.0 - pm_dp))) is not None]
+    return max(factors) if factors else 1.0
 
-    # dominant-pole step
-    pm_dp = target.phase_margin_deg - lead_share_deg
-    factors = []
-    for c in current.corners:
-        found = where_phase_is(c.loop_gain, -(180.0 - pm_dp))
-        if found is not None:
-            factors.append(found[1])
-    scale = max(factors) if factors else 1.0
-    current = evaluator.simulate([point(current.values["cc"] * scale, rc)], kind="dominant-pole",
-                                 note=f"|L| at −{180 - pm_dp:g}°: ×{scale:.3g}")[0]
-    failed = _failure(current)
-    if failed:
-        return failed
 
-    # lead step
-    if has_rc:
-        worst = min(current.corners, key=lambda c: c.margins.phase_margin_deg)
-        omega_t = 2 * math.pi * worst.margins.unity_gain_hz
-        k = lead_ratio(lead_share_deg)
-        rc = lead_resistor(gms[worst.corner.name]["gm2"], k, omega_t, current.values["cc"])
-        current = evaluator.simulate([point(current.values["cc"], rc)], kind="lead",
-                                     note=f"zero at {k:.2f}·ωt of {worst.corner.name}")[0]
-        failed = _failure(current)
-        if failed:
-            return failed
-        rc = current.values["rc"]
-
-    # move Cc with Rc fixed until the worst corner lands in the target window
+def _adjust_cc(evaluator: Evaluator, target: Target, current: PointResult, point: _Clipped,
+               rc: float, max_cc_steps: int) -> PointResult | Outcome:
+    """Move Cc with Rc fixed until the worst corner lands in the target window: bold steps
+    (about 1° per 2 % of Cc near the target on a two-stage loop) until the window is
+    bracketed, then interpolation in log Cc. The last point, or the Outcome of a point
+    that could not be simulated."""
     low, high = None, None  # (log cc, pm) below / above the window
     for _ in range(max_cc_steps):
         worst = current.worst
@@ -173,27 +202,28 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
         aim = target.phase_margin_deg + 0.4 * target.tolerance_deg
         if low and high:
             t = (aim - low[1]) / (high[1] - low[1]) if high[1] != low[1] else 0.5
-            t = min(max(t, 0.1), 0.9)
-            next_log = low[0] + t * (high[0] - low[0])
+            next_log = low[0] + min(max(t, 0.1), 0.9) * (high[0] - low[0])
         else:
-            # about 1° per 2 % of Cc near the target on a two-stage loop; step boldly
-            step = max(min((aim - pm) * 0.02, 0.7), -0.7)
-            next_log = log_cc + step
-        next_cc = _clip(math.exp(next_log), cc_bounds)
+            next_log = log_cc + max(min((aim - pm) * 0.02, 0.7), -0.7)
+        next_cc = _clip(math.exp(next_log), point.cc_bounds)
         if math.isclose(next_cc, current.values["cc"], rel_tol=1e-9):
             break  # against a bound
         current = evaluator.simulate([point(next_cc, rc)], kind="adjust-cc",
                                      note="Cc with Rc fixed")[0]
-        failed = _failure(current)
-        if failed:
+        if failed := _failure(current):
             return failed
+    return current
+
+
+def _ending(current: PointResult, target: Target) -> Outcome:
+    """Converged when the last point meets the target; else failed (the procedure cannot
+    prove that nothing works, so never "infeasible")."""
     worst = current.worst
     missed = missed_target(current.corners, target)
     if missed is None:
         return Outcome("converged", current.values, current,
                        f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
                        f"(corner {worst.limiting_corner}) at " + describe_values(current.values))
-    # the procedure cannot prove that nothing works, so this is a failure, not "infeasible"
     return Outcome("failed", current.values, current,
                    "the textbook procedure ends at " + describe_values(current.values)
                    + f": {missed}")
