@@ -412,3 +412,23 @@ def test_set_rc_with_the_milli_suffix_is_refused_and_a_short_is_not(job, tmp_pat
     edit(job, 'input = "10000.0"', 'input = "1G"')
     code, _, err = run(measure_args(job, tmp_path) + ["--set", "rc=0", "--no-report"], capsys)
     assert code == 0, err
+
+
+@pytest.mark.parametrize("role", ["input_device", "second_stage_device"])
+def test_a_named_device_that_is_not_in_the_subckt(tmp_path, capsys, role):
+    """A typo in the device whose gm and VDS the tool reads is refused before any
+    simulation, with the subckt's MOSFETs listed (it used to be accepted, and the device's
+    quantities simply went missing)."""
+    import shutil
+
+    from conftest import DEMO
+
+    shutil.copytree(DEMO, tmp_path / "demo")
+    job = tmp_path / "demo" / "job.toml"
+    old = {"input_device": 'input_device = "M1"', "second_stage_device": 'second_stage_device = "M6"'}
+    edit(job, old[role], old[role].replace('"M', '"M9'))
+    code, _, err = run(measure_args(job, tmp_path), capsys)
+    assert code == 2
+    line = one_error_line(err)
+    assert f"[amplifier].{role}" in line and "is not a MOSFET of subckt" in line, line
+    assert "M1" in line and "M6" in line, line

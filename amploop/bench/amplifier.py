@@ -246,6 +246,7 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         )
     subckt = netlist.subckt(job.amplifier.subckt)
     _check_ports(job, subckt)
+    _check_named_devices(job, subckt)
     params = {**{k: v for k, v in subckt.params.items()}}
     global_exprs = {name: expr for name, (_, expr) in netlist.global_params.items()}
     local = subckt.local_params()
@@ -261,6 +262,21 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
                      control_blocks=control, reads=reads.files, device=device,
                      warnings=tuple(warnings))
+
+
+def _check_named_devices(job: Job, subckt: Subckt) -> None:
+    """``input_device`` and ``second_stage_device`` name MOSFETs of the subckt (a name with
+    a dot is inside a nested instance and is left to the simulator)."""
+    mosfets = [s.tokens[0] for s in subckt.elements() if s.keyword.startswith("m")]
+    for role in ("input_device", "second_stage_device"):
+        name = getattr(job.amplifier, role)
+        if not name or "." in name:
+            continue
+        if subckt.element(name) is None or not name.lower().startswith("m"):
+            raise NetlistError(
+                f"{name!r} is not a MOSFET of subckt {subckt.name} (its MOSFETs: "
+                f"{' '.join(mosfets) or 'none'})" + closest_names(name, mosfets),
+                file=job.path, place=f"[amplifier].{role}")
 
 
 def _check_ports(job: Job, subckt: Subckt) -> None:
