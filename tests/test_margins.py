@@ -61,7 +61,9 @@ def test_margins_agree_with_python_control(name, points_per_decade):
     frd = control.frd(response.values, 2 * np.pi * response.frequency_hz, smooth=True)
     gm_frd, pm_frd, *_ = control.stability_margins(frd)
     assert ours.phase_margin_deg == pytest.approx(pm_frd, abs=0.05)
-    if not np.isinf(gm):
+    if np.isinf(gm):
+        assert np.isinf(gm_frd)
+    else:
         assert ours.gain_margin_db == pytest.approx(20 * np.log10(gm_frd), abs=0.05)
 
 
@@ -81,8 +83,8 @@ def test_two_pole_phase_margin_has_the_closed_form():
 
 @pytest.mark.parametrize("k", [1.0, 1.7, 3.0])
 def test_a_zero_at_k_times_the_crossover_adds_atan_one_over_k(k):
-    """A lone left-half-plane zero at k·ωt adds atan(1/k) of phase at ωt; k = 1.7 gives
-    30.5° (trigonometry; common practice). The loop's gain is scaled so that ωt stays."""
+    """A lone left-half-plane zero at k·ωt adds atan(1/k) of phase at ωt (trigonometry;
+    common practice). The loop's gain is scaled so that ωt stays."""
     a0, p1, p2 = 1e4, 1e3, 2e7
     plain, _ = sampled(*poles(a0, p1, p2), points_per_decade=40)
     ft = loop_margins(plain).unity_gain_hz
@@ -93,8 +95,6 @@ def test_a_zero_at_k_times_the_crossover_adds_atan_one_over_k(k):
     assert m1.unity_gain_hz == pytest.approx(ft, rel=1e-6)
     assert m1.phase_margin_deg - m0.phase_margin_deg == pytest.approx(
         math.degrees(math.atan(1 / k)), abs=1e-3)
-    if k == 1.7:
-        assert math.degrees(math.atan(1 / k)) == pytest.approx(30.0, abs=0.6)
 
 
 def test_phase_past_minus_180_at_crossover_gives_a_negative_margin():
@@ -116,17 +116,23 @@ def test_missing_crossings_are_none_not_numbers():
 
 
 def test_every_crossing_is_found_and_the_worst_margin_reported():
-    """A resonant loop crossing 0 dB three times: the worst phase margin among them."""
-    f = np.logspace(0, 10, 401)
-    s = 2j * np.pi * f
+    """A resonant loop (Q = 25 at 50 MHz) crossing 0 dB three times, and −180° once: the
+    worst of the three phase margins, where python-control's stability_margins (exact
+    polynomial method, every crossing: returnall) puts it, within 0.01° and 10 ppm. The
+    resonance is 4 % wide, so the loop is sampled at 400 points per decade."""
     w0 = 2 * np.pi * 5e7  # |base| ≈ −20 dB there; a Q of 25 lifts it to about +8 dB
-    base = 1e4 / ((1 + s / (2 * np.pi * 1e3)) * (1 + s / (2 * np.pi * 3e7)))
-    peak = 1 / (1 + 2 * 0.02 * s / w0 + (s / w0) ** 2)
-    response = FrequencyResponse(f, base * peak * 1.0)
+    num, den = poles(1e4, 1e3, 3e7)
+    den = list(np.polymul(den, [1 / w0**2, 2 * 0.02 / w0, 1.0]))
+    response, tf = sampled(num, den, points_per_decade=400)
+    gms, pms, _, w_180s, w_cs, _ = control.stability_margins(tf, returnall=True)
+    assert len(pms) == 3 and len(gms) == 1
     ours = loop_margins(response)
-    assert len(ours.crossings_hz) >= 3
-    assert ours.phase_margin_deg == pytest.approx(min(ours.phase_margins_deg))
-    assert ours.unity_gain_hz == ours.crossings_hz[int(np.argmin(ours.phase_margins_deg))]
+    worst = int(np.argmin(pms))
+    assert worst != 0  # the worst is not the first crossing
+    assert ours.phase_margin_deg == pytest.approx(pms[worst], abs=0.01)
+    assert ours.unity_gain_hz == pytest.approx(w_cs[worst] / (2 * np.pi), rel=1e-5)
+    assert ours.gain_margin_db == pytest.approx(20 * np.log10(gms[0]), abs=0.01)
+    assert ours.phase_crossover_hz == pytest.approx(w_180s[0] / (2 * np.pi), rel=1e-5)
 
 
 @settings(max_examples=200, deadline=None)
@@ -143,10 +149,12 @@ def test_three_pole_margins_match_python_control_for_random_loops(a0, p1, ratio,
     response, tf = sampled(num, den, points_per_decade=40, start=0.1, stop=1e12)
     gm, pm, _, _w_180, w_c, _ = control.stability_margins(tf)
     ours = loop_margins(response)
+    # a gain margin on one side only is a disagreement (python-control: inf for none)
+    assert (ours.gain_margin_db is None) == (not np.isfinite(gm))
+    if ours.gain_margin_db is not None:
+        assert ours.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.05)
     if ours.unity_gain_hz is None:
         assert not np.isfinite(w_c) or w_c == 0 or np.isnan(pm)
         return
     wrapped = (ours.phase_margin_deg + 180) % 360 - 180  # python-control wraps to [−180, 180)
     assert wrapped == pytest.approx(pm, abs=0.05)
-    if ours.gain_margin_db is not None and np.isfinite(gm):
-        assert ours.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.05)

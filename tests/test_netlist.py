@@ -517,14 +517,14 @@ R2 out 0 3k
 
     def test_includes_are_followed_relative_to_the_including_file(self, tmp_path):
         """``.include`` / ``.inc`` (quoted, case-insensitive) are read relative to the file
-        that holds them, recursively; dependencies list the root first."""
+        that holds them, recursively; the files read list the root first."""
         root = write(tmp_path, "design/amp.cir",
                      '.INCLUDE "../lib/first.inc"\n.inc ../lib/third.inc\n')
         write(tmp_path, "lib/first.inc", ".include sub/second.inc\n.param from_first=1\n")
         write(tmp_path, "lib/sub/second.inc", ".subckt deep a\n.ends\n.param from_second=2\n")
         write(tmp_path, "lib/third.inc", ".param from_third=3\n")
         netlist = read_netlist(root)
-        assert netlist.dependencies() == [root.resolve(), (tmp_path / "lib/first.inc").resolve(),
+        assert list(netlist.files) == [root.resolve(), (tmp_path / "lib/first.inc").resolve(),
                                           (tmp_path / "lib/sub/second.inc").resolve(),
                                           (tmp_path / "lib/third.inc").resolve()]
         assert "deep" in netlist.subckts

@@ -12,12 +12,19 @@ import json
 import math
 from pathlib import Path
 
+import control
 import numpy as np
 import pytest
 from nodal import Macromodel, exact_loop_gain
 
 from amploop.analysis.compmap import CompensationMap
-from amploop.analysis.twostage import lead_ratio, starting_cc, where_phase_is
+from amploop.analysis.twostage import (
+    lead_ratio,
+    lead_resistor,
+    rhp_zero_rad_s,
+    starting_cc,
+    where_phase_is,
+)
 from amploop.corners.measure import measure
 from amploop.sim.pool import WorkerPool
 from amploop.spec.job import load_job
@@ -264,10 +271,34 @@ def test_cc_alone_around_a_fixed_rc_is_confirmed_by_the_exact_model(tmp_path):
 # --- textbook facts (common practice) ---------------------------------------------------
 
 
-def test_lead_zero_ratio_for_thirty_degrees():
-    """A zero at k·ωt adds atan(1/k); k = 1/tan(30°) = 1.73 ≈ 1.7 (trigonometry)."""
-    assert lead_ratio(30.0) == pytest.approx(1.732, abs=1e-3)
-    assert math.degrees(math.atan(1 / 1.7)) == pytest.approx(30.0, abs=0.6)
+@pytest.mark.parametrize("lead_deg", [20.0, 30.0, 45.0])
+def test_the_lead_zero_placed_by_the_textbook_relations_adds_its_share_at_the_crossover(
+        lead_deg):
+    """The textbook two-pole Miller loop T = β·gm1·R1·gm2·R2·(1 + s·Cc·(Rc − 1/gm2)) /
+    ((1 + s/p1)(1 + s/p2)), p1 = 1/(gm2·R2·Cc·R1), p2 = gm2/CL (Gray, Hurst, Lewis,
+    Meyer, ch. 9; common practice), written here as python-control transfer functions.
+    With Rc = 1/gm2 it has no zero; its crossover ωt is python-control's. amploop's
+    lead_ratio and lead_resistor then put the zero at k·ωt (rhp_zero_rad_s: −k·ωt, a
+    left-half-plane one), and the phase at ωt rises by lead_deg = atan(1/k) (trigonometry),
+    0.001° (python-control's frequency response)."""
+    model = CORNERS["typical"]
+    beta = model.z_in / (model.z_in + model.z_fb)
+    cc = starting_cc(beta, model.gm1, model.cl, model.gm2)
+    gain = beta * model.gm1 * model.r1 * model.gm2 * model.r2
+    p1, p2 = 1 / (model.gm2 * model.r2 * cc * model.r1), model.gm2 / model.cl
+
+    def loop(rc: float) -> control.TransferFunction:
+        den = np.polymul([1 / p1, 1.0], [1 / p2, 1.0])
+        return control.tf([gain * cc * (rc - 1 / model.gm2), gain], den)
+
+    plain = loop(1 / model.gm2)
+    _, _, _, _, omega_t, _ = control.stability_margins(plain)
+    k = lead_ratio(lead_deg)
+    rc = lead_resistor(model.gm2, k, omega_t, cc)
+    assert rhp_zero_rad_s(cc, model.gm2, rc) == pytest.approx(-k * omega_t, rel=1e-9)
+    lead = loop(rc)
+    added = np.degrees(np.angle(lead(1j * omega_t) / plain(1j * omega_t)))
+    assert added == pytest.approx(lead_deg, abs=1e-3)
 
 
 def test_fifty_five_degrees_is_read_where_the_phase_is_minus_125():

@@ -40,10 +40,6 @@ class Margins:
         The worst gain margin over all phase crossovers, dB (None: phase never reaches −180°).
     phase_crossover_hz
         Where that gain margin is read, Hz.
-    crossings_hz, phase_margins_deg
-        Every 0 dB crossing and its phase margin, in frequency order.
-    phase_crossovers_hz, gain_margins_db
-        Every phase crossover and its gain margin, in frequency order.
     """
 
     dc_loop_gain_db: float
@@ -51,10 +47,6 @@ class Margins:
     phase_margin_deg: float | None
     gain_margin_db: float | None
     phase_crossover_hz: float | None
-    crossings_hz: tuple[float, ...] = ()
-    phase_margins_deg: tuple[float, ...] = ()
-    phase_crossovers_hz: tuple[float, ...] = ()
-    gain_margins_db: tuple[float, ...] = ()
 
     def as_dict(self) -> dict:
         """The five reported figures, keyed as in results.json."""
@@ -203,10 +195,6 @@ def loop_margins(response: FrequencyResponse) -> Margins:
         phase_margin_deg=pm,
         gain_margin_db=gm,
         phase_crossover_hz=crossover_hz,
-        crossings_hz=tuple(c[0] for c in gains),
-        phase_margins_deg=tuple(c[1] for c in gains),
-        phase_crossovers_hz=tuple(c[0] for c in phases),
-        gain_margins_db=tuple(c[1] for c in phases),
     )
 
 

@@ -44,9 +44,6 @@ class Amplifier:
         The job's subckt in it.
     sites
         Role (``"cc"``, ``"rc"``) -> where the netlist keeps that value.
-    control_blocks
-        ``(file, line)`` of each line that makes ngspice run commands (a ``.control``
-        block, a ``*#`` line...) in the files a testbench reads (empty unless allowed).
     reads
         Every file a testbench reads, transitively (:func:`amploop.spice.deckfiles.files_read`).
     device
@@ -59,7 +56,6 @@ class Amplifier:
     netlist: Netlist
     subckt: Subckt
     sites: dict[str, KnobSite]
-    control_blocks: tuple[tuple[Path, int], ...] = ()
     reads: tuple[Path, ...] = ()
     device: Device | None = None
     warnings: tuple[str, ...] = ()
@@ -237,7 +233,6 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
     sections = tuple(dict.fromkeys(c.lib for c in job.corners if c.lib is not None))
     reads = files_read(netlist, includes=job.amplifier.includes, models=job.amplifier.models,
                        sections=sections, inlined=inlined)
-    control = tuple((path, line) for path, line, _ in reads.commands)
     if reads.commands and not allow_control:
         path, line, what = reads.commands[0]
         raise NetlistError(
@@ -260,7 +255,7 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         if warning:
             warnings.append(warning)
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
-                     control_blocks=control, reads=reads.files, device=device,
+                     reads=reads.files, device=device,
                      warnings=tuple(warnings))
 
 

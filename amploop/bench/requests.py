@@ -98,12 +98,9 @@ class AnalysisOutput:
         Wall time of the analysis inside ngspice.
     after
         What the request's ``after`` returned in the worker (None: no such work, or it
-        failed, which ``after_error`` then says; the caller does the work itself).
+        failed; the caller then does the work itself).
     messages
         Every line ngspice printed while loading the deck and running its steps.
-    after_error
-        Why the request's ``after`` failed in the worker (exception type and message);
-        None when it did not fail.
     """
 
     reads: tuple[dict[str, np.ndarray], ...]
@@ -112,4 +109,3 @@ class AnalysisOutput:
     seconds: float = 0.0
     messages: tuple[str, ...] = field(default=(), repr=False)
     after: object = field(default=None, repr=False)
-    after_error: str | None = field(default=None, repr=False)

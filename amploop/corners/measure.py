@@ -93,8 +93,8 @@ class CornerWork:
     Done in the worker that ran the analysis, so that with as many workers as cores the
     coordinator only records results and never becomes the bottleneck. Paths are
     relative to ``folder`` (absolute). Returns ``(margins, status, reason)``; a write that fails
-    raises :class:`~amploop.errors.OutputError` there, which comes back as the output's
-    ``after_error``, and the coordinator then does the work itself and reports it.
+    raises :class:`~amploop.errors.OutputError` there, the output comes back without its
+    ``after``, and the coordinator then does the work itself and reports it.
 
     Attributes
     ----------
@@ -246,7 +246,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             results[name] = result
             if folder is not None and getattr(output, "after", None) is None:
                 # not done in a worker: taken from the journal, a remote or failed
-                # analysis, or a worker whose write failed (its after_error)
+                # analysis, or a worker whose write failed
                 works[name].write_files(result.loop_gain)
             if progress is not None:
                 progress(len(results), len(benches), result)

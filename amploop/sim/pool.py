@@ -106,8 +106,8 @@ def _with_after(request: AnalysisRequest, output: AnalysisOutput) -> AnalysisOut
         return output
     try:
         return replace(output, after=request.after(output))
-    except Exception as exc:  # noqa: BLE001 - the analysis stands; the caller redoes it
-        return replace(output, after_error=f"{type(exc).__name__}: {exc}")
+    except Exception:  # noqa: BLE001 - the analysis stands; the caller redoes it
+        return output
 
 
 @dataclass

@@ -35,10 +35,8 @@ class Runner:
         Content hashes of the files the decks read (part of every key).
     ac_run, ac_reused
         AC analyses simulated, and AC analyses taken from the journal.
-    analyses_run
-        Requests simulated successfully (a request may hold several analyses).
     simulator_seconds
-        Wall time, seconds, the workers spent inside ngspice on those requests.
+        Wall time, seconds, the workers spent inside ngspice on the requests simulated.
     transient_run, transient_reused
         Transient analyses simulated, and transient analyses taken from the journal.
     """
@@ -48,7 +46,6 @@ class Runner:
     digests: dict[str, str] = field(default_factory=dict)
     ac_run: int = 0
     ac_reused: int = 0
-    analyses_run: int = 0
     simulator_seconds: float = 0.0  # wall time the workers spent inside ngspice
     transient_run: int = 0
     transient_reused: int = 0
@@ -93,7 +90,6 @@ class Runner:
         for key, output in self.pool.run(misses):
             request = requests[key]
             if isinstance(output, AnalysisOutput):
-                self.analyses_run += 1
                 self.simulator_seconds += output.seconds
                 self.ac_run += request.ac_runs
                 self.transient_run += _transients(request)

@@ -127,10 +127,6 @@ class Netlist:
             )
         return found
 
-    def dependencies(self) -> list[Path]:
-        """Every file the netlist reads, the root first."""
-        return list(self.files)
-
 
 def read_netlist(path: str | Path) -> Netlist:
     """Read the netlist file and follow its ``.include`` and ``.lib file section`` lines.

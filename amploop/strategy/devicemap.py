@@ -17,7 +17,7 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.triode import in_triode, resistance_at_size, square_law_resistance
 from amploop.errors import TuningError
 from amploop.spec.model import Target
-from amploop.spice.units import describe_values, engineering
+from amploop.spice.units import engineering
 from amploop.strategy.common import (
     Evaluator,
     Outcome,
@@ -265,9 +265,3 @@ def _device_report(evaluator: Evaluator, verified: PointResult, maps, target: Ta
         }
     return {"name": device.name, "size": device.size, "value": values["rc"],
             "model": device.model, "corners": corners}
-
-
-def describe_device_values(values: dict[str, float], device) -> str:
-    """``"Cc = 292.8 fF, Mz w = 2.1 µm"``."""
-    text = describe_values({"cc": values["cc"]})
-    return f"{text}, {device.name} {device.size} = {engineering(values['rc'], 'm', 4)}"
