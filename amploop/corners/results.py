@@ -62,6 +62,13 @@ class CornerResult:
         """Why the corner is not ``"ok"`` (its error or its suspect reason); None when it is."""
         return self.error or self.suspect_reason
 
+    def to_frd(self):
+        """The loop gain as a python-control FRD (angular frequency, rad/s); None when the
+        corner has none (:func:`~amploop.corners.frames.corner_frd`)."""
+        from amploop.corners.frames import corner_frd
+
+        return corner_frd(self)
+
     def as_json(self) -> dict:
         """The corner's entry in results.json: the corner, status, error, figures, warnings."""
         figures = dict.fromkeys(
@@ -135,6 +142,20 @@ class MeasureResult:
         if any(c.status == "error" for c in self.corners):
             return "failed"
         return "suspect" if any(c.status == "suspect" for c in self.corners) else "ok"
+
+    def to_dataframe(self):
+        """One row per corner as a pandas DataFrame (name, temperature_c, dc_loop_gain_db,
+        unity_gain_hz, phase_margin_deg, gain_margin_db, status); needs pandas."""
+        from amploop.corners.frames import corners_dataframe
+
+        return corners_dataframe(self.corners)
+
+    def to_frd(self) -> dict:
+        """Corner name -> its loop gain as a python-control FRD (rad/s), for each corner
+        with a loop gain; needs python-control."""
+        from amploop.corners.frames import corners_frd
+
+        return corners_frd(self.corners)
 
     def as_json(self) -> dict:
         """The content of results.json for this measurement."""
