@@ -229,8 +229,8 @@ def _run_tune(args) -> ExitCode:
                 print(f"{device['name']} at {device['size']} = "
                       f"{engineering(device['value'], 'm', 4)}: resistance per corner "
                       "(simulator / square law / wanted by that corner alone)")
-                for name, info in device["corners"].items():
-                    print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
+                for info in device["corners"]:
+                    print(f"  {info['name']:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
                           f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
                           f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
 

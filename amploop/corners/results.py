@@ -12,8 +12,9 @@ from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.spec.model import Corner, Job, OperatingPointLimits
 
-#: The version of results.json's layout.
-SCHEMA = 1
+#: The version of results.json's layout (2: each per-corner fact once, in a list of corner
+#: records with a ``name``, ``device.corners`` too).
+SCHEMA = 2
 
 __all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_loop_gain"]
 

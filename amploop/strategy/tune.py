@@ -27,6 +27,7 @@ from amploop.spec.model import Job
 from amploop.strategy import STRATEGIES, Evaluator, Outcome
 from amploop.strategy.common import Evaluator as _Evaluator
 from amploop.strategy.common import HistoryEntry, bounds_of
+from amploop.strategy.devicemap import device_json
 from amploop.strategy.finalfiles import compensated_netlist, remove_compensated, write_final_files
 from amploop.strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
 from amploop.strategy.samples import initial_samples
@@ -147,7 +148,7 @@ class TuneResult:
             "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
-            "device": self.outcome.extra.get("device"),
+            "device": device_json(self.outcome.extra.get("device")),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
