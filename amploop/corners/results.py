@@ -65,8 +65,8 @@ class CornerResult:
 
     def to_frd(self):
         """The loop gain as a python-control FRD (angular frequency, rad/s); None when the
-        corner has none (:func:`~amploop.corners.frames.corner_frd`)."""
-        from amploop.corners.frames import corner_frd
+        corner has none (:func:`~amploop.corners.dataframes.corner_frd`)."""
+        from amploop.corners.dataframes import corner_frd
 
         return corner_frd(self)
 
@@ -147,14 +147,14 @@ class MeasureResult:
     def to_dataframe(self):
         """One row per corner as a pandas DataFrame (name, temperature_c, dc_loop_gain_db,
         unity_gain_hz, phase_margin_deg, gain_margin_db, status); needs pandas."""
-        from amploop.corners.frames import corners_dataframe
+        from amploop.corners.dataframes import corners_dataframe
 
         return corners_dataframe(self.corners)
 
     def to_frd(self) -> dict:
         """Corner name -> its loop gain as a python-control FRD (rad/s), for each corner
         with a loop gain; needs python-control."""
-        from amploop.corners.frames import corners_frd
+        from amploop.corners.dataframes import corners_frd
 
         return corners_frd(self.corners)
 

@@ -103,14 +103,14 @@ class TuneResult:
     def to_dataframe(self):
         """One row per corner at the final values, as :meth:`MeasureResult.to_dataframe
         <amploop.corners.results.MeasureResult.to_dataframe>`; needs pandas."""
-        from amploop.corners.frames import corners_dataframe
+        from amploop.corners.dataframes import corners_dataframe
 
         return corners_dataframe(self.corners)
 
     def to_frd(self) -> dict:
         """Corner name -> its loop gain at the final values as a python-control FRD
         (rad/s); needs python-control."""
-        from amploop.corners.frames import corners_frd
+        from amploop.corners.dataframes import corners_frd
 
         return corners_frd(self.corners)
 
