@@ -13,4 +13,6 @@ _.allowed = (
     _._loc,  # amploop/report/summary.py: matplotlib's table cell reads it to align its text
     _.started_workers,  # amploop/sim/pool.py: the fault tests count the workers a pool started
     _.dc_path,  # amploop/spec/model.py: read by name, feedback("dc_path"), in the testbench
+    _.to_dataframe,  # corners/results.py, strategy/tune.py: public API for notebook users
+    _.to_frd,  # corners/results.py, strategy/tune.py: public API (python-control FRD objects)
 )

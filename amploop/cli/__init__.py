@@ -69,8 +69,6 @@ def _parser() -> argparse.ArgumentParser:
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("job", help="the job file (TOML)")
     common.add_argument("--out", required=True, metavar="DIR", help="out folder")
-    common.add_argument("--set", action="append", default=[], metavar="ROLE=VALUE",
-                        help="set a compensation value by its role, e.g. --set cc=1.5p")
     common.add_argument("--workers", type=int, default=None, metavar="N",
                         help="worker processes (default: the CPU count)")
     common.add_argument("--cluster", default=None, metavar="ADDRESS",
@@ -90,8 +88,11 @@ def _parser() -> argparse.ArgumentParser:
     pages.add_argument("--corner-page", action="append", default=[], metavar="CORNER",
                        help="also give this corner a report page (repeatable)")
 
-    commands.add_parser("measure", parents=[common, pages], help="measure loop gain and margins",
-                        description="Measure the loop gain and its margins at every corner.")
+    measure = commands.add_parser(
+        "measure", parents=[common, pages], help="measure loop gain and margins",
+        description="Measure the loop gain and its margins at every corner.")
+    measure.add_argument("--set", action="append", default=[], metavar="ROLE=VALUE",
+                         help="set a compensation value by its role, e.g. --set cc=1.5p")
     tune = commands.add_parser(
         "tune", parents=[common, pages], help="choose Cc and Rc for the target margin",
         description="Choose Cc and Rc so that the worst corner meets the target phase margin "
@@ -153,11 +154,7 @@ def _run_measure(args) -> ExitCode:
         failed = [c for c in result.corners if c.status == "error"]
         suspect = [c for c in result.corners if c.status == "suspect"]
         if args.json:
-            summary = result.as_json()
-            print(json.dumps({k: summary[k] for k in ("job", "status", "values", "ac_analyses")}
-                             | {"failed_corners": [c.corner.name for c in failed],
-                                "suspect_corners": [c.corner.name for c in suspect],
-                                "out": str(result.out)}))
+            print(json.dumps(_measure_summary(result, failed, suspect)))
         elif not args.quiet:
             values = values_line(job, result.values)
             print(f"job {job.name}: {len(result.corners)} corners at {values}")
@@ -186,16 +183,33 @@ def _run_measure(args) -> ExitCode:
     return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
 
 
+def _measure_summary(result, failed: list, suspect: list) -> dict:
+    """The one line ``measure --json`` prints: the run, each corner's margins (as in
+    results.json), and the worst figures with the limiting corner (null unless every
+    corner is ok)."""
+    from amploop.strategy.common import worst_case
+
+    summary = result.as_json()
+    worst = worst_case(result.corners)
+    figures = ("name", "status", "dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg",
+               "gain_margin_db", "phase_crossover_hz")
+    return {k: summary[k] for k in ("job", "status", "values", "ac_analyses")} | {
+        "corners": [{k: c[k] for k in figures} for c in summary["corners"]],
+        "limiting_corner": worst and worst.limiting_corner,
+        "worst": worst and {"phase_margin_deg": worst.phase_margin_deg,
+                            "unity_gain_hz": worst.unity_gain_hz,
+                            "gain_margin_db": worst.gain_margin_db,
+                            "bandwidth_corner": worst.bandwidth_corner},
+        "failed_corners": [c.corner.name for c in failed],
+        "suspect_corners": [c.corner.name for c in suspect],
+        "out": str(result.out)}
+
+
 def _run_tune(args) -> ExitCode:
     from amploop.spec.job import load_job
-    from amploop.spec.overrides import parse_overrides
     from amploop.strategy.tune import tune
 
     job = load_job(args.job)
-    if args.set:
-        raise JobError("tune chooses the compensation itself; --set is for measure",
-                       place="--set")
-    parse_overrides(args.set, job)
 
     def finish(result) -> None:
         """Print the results and draw the report while the out folder is still held."""
@@ -229,8 +243,8 @@ def _run_tune(args) -> ExitCode:
                 print(f"{device['name']} at {device['size']} = "
                       f"{engineering(device['value'], 'm', 4)}: resistance per corner "
                       "(simulator / square law / wanted by that corner alone)")
-                for name, info in device["corners"].items():
-                    print(f"  {name:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
+                for info in device["corners"]:
+                    print(f"  {info['name']:<20} {engineering(info['resistance_ohm'], 'Ω', 4):>10}  "
                           f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
                           f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
 

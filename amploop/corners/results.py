@@ -12,8 +12,9 @@ from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.spec.model import Corner, Job, OperatingPointLimits
 
-#: The version of results.json's layout.
-SCHEMA = 1
+#: The version of results.json's layout (2: each per-corner fact once, in a list of corner
+#: records with a ``name``, ``device.corners`` too).
+SCHEMA = 2
 
 __all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_loop_gain"]
 
@@ -61,6 +62,13 @@ class CornerResult:
     def problem(self) -> str | None:
         """Why the corner is not ``"ok"`` (its error or its suspect reason); None when it is."""
         return self.error or self.suspect_reason
+
+    def to_frd(self):
+        """The loop gain as a python-control FRD (angular frequency, rad/s); None when the
+        corner has none (:func:`~amploop.corners.dataframes.corner_frd`)."""
+        from amploop.corners.dataframes import corner_frd
+
+        return corner_frd(self)
 
     def as_json(self) -> dict:
         """The corner's entry in results.json: the corner, status, error, figures, warnings."""
@@ -135,6 +143,20 @@ class MeasureResult:
         if any(c.status == "error" for c in self.corners):
             return "failed"
         return "suspect" if any(c.status == "suspect" for c in self.corners) else "ok"
+
+    def to_dataframe(self):
+        """One row per corner as a pandas DataFrame (name, temperature_c, dc_loop_gain_db,
+        unity_gain_hz, phase_margin_deg, gain_margin_db, status); needs pandas."""
+        from amploop.corners.dataframes import corners_dataframe
+
+        return corners_dataframe(self.corners)
+
+    def to_frd(self) -> dict:
+        """Corner name -> its loop gain as a python-control FRD (rad/s), for each corner
+        with a loop gain; needs python-control."""
+        from amploop.corners.dataframes import corners_frd
+
+        return corners_frd(self.corners)
 
     def as_json(self) -> dict:
         """The content of results.json for this measurement."""

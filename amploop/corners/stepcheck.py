@@ -60,7 +60,8 @@ class StepCheck:
     warning: str | None = None
 
     def as_json(self) -> dict:
-        """The corner's ``step`` entry in results.json."""
+        """The corner's ``step`` entry in results.json (its overshoot and settling time are
+        keys of the corner itself, :func:`with_step`)."""
         m = self.metrics
         return {
             "analysis": self.key,
@@ -68,8 +69,6 @@ class StepCheck:
             "step_at_s": self.step_at_s,
             "stop_s": self.stop_s,
             "band": None if m is None else m.band,
-            "overshoot_pct": None if m is None else m.overshoot_pct,
-            "settling_time_s": None if m is None else m.settling_s,
             "error": self.error,
             "device_resistance_share": self.resistance_share,
         }

@@ -98,8 +98,8 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
             notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
         notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
         device = data.results.get("device")
-        if device and name in device.get("corners", {}):
-            info = device["corners"][name]
+        info = data.device_corner(name)
+        if info is not None:
             notes.append(f"{device['name']}: {engineering(info['resistance_ohm'], 'Ω', 4)} "
                          f"(square law {engineering(info['square_law_ohm'], 'Ω', 3)})")
             notes.append(f"  this corner alone would want {engineering(info['wanted_rc_ohm'], 'Ω', 4)}")

@@ -20,6 +20,7 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK
 from amploop.bench.probe import make_probe
+from amploop.corners.results import SCHEMA
 from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JournalError, OutputError
 from amploop.sim.journal import Journal
@@ -153,6 +154,12 @@ class ReportData:
             self._by_name = {c["name"]: c for c in self.results["corners"]}
         return self._by_name[name]
 
+    def device_corner(self, name: str) -> dict | None:
+        """The record of corner ``name`` in results.json's ``device.corners`` (the device
+        standing in for Rc); None without a device or a record."""
+        device = self.results.get("device") or {}
+        return next((c for c in device.get("corners", []) if c["name"] == name), None)
+
     def close(self) -> None:
         """Close the journal (the figures not yet read can no longer be)."""
         if self.journal is not None:
@@ -194,7 +201,7 @@ def load_report_data(out: str | Path) -> ReportData:
     Raises
     ------
     OutputError
-        When results.json is missing or unreadable.
+        When results.json is missing or unreadable, or of another schema.
     JournalError
         When the journal is missing, or (as a page asks for it) lacks an analysis
         results.json names.
@@ -206,6 +213,12 @@ def load_report_data(out: str | Path) -> ReportData:
         raise OutputError("no results.json: not an amploop out folder", file=out) from None
     except (OSError, ValueError) as exc:
         raise OutputError(f"cannot read results.json: {exc}", file=out) from None
+    if not isinstance(results, dict) or results.get("schema") != SCHEMA:
+        schema = results.get("schema") if isinstance(results, dict) else None
+        raise OutputError(f"results.json has schema {schema}; this amploop reads schema {SCHEMA}",
+                          file=out / "results.json",
+                          hint="run the same measure or tune again into this folder: the "
+                          "journal makes it quick") from None
     probe = make_probe(results.get("probe", "double-injection"))
     device = results.get("device")
     device_key = (device["name"], device["size"]) if device else None
@@ -243,7 +256,7 @@ def load_report_data(out: str | Path) -> ReportData:
         if len(samples) < 3 or not all(h["analyses"].get(name) for h in samples):
             return None
         if device is not None:  # the samples' resistance as this corner saw it
-            r = device.get("sample_resistance_ohm", {}).get(name)
+            r = (data.device_corner(name) or {}).get("sample_resistance_ohm")
             return None if r is None else [(h["values"]["cc"], r) for h in samples]
         return [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
 

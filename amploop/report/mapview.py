@@ -62,7 +62,7 @@ def map_page(data: ReportData):
     rc_lo, rc_hi = knobs.get("rc", [0.0, max(max(s[1] for s in cmap.samples) * 3, 1.0)])
     chosen_rc = r.get("values", {}).get("rc", 0.0)
     if device is not None:  # the device's resistance as this corner sees it
-        chosen_rc = device["corners"][name]["resistance_ohm"]
+        chosen_rc = data.device_corner(name)["resistance_ohm"]
         rc_lo, rc_hi = 0.0, 3 * max(chosen_rc, max(s[1] for s in cmap.samples))
         fig.texts[1].set_text(f"{device['name']} stands in for Rc: the vertical axis is its "
                               "channel resistance as this corner sees it; shaded: this corner "

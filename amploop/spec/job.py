@@ -1,12 +1,14 @@
 """The job file: what to simulate, how, and at which corners.
 
-A job is a TOML file (see the README for the reference). :func:`load_job` reads it,
-checks every key and value, resolves paths relative to the job file and expands the
-corner list, so that nothing is left to fail once simulations have started.
+A job is a TOML file (see the README for the reference), or the same tables as a dict.
+:func:`load_job` reads it, checks every key and value, resolves paths relative to the job
+file (or a dict's base folder) and expands the corner list, so that nothing is left to
+fail once simulations have started.
 """
 
 from __future__ import annotations
 
+import copy
 import re
 import tomllib
 from pathlib import Path
@@ -45,13 +47,22 @@ _AMPLIFIER_KEYS = {
 }
 
 
-def load_job(path: str | Path) -> Job:
-    """Read and check a job file.
+#: The file name a job built from a dict goes by in messages (inside its base folder).
+DICT_NAME = "<dict>"
+
+
+def load_job(path: str | Path | dict, base: str | Path = ".") -> Job:
+    """Read and check a job file, or a job given as a dict.
 
     Parameters
     ----------
     path
-        The TOML job file. Every path inside it is relative to its folder.
+        The TOML job file (every path inside it is relative to its folder), or a dict of
+        the same tables as :func:`tomllib.load` gives (a notebook's job).
+    base
+        For a dict only: the folder its file names are relative to (default: the current
+        folder). The job's ``path`` is then ``base/<dict>``, the name messages give, and
+        its name, when the dict gives none, is ``"job"``.
 
     Returns
     -------
@@ -64,6 +75,8 @@ def load_job(path: str | Path) -> Job:
         an unparseable or negative value, a missing file it names, a ``.lib`` section that
         the models file does not define, or a corner that leaves a used parameter unset.
     """
+    if isinstance(path, dict):
+        return _build_job(Path(base).resolve() / DICT_NAME, copy.deepcopy(path))
     path = Path(path).resolve()
     try:
         text = path.read_text(encoding="utf-8")
@@ -97,7 +110,8 @@ def load_job(path: str | Path) -> Job:
 def _build_job(path: Path, data: dict) -> Job:
     r = Reader(path)
     r.known(data, _TOP_KEYS, "")
-    name = r.string(data, "name", "name", required=False, default=path.stem)
+    stem = "job" if path.name == DICT_NAME else path.stem
+    name = r.string(data, "name", "name", required=False, default=stem)
 
     amp_data = r.table(data, "amplifier", "[amplifier]")
     r.known(amp_data, _AMPLIFIER_KEYS, "[amplifier]")

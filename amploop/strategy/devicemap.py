@@ -29,7 +29,7 @@ from amploop.strategy.common import (
 from amploop.strategy.mapsolve import round_on_maps, solve_on_maps
 from amploop.strategy.samples import initial_samples, samples_around
 
-__all__ = ["device_operating_points", "model_card", "tune_device_by_map"]
+__all__ = ["device_json", "device_operating_points", "model_card", "tune_device_by_map"]
 
 
 def model_card(evaluator: Evaluator, corner, model: str) -> dict[str, float]:
@@ -265,3 +265,18 @@ def _device_report(evaluator: Evaluator, verified: PointResult, maps, target: Ta
         }
     return {"name": device.name, "size": device.size, "value": values["rc"],
             "model": device.model, "corners": corners}
+
+
+def device_json(report: dict | None) -> dict | None:
+    """The device ``report`` (``extra["device"]`` of :func:`tune_device_by_map`) as
+    results.json holds it: ``corners`` a list of records with the corner's ``name``, each
+    with its ``sample_resistance_ohm`` (the resistance of the last characterisation
+    samples); None for None."""
+    if report is None:
+        return None
+    data = {k: v for k, v in report.items() if k not in ("corners", "sample_resistance_ohm")}
+    samples = report.get("sample_resistance_ohm", {})
+    data["corners"] = [{"name": name, **info, "sample_resistance_ohm": samples.get(name)}
+                       for name, info in report["corners"].items()]
+    return data
+

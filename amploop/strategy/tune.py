@@ -3,21 +3,20 @@
 Callable from Python as :func:`tune`. Every analysis goes through the out folder's
 journal, so a rerun (or ``--resume``) of the same job repeats none that finished; the
 strategies are deterministic, so the rerun retraces the same steps and lands on the same
-values.
+values. Without an out folder the journal is a temporary one and nothing is written.
 """
 
 from __future__ import annotations
 
-import difflib
+import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
-from amploop.corners.measure import JOURNAL_FILE, CornerWork, corner_files
+from amploop.corners.measure import JOURNAL_FILE
 from amploop.corners.outputs import OutFolder, remove_stale
-from amploop.corners.portable_decks import copy_includes
 from amploop.corners.results import SCHEMA, CornerResult
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
 from amploop.errors import JobError, JournalError
@@ -28,6 +27,8 @@ from amploop.spec.model import Job
 from amploop.strategy import STRATEGIES, Evaluator, Outcome
 from amploop.strategy.common import Evaluator as _Evaluator
 from amploop.strategy.common import HistoryEntry, bounds_of
+from amploop.strategy.devicemap import device_json
+from amploop.strategy.finalfiles import compensated_netlist, remove_compensated, write_final_files
 from amploop.strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
 from amploop.strategy.samples import initial_samples
 
@@ -51,12 +52,13 @@ class TuneResult:
     ac_run, ac_reused
         AC analyses simulated, and AC analyses taken from the journal.
     out
-        The out folder.
+        The out folder; None when nothing was written.
     seconds
         Wall time of the run, seconds.
     compensated
-        The compensated netlist: ``{"path", "files", "diff"}``; None unless the run
-        converged (a run that misses its target writes none).
+        The compensated netlist: ``{"path", "files", "diff"}`` (without an out folder
+        ``path`` is None and ``files`` empty); None unless the run converged (a run that
+        misses its target writes none).
     loop_gains
         (history step, corner name) -> the loop gain simulated there.
     simulator_seconds
@@ -98,6 +100,20 @@ class TuneResult:
     def corners(self) -> tuple[CornerResult, ...]:
         return self.outcome.final.corners if self.outcome.final else ()
 
+    def to_dataframe(self):
+        """One row per corner at the final values, as :meth:`MeasureResult.to_dataframe
+        <amploop.corners.results.MeasureResult.to_dataframe>`; needs pandas."""
+        from amploop.corners.dataframes import corners_dataframe
+
+        return corners_dataframe(self.corners)
+
+    def to_frd(self) -> dict:
+        """Corner name -> its loop gain at the final values as a python-control FRD
+        (rad/s); needs python-control."""
+        from amploop.corners.dataframes import corners_frd
+
+        return corners_frd(self.corners)
+
     def as_json(self) -> dict:
         """The content of results.json for this tuning run."""
         target = self.job.target
@@ -132,7 +148,7 @@ class TuneResult:
             "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
-            "device": self.outcome.extra.get("device"),
+            "device": device_json(self.outcome.extra.get("device")),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
@@ -153,30 +169,11 @@ def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
     return samples
 
 
-def compensated_netlist(amplifier: Amplifier, values: dict[str, float], folder: OutFolder
-                        ) -> dict:
-    """Write copies of the changed netlist files with ``values`` in; return path(s) and diff."""
-    changed = amplifier.compensated_files(values)
-    written = []
-    diffs = []
-    for path, text in changed.items():
-        target = folder.write_text(f"compensated/{path.name}", text)
-        written.append(str(target))
-        original = path.read_text(encoding="utf-8", errors="replace").splitlines(keepends=True)
-        diffs.extend(difflib.unified_diff(original, text.splitlines(keepends=True),
-                                          fromfile=str(path), tofile=str(target)))
-    root_copy = folder.path / "compensated" / amplifier.netlist.root.name
-    return {
-        "path": str(root_copy) if str(root_copy) in written else (written[0] if written else None),
-        "files": written,
-        "diff": "".join(diffs),
-    }
-
 
 def tune(
     job: Job,
     *,
-    out: str | Path,
+    out: str | Path | None = None,
     strategy: str = "map",
     workers: int | None = None,
     pool: WorkerPool | None = None,
@@ -193,7 +190,8 @@ def tune(
     job
         A loaded job with a ``[target]`` table and bounds on its compensation.
     out
-        The out folder (results.json, journal, compensated netlist, decks).
+        The out folder (results.json, journal, compensated netlist, decks); None writes
+        nothing (the journal is a temporary one, removed at the end).
     strategy
         ``"map"`` (default) or ``"textbook"``.
     workers, pool
@@ -235,65 +233,83 @@ def tune(
         raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
     started = time.perf_counter()
     amplifier = prepare_amplifier(job, allow_control=allow_control)
+    if out is None:
+        if resume:
+            raise JournalError("nothing to resume without an out folder",
+                               hint="give the out folder of the run to resume")
+        with tempfile.TemporaryDirectory(prefix="amploop-tune-") as scratch, \
+                Journal(Path(scratch) / JOURNAL_FILE) as journal:
+            return _tune_into(job, amplifier, None, journal, strategy, workers, pool,
+                              progress, time_domain, finish, started)
     folder = OutFolder(out)
     journal_path = folder.path / JOURNAL_FILE
     if resume and not journal_path.exists():
         raise JournalError("nothing to resume: this out folder has no journal", file=folder.path,
                            hint="run without --resume to start")
     with folder.lock(), Journal(journal_path) as journal:
-        own_pool = pool is None
-        pool = pool or WorkerPool(workers)
-        runner = Runner(pool, journal, file_digests(amplifier.files))
-        evaluator = Evaluator(amplifier, job.corners, runner, job.analysis.time_limit_s)
-        evaluator.progress = progress
-        try:
-            outcome = _refuse_suspect(STRATEGIES[strategy](evaluator, job.target))
-            outcome, remarks = _with_remarks(evaluator, outcome)
-            if outcome.final is not None and time_domain and not any(
-                    h.kind == "characterise" for h in evaluator.history):
-                # the report's map page needs three samples per corner; journalled like the
-                # rest, kept apart in the history
-                evaluator.simulate(_report_samples(evaluator), kind="report-map",
-                                   note="samples for the report's compensation map")
-            checks = {}
-            if outcome.final is not None and time_domain:
-                ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
-                stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
-                                                 outcome.final.corners if c.status == "ok"])
-                device = outcome.extra.get("device")
-                vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
-                checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
-                                         job.analysis.time_limit_s, device_vt=vt)
-        except KeyboardInterrupt:
+        return _tune_into(job, amplifier, folder, journal, strategy, workers, pool, progress,
+                          time_domain, finish, started)
+
+
+def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal: Journal,
+               strategy, workers, pool, progress, time_domain, finish, started) -> TuneResult:
+    """The body of :func:`tune`, with the out folder held (None: nothing written)."""
+    own_pool = pool is None
+    pool = pool or WorkerPool(workers)
+    runner = Runner(pool, journal, file_digests(amplifier.files))
+    evaluator = Evaluator(amplifier, job.corners, runner, job.analysis.time_limit_s)
+    evaluator.progress = progress
+    try:
+        outcome = _refuse_suspect(STRATEGIES[strategy](evaluator, job.target))
+        outcome, remarks = _with_remarks(evaluator, outcome)
+        if outcome.final is not None and time_domain and not any(
+                h.kind == "characterise" for h in evaluator.history):
+            # the report's map page needs three samples per corner; journalled like the
+            # rest, kept apart in the history
+            evaluator.simulate(_report_samples(evaluator), kind="report-map",
+                               note="samples for the report's compensation map")
+        checks = {}
+        if outcome.final is not None and time_domain:
+            ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
+            stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
+                                             outcome.final.corners if c.status == "ok"])
+            device = outcome.extra.get("device")
+            vt = {n: c["vt"] for n, c in device["corners"].items()} if device else None
+            checks = run_step_checks(amplifier, ok, outcome.values, runner, stop_s,
+                                     job.analysis.time_limit_s, device_vt=vt)
+    except KeyboardInterrupt:
+        if folder is not None:
             _write_interrupted(folder, amplifier, strategy, evaluator, runner, started)
-            raise
-        finally:
-            if own_pool:
-                pool.close()
-        compensated = None
-        if outcome.status == "converged":
-            compensated = compensated_netlist(amplifier, outcome.values, folder)
-        else:
-            _remove_compensated(folder, amplifier)
+        raise
+    finally:
+        if own_pool:
+            pool.close()
+    compensated = None
+    if outcome.status == "converged":
+        compensated = compensated_netlist(amplifier, outcome.values, folder)
+    elif folder is not None:
+        remove_compensated(folder, amplifier)
+    if folder is not None:
         corner_files_written = []
         if outcome.final is not None:
-            corner_files_written = _write_final_files(folder, amplifier, outcome)
+            corner_files_written = write_final_files(folder, amplifier, outcome)
         remove_stale(folder.path, corner_files_written)
-        result = TuneResult(job=job, strategy=strategy, outcome=outcome,
-                            history=tuple(evaluator.history), ac_run=runner.ac_run,
-                            ac_reused=runner.ac_reused, out=folder.path,
-                            seconds=time.perf_counter() - started, compensated=compensated,
-                            loop_gains=dict(evaluator.loop_gains),
-                            simulator_seconds=runner.simulator_seconds, step_checks=checks,
-                            transient_run=runner.transient_run,
-                            transient_reused=runner.transient_reused,
-                            values_in_netlist=amplifier.values_in_effect({}),
-                            warnings=amplifier.warnings + remarks + _step_warnings(checks)
-                            + journal.notes())
+    result = TuneResult(job=job, strategy=strategy, outcome=outcome,
+                        history=tuple(evaluator.history), ac_run=runner.ac_run,
+                        ac_reused=runner.ac_reused, out=folder.path if folder else None,
+                        seconds=time.perf_counter() - started, compensated=compensated,
+                        loop_gains=dict(evaluator.loop_gains),
+                        simulator_seconds=runner.simulator_seconds, step_checks=checks,
+                        transient_run=runner.transient_run,
+                        transient_reused=runner.transient_reused,
+                        values_in_netlist=amplifier.values_in_effect({}),
+                        warnings=amplifier.warnings + remarks + _step_warnings(checks)
+                        + journal.notes())
+    if folder is not None:
         folder.write_json("results.json", result.as_json())
-        journal.commit()
-        if finish is not None:
-            finish(result)
+    journal.commit()
+    if finish is not None:
+        finish(result)
     return result
 
 
@@ -312,14 +328,6 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
     lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
     return outcome, (lead,) if lead else ()
 
-
-def _remove_compensated(folder: OutFolder, amplifier: Amplifier) -> None:
-    """Remove compensated copies an earlier run wrote into this out folder: a run that did
-    not meet its target writes none, and an old copy would read as this run's answer."""
-    for path in amplifier.netlist.files:
-        stale = folder.path / "compensated" / path.name
-        if stale.is_file():
-            stale.unlink()
 
 
 def _refuse_suspect(outcome: Outcome) -> Outcome:
@@ -341,7 +349,7 @@ def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
     so far in the history, the analyses counted, and the command that resumes it (and no
     compensated netlist of an earlier run left to read as this one's)."""
     job = amplifier.job
-    _remove_compensated(folder, amplifier)
+    remove_compensated(folder, amplifier)
     command = f"amploop tune {job.path} --out {folder.path}"
     if strategy != "map":
         command += f" --strategy {strategy}"
@@ -359,22 +367,3 @@ def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
                         values_in_netlist=amplifier.values_in_effect({}),
                         warnings=amplifier.warnings)
     folder.write_json("results.json", result.as_json())
-
-
-def _write_final_files(folder: OutFolder, amplifier: Amplifier, outcome: Outcome) -> list[str]:
-    """Per-corner loop-gain CSVs and rerunnable decks at the final values; returns the
-    files written, relative to the folder."""
-    from amploop.bench.testbench import build_testbench
-
-    stems = corner_files(amplifier.job.corners)
-    written = []
-    includes = None
-    for corner_result in outcome.final.corners:
-        name = corner_result.corner.name
-        bench = build_testbench(amplifier, corner_result.corner, outcome.values)
-        includes = includes or copy_includes(folder.path, bench.deck)
-        work = CornerWork.for_corner(bench, folder.path, stems[name], includes)
-        work.write_files(corner_result.loop_gain)
-        written += work.files(corner_result)
-    return written
-
