@@ -10,7 +10,8 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["SCALE_SUFFIXES", "describe_values", "engineering", "parse_value", "spice_number"]
+__all__ = ["NUMBER", "NUMBER_PATTERN", "SCALE_SUFFIXES", "describe_values", "engineering",
+           "parse_value", "scale_of", "spice_number", "split_number"]
 
 #: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
 SCALE_SUFFIXES: dict[str, float] = {
@@ -29,7 +30,51 @@ SCALE_SUFFIXES: dict[str, float] = {
 # Unit names SPICE users write after the suffix ("2pF", "10kOhm"); SPICE ignores them.
 _UNIT_TAILS = ("", "f", "h", "v", "a", "s", "hz", "ohm", "ohms")
 
-_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)\s*$")
+#: The one rule for a SPICE number's text, unsigned: a mantissa (``2``, ``1.5``, ``.5``)
+#: with an optional exponent (``e-12``), group ``mantissa``; then every letter after it,
+#: group ``letters`` (a scale suffix and/or a unit name: ``p``, ``Meg``, ``kOhm``, ``pF``).
+#: Every reader of SPICE numbers in amploop (job file, ``--set``, netlist expressions, the
+#: milli check of resistors) is built from it.
+NUMBER_PATTERN = r"(?P<mantissa>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(?P<letters>[a-zA-Z]*)"
+
+#: :data:`NUMBER_PATTERN` compiled, for a whole text: an optional sign and spaces around.
+NUMBER = re.compile(rf"^\s*(?P<sign>[+-]?){NUMBER_PATTERN}\s*$")
+
+_SUFFIX_HELP = "SPICE suffixes: f p n u m k meg g t"
+
+
+def split_number(text: str) -> tuple[str, str] | None:
+    """The signed mantissa and the letters after it of the SPICE number ``text``
+    (``"-1.5e3kOhm"`` -> ``("-1.5e3", "kOhm")``); None when ``text`` is no such number.
+
+    Parameters
+    ----------
+    text
+        The number as written, spaces around allowed.
+    """
+    match = NUMBER.match(text)
+    if match is None:
+        return None
+    return match.group("sign") + match.group("mantissa"), match.group("letters")
+
+
+def scale_of(letters: str) -> tuple[float, str]:
+    """The scale factor of the letters after a SPICE number and what follows the suffix
+    (``"kOhm"`` -> ``(1e3, "ohm")``, ``"Meg"`` -> ``(1e6, "")``, ``"V"`` -> ``(1.0, "v")``).
+
+    The longest suffix that starts the letters wins (``meg`` and ``mil`` before ``m``),
+    case-insensitive, as SPICE reads them.
+
+    Parameters
+    ----------
+    letters
+        The letters after the mantissa (group ``letters`` of :data:`NUMBER`).
+    """
+    tail = letters.lower()
+    for suffix, factor in SCALE_SUFFIXES.items():
+        if tail.startswith(suffix):
+            return factor, tail[len(suffix):]
+    return 1.0, tail
 
 
 def parse_value(text: str | float) -> float:
@@ -56,19 +101,13 @@ def parse_value(text: str | float) -> float:
     if isinstance(text, (int, float)):
         value = float(text)
     else:
-        match = _NUMBER.match(str(text))
-        if not match:
-            raise ValueError(f"{text!r} is not a number (SPICE suffixes: f p n u m k meg g t)")
-        mantissa, tail = match.group(1), match.group(2).lower()
-        scale = 1.0
-        for suffix, factor in SCALE_SUFFIXES.items():
-            if tail.startswith(suffix) and tail[len(suffix):] in _UNIT_TAILS:
-                scale, tail = factor, ""
-                break
-        if tail not in _UNIT_TAILS:
-            raise ValueError(
-                f"{text!r}: unknown suffix {match.group(2)!r} (SPICE suffixes: f p n u m k meg g t)"
-            )
+        parts = split_number(str(text))
+        if parts is None:
+            raise ValueError(f"{text!r} is not a number ({_SUFFIX_HELP})")
+        mantissa, letters = parts
+        scale, tail = scale_of(letters)
+        if tail not in _UNIT_TAILS:  # a typo rather than a unit: refused, not ignored as SPICE does
+            raise ValueError(f"{text!r}: unknown suffix {letters!r} ({_SUFFIX_HELP})")
         value = float(mantissa) * scale
     if not math.isfinite(value):
         raise ValueError(f"{text!r} is not a finite number")
