@@ -165,10 +165,10 @@ def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
     return f"{text} {prefix}{unit}".strip()
 
 
-def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: str = ", ",
-                    device: tuple[str, str] | None = None) -> str:
+def describe_values(values: dict[str, float], device: tuple[str, str] | None = None) -> str:
     """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits).
 
+    The one form of them on the terminal, in the report and in results.json's messages.
     ``device`` = (name, size key) when a MOSFET stands in for Rc: ``"Mz w = 2.1 µm"``.
 
     Parameters
@@ -176,20 +176,16 @@ def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: st
     values
         Compensation values by role, SI: ``cc`` in farads, ``rc`` in ohms or the device
         size (metres, or a count for ``m``); other roles are left out.
-    equals
-        What stands between a name and its value.
-    joiner
-        What stands between two values.
     device
         (device name, size key ``"w"``, ``"l"`` or ``"m"``) when a MOSFET stands in for
         Rc; None for a resistor.
     """
     parts = []
     if "cc" in values:
-        parts.append(f"Cc{equals}{engineering(values['cc'], 'F', 4)}")
+        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
     if "rc" in values and device is not None:
         name, size = device
-        parts.append(f"{name} {size}{equals}{engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
+        parts.append(f"{name} {size} = {engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
     elif "rc" in values:
-        parts.append(f"Rc{equals}{engineering(values['rc'], 'Ω', 4)}")
-    return joiner.join(parts)
+        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
+    return ", ".join(parts)

@@ -181,8 +181,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
     report["sample_resistance_ohm"] = rounds[-1]["resistance_ohm"]
     report["start"] = start_note
     extra = {"rounds": rounds, "device": report}
-    label = f"{device.name} {device.size} = {engineering(verified.values['rc'], 'm', 4)}"
-    values_text = f"Cc = {engineering(verified.values['cc'], 'F', 4)}, {label}"
+    values_text = describe_values(verified.values, (device.name, device.size))
     if not solution.feasible:
         return Outcome("infeasible", verified.values, verified,
                        f"no Cc and {device.name} size within the bounds meets "
@@ -265,9 +264,3 @@ def _device_report(evaluator: Evaluator, verified: PointResult, maps, target: Ta
         }
     return {"name": device.name, "size": device.size, "value": values["rc"],
             "model": device.model, "corners": corners}
-
-
-def describe_device_values(values: dict[str, float], device) -> str:
-    """``"Cc = 292.8 fF, Mz w = 2.1 µm"``."""
-    text = describe_values({"cc": values["cc"]})
-    return f"{text}, {device.name} {device.size} = {engineering(values['rc'], 'm', 4)}"
