@@ -11,6 +11,7 @@ from conftest import DEMO
 
 from amploop.cli import main
 from amploop.cli.terminal import TUNE_PROGRESS_KEY
+from amploop.report.pages import values_text
 
 
 class Terminal(io.StringIO):
@@ -28,8 +29,12 @@ def test_the_progress_line_ends_on_the_answer_not_on_the_largest_margin_seen(
     monkeypatch.setattr("sys.stderr", terminal)
     out = tmp_path / "out"
     assert main(["tune", str(DEMO / "job.toml"), "--out", str(out), "--no-report"]) == 0
-    capsys.readouterr()
+    printed = capsys.readouterr().out
     results = json.loads((out / "results.json").read_text())
+    # the chosen values in the same words on the terminal, in results.json and the report
+    shown = values_text(results["values"], results)
+    assert f" at {shown}\n" in printed.splitlines(keepends=True)[0]
+    assert f" at {shown}" in results["message"]
     answer = results["worst"]["phase_margin_deg"]
     largest = max(h["worst_phase_margin_deg"] for h in results["history"])
     assert largest > answer + 1  # the demo's samples have more margin than the answer
@@ -40,5 +45,5 @@ def test_the_progress_line_ends_on_the_answer_not_on_the_largest_margin_seen(
     assert lines[-1].startswith(f"best ≥ {target:g}°: {answer:.2f}° at ")
     assert f"{largest:.2f}" not in lines[-1].split("|")[0]
     for line, entry in zip(lines, results["history"]):
-        assert f"| step {entry['step']} {entry['kind']}: " \
+        assert f"| step {entry['step']} {entry['label']}: " \
             f"{entry['worst_phase_margin_deg']:.2f}° at " in line

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import sys
 
-from amploop.spice.units import engineering
+from amploop.spice.units import describe_values, engineering
 
 
 def page_progress(quiet: bool):
@@ -110,16 +110,10 @@ def progress_printer(quiet: bool):
 
 
 def values_line(job, values: dict) -> str:
-    """``cc = 292.8 fF, rc = 20 kΩ``, or the device's size when one stands in for Rc."""
-    parts = []
-    for role, value in values.items():
-        knob = job.compensation.get(role)
-        if knob is not None and knob.where == "device":
-            unit = "" if knob.size == "m" else "m"
-            parts.append(f"{knob.name} {knob.size} = {engineering(value, unit, 4)}")
-        else:
-            parts.append(f"{role} = {engineering(value, 'F' if role == 'cc' else 'Ω', 4)}")
-    return ", ".join(parts)
+    """``Cc = 292.8 fF, Rc = 20 kΩ``, or the device's size when one stands in for Rc."""
+    knob = job.compensation.get("rc")
+    device = (knob.name, knob.size) if knob is not None and knob.where == "device" else None
+    return describe_values(values, device)
 
 
 def _who(names: list[str], total: int) -> str:
@@ -150,6 +144,7 @@ def tune_progress_line(entry, best: dict, target) -> str:
     ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
     report's samples do not count), then what this point gave."""
     from amploop.strategy.common import meets_target
+    from amploop.strategy.kinds import kind_label
 
     w = entry.worst
     if w is not None and entry.kind != "report-map" and meets_target(w, target) \
@@ -159,7 +154,7 @@ def tune_progress_line(entry, best: dict, target) -> str:
         f"{best['pm']:.2f}° at {engineering(best['ugf'], 'Hz')} (step {best['step']})"
     this = "a corner did not measure" if w is None else \
         f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
-    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {entry.kind}: "
+    return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {kind_label(entry.kind)}: "
             f"{this} | {entry.ac_analyses} AC")
 
 

@@ -25,6 +25,7 @@ from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JournalError, OutputError
 from amploop.sim.journal import Journal
 from amploop.spice.units import describe_values
+from amploop.strategy.kinds import kind_label
 
 __all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data"]
 
@@ -174,18 +175,7 @@ class ReportData:
 
 
 def _values_label(values: dict, device: tuple[str, str] | None = None) -> str:
-    return describe_values(values, equals=" ", device=device)
-
-
-_KIND_WORDS = {
-    "characterise": "sample",
-    "verify": "check",
-    "start": "textbook start",
-    "dominant-pole": "dominant-pole step",
-    "lead": "lead step",
-    "adjust-cc": "Cc adjusted",
-    "evaluate": "optimiser try",
-}
+    return describe_values(values, device)
 
 
 def load_report_data(out: str | Path) -> ReportData:
@@ -280,7 +270,7 @@ def load_report_data(out: str | Path) -> ReportData:
             key = entry["analyses"].get(name)
             if key is None or entry["step"] == final_step:
                 continue
-            words = _KIND_WORDS.get(entry["kind"], entry["kind"])
+            words = kind_label(entry["kind"])
             curves.append(Curve(f"{entry['step']}. {words}: "
                                 f"{_values_label(entry['values'], device_key)}",
                                 "step", loop_gain(key)))

@@ -9,16 +9,7 @@ from matplotlib.ticker import LogLocator
 from amploop.report import style
 from amploop.report.data import ReportData
 from amploop.report.pages import new_page
-
-_POINT_WORDS = {
-    "characterise": "sample for the map",
-    "verify": "check at the chosen values",
-    "start": "textbook: starting Cc",
-    "dominant-pole": "textbook: dominant-pole step",
-    "lead": "textbook: lead resistor",
-    "adjust-cc": "textbook: Cc adjusted",
-    "evaluate": "optimiser evaluation",
-}
+from amploop.strategy.kinds import TEXTBOOK_KINDS, kind_label
 
 
 def convergence_page(data: ReportData, target_pm: float | None):
@@ -49,11 +40,10 @@ def convergence_page(data: ReportData, target_pm: float | None):
     kinds = [h["kind"] for h in history]
     for kind in dict.fromkeys(kinds):
         sel = [i for i, k in enumerate(kinds) if k == kind]
-        colour = style.FINAL if kind == "verify" else (style.TEXTBOOK if kind in
-                                                       ("start", "dominant-pole", "lead", "adjust-cc")
-                                                       else style.START)
+        colour = style.FINAL if kind == "verify" else (
+            style.TEXTBOOK if kind in TEXTBOOK_KINDS else style.START)
         top.plot([x[i] for i in sel], [pm[i] for i in sel], "o", color=colour,
-                 label=_POINT_WORDS.get(kind, kind))
+                 label=kind_label(kind))
         bottom.plot([x[i] for i in sel], [ugf[i] for i in sel], "o", color=colour)
     top.plot(x, pm, "-", color="#bbbbbb", lw=0.8, zorder=0)
     bottom.plot(x, ugf, "-", color="#bbbbbb", lw=0.8, zorder=0)

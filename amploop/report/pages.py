@@ -40,8 +40,7 @@ def values_text(values: dict, results: dict | None = None) -> str:
     """The compensation ``values`` (SI by role) as the terminal shows them, with the
     device's name when ``results`` (results.json) says a MOSFET stands in for Rc."""
     device = (results or {}).get("device")
-    return describe_values(values, joiner=",  ",
-                           device=(device["name"], device["size"]) if device else None)
+    return describe_values(values, (device["name"], device["size"]) if device else None)
 
 
 def footer(fig, extra: str = "") -> None:

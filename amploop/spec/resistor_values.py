@@ -16,26 +16,24 @@ Each refusal says what SPICE reads and what was probably meant (``did you mean 1
 
 from __future__ import annotations
 
-import re
-
 from amploop.errors import JobError
 from amploop.spice.expressions import evaluate
-from amploop.spice.units import engineering, parse_value
+from amploop.spice.units import SCALE_SUFFIXES, engineering, parse_value, scale_of, split_number
 
 __all__ = ["check_feedback_resistors", "check_rc_text", "megaohm_reading"]
-
-# a SPICE number whose scale suffix is milli: "1M", "2.2m", "4.7mohm" (not "meg", "mil")
-_MILLI = re.compile(r"^\s*(?P<mantissa>[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
-                    r"(?P<suffix>m)(?!eg|il)(?P<unit>(?:ohms?)?)\s*$", re.IGNORECASE)
 
 
 def megaohm_reading(text: object) -> str | None:
     """The megaohm value ``text`` was probably meant to be (``"1M"`` -> ``"1Meg"``) when it
     is a SPICE number with the milli suffix ``m``/``M``; None otherwise."""
-    if not isinstance(text, str):
+    parts = split_number(text) if isinstance(text, str) else None
+    if parts is None:
         return None
-    match = _MILLI.match(text)
-    return None if match is None else f"{match.group('mantissa')}Meg{match.group('unit')}"
+    mantissa, letters = parts
+    scale, unit = scale_of(letters)
+    if scale != SCALE_SUFFIXES["m"] or unit not in ("", "ohm", "ohms"):
+        return None
+    return f"{mantissa}Meg{letters[1:]}"  # the unit as written: 4.7mOhm -> 4.7MegOhm
 
 
 def _milli_problem(text: str) -> str | None:

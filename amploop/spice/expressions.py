@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import re
 
-from amploop.spice.units import SCALE_SUFFIXES
+from amploop.spice.units import NUMBER_PATTERN, scale_of, split_number
 
 __all__ = ["evaluate"]
 
@@ -26,18 +26,14 @@ _FUNCTIONS = {
 _CONSTANTS = {"pi": math.pi, "e": math.e}
 
 _TOKEN = re.compile(
-    r"\s*(?:(?P<number>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[a-zA-Z]*)"
+    rf"\s*(?:(?P<number>{NUMBER_PATTERN})"
     r"|(?P<name>[A-Za-z_][\w.]*)|(?P<op>\*\*|[-+*/^(),]))"
 )
 
 
 def _number(text: str) -> float:
-    match = re.match(r"((?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)$", text)
-    mantissa, tail = match.group(1), match.group(2).lower()
-    for suffix, factor in SCALE_SUFFIXES.items():
-        if tail.startswith(suffix):
-            return float(mantissa) * factor
-    return float(mantissa)  # SPICE ignores unknown letters after a number ("10V")
+    mantissa, letters = split_number(text)
+    return float(mantissa) * scale_of(letters)[0]  # SPICE ignores other letters ("10V")
 
 
 def evaluate(expression: str, params: dict[str, str] | None = None, _depth: int = 0) -> float:
@@ -216,6 +212,9 @@ _BRACED = re.compile(r"\{([^{}]*)\}|'([^']*)'")
 
 PARAM_NAME = re.compile(r"[A-Za-z_][\w.]*")
 
+# a number where the evaluator reads one: not the digits inside a name such as c2
+_NUMBER_IN_TEXT = re.compile(rf"(?<![\w.]){NUMBER_PATTERN}")
+
 
 _FUNCTION_NAMES = {"sqrt", "exp", "log", "ln", "log10", "abs", "min", "max", "pow", "pwr", "pi"}
 
@@ -226,6 +225,6 @@ def referenced_params(expression: str) -> set[str]:
     for match in _BRACED.finditer(expression):
         inner = match.group(1) if match.group(1) is not None else match.group(2)
         # drop numbers with suffixes such as 2p, 1e-12, 3meg before looking for names
-        inner = re.sub(r"(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[a-zA-Z]*", " ", inner)
+        inner = _NUMBER_IN_TEXT.sub(" ", inner)
         names.update(n.lower() for n in PARAM_NAME.findall(inner))
     return names - _FUNCTION_NAMES

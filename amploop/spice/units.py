@@ -10,7 +10,8 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["SCALE_SUFFIXES", "describe_values", "engineering", "parse_value", "spice_number"]
+__all__ = ["NUMBER", "NUMBER_PATTERN", "SCALE_SUFFIXES", "describe_values", "engineering",
+           "parse_value", "scale_of", "spice_number", "split_number"]
 
 #: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
 SCALE_SUFFIXES: dict[str, float] = {
@@ -29,7 +30,51 @@ SCALE_SUFFIXES: dict[str, float] = {
 # Unit names SPICE users write after the suffix ("2pF", "10kOhm"); SPICE ignores them.
 _UNIT_TAILS = ("", "f", "h", "v", "a", "s", "hz", "ohm", "ohms")
 
-_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)\s*$")
+#: The one rule for a SPICE number's text, unsigned: a mantissa (``2``, ``1.5``, ``.5``)
+#: with an optional exponent (``e-12``), group ``mantissa``; then every letter after it,
+#: group ``letters`` (a scale suffix and/or a unit name: ``p``, ``Meg``, ``kOhm``, ``pF``).
+#: Every reader of SPICE numbers in amploop (job file, ``--set``, netlist expressions, the
+#: milli check of resistors) is built from it.
+NUMBER_PATTERN = r"(?P<mantissa>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(?P<letters>[a-zA-Z]*)"
+
+#: :data:`NUMBER_PATTERN` compiled, for a whole text: an optional sign and spaces around.
+NUMBER = re.compile(rf"^\s*(?P<sign>[+-]?){NUMBER_PATTERN}\s*$")
+
+_SUFFIX_HELP = "SPICE suffixes: f p n u m k meg g t"
+
+
+def split_number(text: str) -> tuple[str, str] | None:
+    """The signed mantissa and the letters after it of the SPICE number ``text``
+    (``"-1.5e3kOhm"`` -> ``("-1.5e3", "kOhm")``); None when ``text`` is no such number.
+
+    Parameters
+    ----------
+    text
+        The number as written, spaces around allowed.
+    """
+    match = NUMBER.match(text)
+    if match is None:
+        return None
+    return match.group("sign") + match.group("mantissa"), match.group("letters")
+
+
+def scale_of(letters: str) -> tuple[float, str]:
+    """The scale factor of the letters after a SPICE number and what follows the suffix
+    (``"kOhm"`` -> ``(1e3, "ohm")``, ``"Meg"`` -> ``(1e6, "")``, ``"V"`` -> ``(1.0, "v")``).
+
+    The longest suffix that starts the letters wins (``meg`` and ``mil`` before ``m``),
+    case-insensitive, as SPICE reads them.
+
+    Parameters
+    ----------
+    letters
+        The letters after the mantissa (group ``letters`` of :data:`NUMBER`).
+    """
+    tail = letters.lower()
+    for suffix, factor in SCALE_SUFFIXES.items():
+        if tail.startswith(suffix):
+            return factor, tail[len(suffix):]
+    return 1.0, tail
 
 
 def parse_value(text: str | float) -> float:
@@ -56,19 +101,13 @@ def parse_value(text: str | float) -> float:
     if isinstance(text, (int, float)):
         value = float(text)
     else:
-        match = _NUMBER.match(str(text))
-        if not match:
-            raise ValueError(f"{text!r} is not a number (SPICE suffixes: f p n u m k meg g t)")
-        mantissa, tail = match.group(1), match.group(2).lower()
-        scale = 1.0
-        for suffix, factor in SCALE_SUFFIXES.items():
-            if tail.startswith(suffix) and tail[len(suffix):] in _UNIT_TAILS:
-                scale, tail = factor, ""
-                break
-        if tail not in _UNIT_TAILS:
-            raise ValueError(
-                f"{text!r}: unknown suffix {match.group(2)!r} (SPICE suffixes: f p n u m k meg g t)"
-            )
+        parts = split_number(str(text))
+        if parts is None:
+            raise ValueError(f"{text!r} is not a number ({_SUFFIX_HELP})")
+        mantissa, letters = parts
+        scale, tail = scale_of(letters)
+        if tail not in _UNIT_TAILS:  # a typo rather than a unit: refused, not ignored as SPICE does
+            raise ValueError(f"{text!r}: unknown suffix {letters!r} ({_SUFFIX_HELP})")
         value = float(mantissa) * scale
     if not math.isfinite(value):
         raise ValueError(f"{text!r} is not a finite number")
@@ -126,10 +165,10 @@ def engineering(value: float | None, unit: str = "", digits: int = 3) -> str:
     return f"{text} {prefix}{unit}".strip()
 
 
-def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: str = ", ",
-                    device: tuple[str, str] | None = None) -> str:
+def describe_values(values: dict[str, float], device: tuple[str, str] | None = None) -> str:
     """Compensation values for people: ``"Cc = 292.8 fF, Rc = 20 kΩ"`` (4 digits).
 
+    The one form of them on the terminal, in the report and in results.json's messages.
     ``device`` = (name, size key) when a MOSFET stands in for Rc: ``"Mz w = 2.1 µm"``.
 
     Parameters
@@ -137,20 +176,16 @@ def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: st
     values
         Compensation values by role, SI: ``cc`` in farads, ``rc`` in ohms or the device
         size (metres, or a count for ``m``); other roles are left out.
-    equals
-        What stands between a name and its value.
-    joiner
-        What stands between two values.
     device
         (device name, size key ``"w"``, ``"l"`` or ``"m"``) when a MOSFET stands in for
         Rc; None for a resistor.
     """
     parts = []
     if "cc" in values:
-        parts.append(f"Cc{equals}{engineering(values['cc'], 'F', 4)}")
+        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
     if "rc" in values and device is not None:
         name, size = device
-        parts.append(f"{name} {size}{equals}{engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
+        parts.append(f"{name} {size} = {engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
     elif "rc" in values:
-        parts.append(f"Rc{equals}{engineering(values['rc'], 'Ω', 4)}")
-    return joiner.join(parts)
+        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
+    return ", ".join(parts)

@@ -18,6 +18,7 @@ from amploop.corners.results import CornerResult
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner, Knob, Target
+from amploop.strategy.kinds import kind_label
 
 __all__ = [
     "Evaluator",
@@ -211,6 +212,7 @@ class HistoryEntry:
         return {
             "step": self.step,
             "kind": self.kind,
+            "label": kind_label(self.kind),
             "values": dict(self.values),
             "worst_phase_margin_deg": w and w.phase_margin_deg,
             "worst_unity_gain_hz": w and w.unity_gain_hz,

@@ -17,7 +17,7 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.triode import in_triode, resistance_at_size, square_law_resistance
 from amploop.errors import TuningError
 from amploop.spec.model import Target
-from amploop.spice.units import engineering
+from amploop.spice.units import describe_values, engineering
 from amploop.strategy.common import (
     Evaluator,
     Outcome,
@@ -181,8 +181,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
     report["sample_resistance_ohm"] = rounds[-1]["resistance_ohm"]
     report["start"] = start_note
     extra = {"rounds": rounds, "device": report}
-    label = f"{device.name} {device.size} = {engineering(verified.values['rc'], 'm', 4)}"
-    values_text = f"Cc = {engineering(verified.values['cc'], 'F', 4)}, {label}"
+    values_text = describe_values(verified.values, (device.name, device.size))
     if not solution.feasible:
         return Outcome("infeasible", verified.values, verified,
                        f"no Cc and {device.name} size within the bounds meets "
