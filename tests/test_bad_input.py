@@ -343,7 +343,7 @@ def test_an_out_folder_name_longer_than_the_file_system_allows_is_one_line(job, 
     argv = ["measure", str(job), "--out", str(out)] if command == "measure" \
         else ["report", str(out)]
     code, _, err = run(argv, capsys)
-    assert code == 2
+    assert code == 4
     line = one_error_line(err)
     assert "File name too long" in line and "internal error" not in line
 def test_a_name_used_as_a_model_blames_the_element_not_the_parameter(job, tmp_path, capsys):

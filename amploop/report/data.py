@@ -21,7 +21,7 @@ from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK
 from amploop.bench.probe import make_probe
 from amploop.corners.stepcheck import StepCheck, check_from_output
-from amploop.errors import JournalError, OutputError
+from amploop.errors import JobError, JournalError, OutputError
 from amploop.sim.journal import Journal
 from amploop.spice.units import describe_values
 
@@ -193,8 +193,10 @@ def load_report_data(out: str | Path) -> ReportData:
 
     Raises
     ------
+    JobError
+        When results.json is missing (not an out folder of amploop's).
     OutputError
-        When results.json is missing or unreadable.
+        When results.json is unreadable.
     JournalError
         When the journal is missing, or (as a page asks for it) lacks an analysis
         results.json names.
@@ -203,7 +205,7 @@ def load_report_data(out: str | Path) -> ReportData:
     try:
         results = json.loads((out / "results.json").read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise OutputError("no results.json: not an amploop out folder", file=out) from None
+        raise JobError("no results.json: not an amploop out folder", file=out) from None
     except (OSError, ValueError) as exc:
         raise OutputError(f"cannot read results.json: {exc}", file=out) from None
     probe = make_probe(results.get("probe", "double-injection"))

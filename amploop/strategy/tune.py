@@ -20,7 +20,7 @@ from amploop.corners.outputs import OutFolder, remove_stale
 from amploop.corners.portable_decks import copy_includes
 from amploop.corners.results import SCHEMA, CornerResult
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
-from amploop.errors import JobError, JournalError
+from amploop.errors import JobError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool
 from amploop.sim.runner import Runner
@@ -238,8 +238,8 @@ def tune(
     folder = OutFolder(out)
     journal_path = folder.path / JOURNAL_FILE
     if resume and not journal_path.exists():
-        raise JournalError("nothing to resume: this out folder has no journal", file=folder.path,
-                           hint="run without --resume to start")
+        raise JobError("nothing to resume: this out folder has no journal", file=folder.path,
+                       hint="run without --resume to start")
     with folder.lock(), Journal(journal_path) as journal:
         own_pool = pool is None
         pool = pool or WorkerPool(workers)
