@@ -22,7 +22,7 @@ from pathlib import Path
 import pytest
 from conftest import DEMO
 
-from amploop.cli import main
+from amploop.cli import ExitCode, main
 from amploop.corners.measure import measure
 from amploop.corners.outputs import OutFolder
 from amploop.errors import OutputError
@@ -99,6 +99,7 @@ def test_a_worker_that_keeps_dying_costs_bounded_retries_then_that_corner_errs(t
     assert statuses[victim].status == "error"
     assert "ngspice crashed" in statuses[victim].error and "signal 9" in statuses[victim].error
     assert "3 attempts" in statuses[victim].error
+    assert statuses[victim].error_kind == "crash"
     assert all(c.status == "ok" for name, c in statuses.items() if name != victim)
     data = json.loads((tmp_path / "out" / "results.json").read_text())
     failed = next(c for c in data["corners"] if c["name"] == victim)
@@ -142,6 +143,7 @@ def test_hanging_analysis_is_ended_by_the_time_limit(tmp_path):
     assert time.monotonic() - started < 30
     assert [c.status for c in result.corners] == ["error", "error"]
     assert all("time-out" in c.error and "0.1 s" in c.error for c in result.corners)
+    assert all(c.error_kind == "timeout" for c in result.corners)
     assert replaced >= 2
 
 
@@ -214,7 +216,7 @@ def test_out_folder_that_cannot_be_created_is_one_line(tmp_path, capsys):
     blocker.write_text("not a folder")
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(blocker / "out"), "--no-report"])
     err = capsys.readouterr().err
-    assert code == 4
+    assert code == ExitCode.RESOURCE == 4  # not bad input: the folder cannot be made
     assert len(err.strip().splitlines()) == 1 and "cannot create the out folder" in err
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(blocker), "--no-report"])
     err = capsys.readouterr().err
