@@ -11,6 +11,7 @@ import difflib
 from pathlib import Path
 
 __all__ = [
+    "SIMULATOR_KINDS",
     "AmploopError",
     "JobError",
     "JournalError",
@@ -77,8 +78,41 @@ class NetlistError(AmploopError):
     """The user's netlist (or a file it includes) cannot be used as asked."""
 
 
+#: What can go wrong with an analysis (:attr:`SimulatorError.kind`): ngspice refused the
+#: deck; found no solution (no DC operating point, a singular matrix, a time step too
+#: small); ran past its time limit (or got no answer in time); its process died; anything
+#: else.
+SIMULATOR_KINDS = ("parse", "convergence", "timeout", "crash", "failed")
+
+
 class SimulatorError(AmploopError):
-    """ngspice failed on an analysis: parse error, no DC solution, crash or time-out."""
+    """ngspice failed on an analysis: parse error, no DC solution, crash or time-out.
+
+    Parameters
+    ----------
+    problem, file, place, hint
+        As for :class:`AmploopError`.
+    kind
+        Which failure it is, one of :data:`SIMULATOR_KINDS`, set where it is raised, so
+        that callers decide by it and never by the wording of ``problem``.
+    """
+
+    def __init__(self, problem: str, *, file: str | Path | None = None,
+                 place: str | int | None = None, hint: str | None = None,
+                 kind: str = "failed") -> None:
+        if kind not in SIMULATOR_KINDS:
+            raise ValueError(f"unknown SimulatorError kind {kind!r}")
+        self.kind = kind
+        super().__init__(problem, file=file, place=place, hint=hint)
+
+    def __reduce__(self):
+        # rebuilt from its parts when it travels between processes (pickle), kind included
+        return _rebuild_simulator_error, (self.problem, self.file, self.place, self.hint,
+                                          self.kind)
+
+
+def _rebuild_simulator_error(problem, file, place, hint, kind) -> SimulatorError:
+    return SimulatorError(problem, file=file, place=place, hint=hint, kind=kind)
 
 
 class MeasurementError(AmploopError):

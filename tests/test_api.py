@@ -24,7 +24,7 @@ from conftest import DEMO
 
 from amploop.cli import main
 from amploop.corners.measure import measure
-from amploop.errors import JobError, OutputError
+from amploop.errors import JobError
 from amploop.report.data import load_report_data
 from amploop.spec.job import load_job
 from amploop.strategy.devicemap import device_json
@@ -114,7 +114,7 @@ def test_tune_without_out_gives_the_same_values(tuned):
 
 
 def test_tune_without_out_cannot_resume():
-    with pytest.raises(Exception, match="nothing to resume without an out folder"):
+    with pytest.raises(JobError, match="nothing to resume without an out folder"):
         tune(load_job(DEMO / "job.toml"), resume=True)
 
 
@@ -203,7 +203,7 @@ def test_the_device_corners_are_a_list_of_named_records():
 
 def test_a_results_json_of_the_old_schema_is_refused_in_one_line(tmp_path, capsys):
     (tmp_path / "results.json").write_text(json.dumps({"schema": 1, "corners": []}))
-    with pytest.raises(OutputError, match="results.json has schema 1; this amploop reads "
+    with pytest.raises(JobError, match="results.json has schema 1; this amploop reads "
                        "schema 2"):
         load_report_data(tmp_path)
     assert main(["report", str(tmp_path)]) == 2

@@ -343,7 +343,7 @@ def test_an_out_folder_name_longer_than_the_file_system_allows_is_one_line(job, 
     argv = ["measure", str(job), "--out", str(out)] if command == "measure" \
         else ["report", str(out)]
     code, _, err = run(argv, capsys)
-    assert code == 2
+    assert code == 4
     line = one_error_line(err)
     assert "File name too long" in line and "internal error" not in line
 def test_a_name_used_as_a_model_blames_the_element_not_the_parameter(job, tmp_path, capsys):
@@ -432,3 +432,40 @@ def test_a_named_device_that_is_not_in_the_subckt(tmp_path, capsys, role):
     line = one_error_line(err)
     assert f"[amplifier].{role}" in line and "is not a MOSFET of subckt" in line, line
     assert "M1" in line and "M6" in line, line
+
+
+@pytest.fixture
+def internal_failure(monkeypatch):
+    """An unexpected exception inside the report command (a bug, as far as the command
+    line can tell)."""
+    import amploop.corners.outputs
+
+    def broken(path):
+        raise RuntimeError("a bug for the test")
+
+    monkeypatch.setattr(amploop.corners.outputs, "is_folder", broken)
+    monkeypatch.delenv("AMPLOOP_DEBUG", raising=False)
+
+
+def test_an_internal_error_has_its_own_exit_code_and_one_line(internal_failure, tmp_path, capsys):
+    from amploop.cli import ExitCode
+
+    code, _, err = run(["report", str(tmp_path)], capsys)
+    assert code == ExitCode.INTERNAL == 70  # EX_SOFTWARE of BSD's sysexits.h
+    line = one_error_line(err)
+    assert "internal error: RuntimeError: a bug for the test" in line
+    assert "--debug shows the traceback" in line and "AMPLOOP_DEBUG" not in line
+
+
+@pytest.mark.parametrize("argv", [["--debug", "report", "OUT"], ["report", "OUT", "--debug"],
+                                  ["report", "OUT"]])
+def test_debug_shows_the_traceback_of_an_internal_error(internal_failure, tmp_path, capsys,
+                                                        monkeypatch, argv):
+    """``--debug`` before or after the command; without it, the environment variable."""
+    if "--debug" not in argv:
+        monkeypatch.setenv("AMPLOOP_DEBUG", "1")
+    code, _, err = run([str(tmp_path) if a == "OUT" else a for a in argv], capsys)
+    assert code == 70
+    assert "Traceback (most recent call last)" in err
+    assert "RuntimeError: a bug for the test" in err and "in broken" in err
+    assert err.strip().splitlines()[-1].startswith("amploop: internal error: RuntimeError")

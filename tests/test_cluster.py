@@ -239,4 +239,5 @@ def test_bundle_runs_where_the_files_are_gone(tmp_path):
         assert got.keys() == want.keys()
         for name in want:
             np.testing.assert_array_equal(got[name], want[name])
-    assert gone_status == "error" and problem.endswith(gone), problem
+    assert gone_status == "error" and problem.problem.endswith(gone), problem
+    assert problem.kind == "parse"  # ngspice could not read the missing file

@@ -22,7 +22,7 @@ from pathlib import Path
 import pytest
 from conftest import DEMO
 
-from amploop.cli import main
+from amploop.cli import ExitCode, main
 from amploop.corners.measure import measure
 from amploop.corners.outputs import OutFolder
 from amploop.errors import OutputError
@@ -99,6 +99,7 @@ def test_a_worker_that_keeps_dying_costs_bounded_retries_then_that_corner_errs(t
     assert statuses[victim].status == "error"
     assert "ngspice crashed" in statuses[victim].error and "signal 9" in statuses[victim].error
     assert "3 attempts" in statuses[victim].error
+    assert statuses[victim].error_kind == "crash"
     assert all(c.status == "ok" for name, c in statuses.items() if name != victim)
     data = json.loads((tmp_path / "out" / "results.json").read_text())
     failed = next(c for c in data["corners"] if c["name"] == victim)
@@ -142,6 +143,7 @@ def test_hanging_analysis_is_ended_by_the_time_limit(tmp_path):
     assert time.monotonic() - started < 30
     assert [c.status for c in result.corners] == ["error", "error"]
     assert all("time-out" in c.error and "0.1 s" in c.error for c in result.corners)
+    assert all(c.error_kind == "timeout" for c in result.corners)
     assert replaced >= 2
 
 
@@ -162,7 +164,7 @@ def test_disk_full_is_a_clear_error_and_the_journal_resumes_afterwards(tmp_path)
                "--no-report", "--workers", "1"]
     full = subprocess.run(command, capture_output=True, text=True, timeout=300,
                           preexec_fn=_limited(60_000), check=False)
-    assert full.returncode == 2, full.stderr
+    assert full.returncode == 4, full.stderr  # ExitCode.RESOURCE
     lines = [line for line in full.stderr.splitlines() if line.strip()]
     assert len(lines) == 1 and "Traceback" not in full.stderr
     assert "journal.sqlite" in lines[0] or "cannot write" in lines[0]
@@ -179,12 +181,12 @@ def test_disk_full_is_a_clear_error_and_the_journal_resumes_afterwards(tmp_path)
 def test_a_file_a_worker_cannot_write_is_one_line_and_the_analyses_are_kept(tmp_path, capsys):
     """With every core simulating, the workers write the corners' files themselves. When
     they cannot (here a file stands where the loop_gain folder goes), the coordinator
-    tries again, the run ends with one line, exit 2, and the analyses stay recorded."""
+    tries again, the run ends with one line, exit 4, and the analyses stay recorded."""
     out = tmp_path / "out"
     out.mkdir()
     (out / "loop_gain").write_text("in the way")
     args = ["measure", str(DEMO / "job.toml"), "--out", str(out), "--no-report", "--quiet"]
-    assert main(args) == 2  # default --workers: the CPU count, so the workers write
+    assert main(args) == 4  # default --workers: the CPU count, so the workers write
     lines = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
     assert len(lines) == 1 and "cannot write loop_gain/" in lines[0], lines
     (out / "loop_gain").unlink()
@@ -214,11 +216,11 @@ def test_out_folder_that_cannot_be_created_is_one_line(tmp_path, capsys):
     blocker.write_text("not a folder")
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(blocker / "out"), "--no-report"])
     err = capsys.readouterr().err
-    assert code == 2
+    assert code == ExitCode.RESOURCE == 4  # not bad input: the folder cannot be made
     assert len(err.strip().splitlines()) == 1 and "cannot create the out folder" in err
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(blocker), "--no-report"])
     err = capsys.readouterr().err
-    assert code == 2
+    assert code == 4
     assert len(err.strip().splitlines()) == 1 and "is a file, not a folder" in err
     assert blocker.read_text() == "not a folder"
 
@@ -229,7 +231,7 @@ def test_second_run_on_the_same_out_folder_is_refused(tmp_path, capsys):
         code = main(["tune", str(DEMO / "job.toml"), "--out", str(tmp_path / "out"),
                      "--no-report"])
     err = capsys.readouterr().err
-    assert code == 2
+    assert code == 4
     assert "another amploop run" in err and f"pid {os.getpid()}" in err
     assert not (tmp_path / "out" / "journal.sqlite").exists()  # never two writers
 
@@ -242,7 +244,7 @@ def test_journal_of_another_schema_is_refused_with_what_to_do(tmp_path, capsys):
     capsys.readouterr()
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(out), "--no-report"])
     err = capsys.readouterr().err
-    assert code == 2
+    assert code == 4
     assert "schema 0" in err and "new --out folder" in err
 
 
@@ -258,7 +260,7 @@ def test_corrupt_journal_is_refused_never_reused(tmp_path, capsys):
     capsys.readouterr()
     code = main(["measure", str(DEMO / "job.toml"), "--out", str(out), "--no-report"])
     err = capsys.readouterr().err
-    assert code == 2
+    assert code == 4
     assert "journal" in err and ("corrupt" in err or "unreadable" in err or "not an amploop" in err)
 
 

@@ -84,7 +84,7 @@ def test_the_report_refuses_a_damaged_record_in_one_line(tmp_path, capsys):
     with Journal(out / "journal.sqlite", readonly=True) as journal, \
             pytest.raises(JournalError, match="damaged: checksum mismatch"):
         journal.get(key)
-    assert main(["report", str(out)]) == 2
+    assert main(["report", str(out)]) == 4
     err = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
     assert len(err) == 1 and "damaged" in err[0] and "rerun" in err[0], err
 
@@ -102,7 +102,7 @@ def test_a_journal_without_checksums_is_upgraded_and_its_records_recomputed(tmp_
     first, _ = measure_demo(out, capsys)
     make_schema_1(out / "journal.sqlite")
 
-    assert main(["report", str(out)]) == 2  # a reader cannot upgrade: it says what to do
+    assert main(["report", str(out)]) == 4  # a reader cannot upgrade: it says what to do
     err = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
     assert len(err) == 1 and "schema 1" in err[0] and "rerun measure or tune" in err[0], err
 

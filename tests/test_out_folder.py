@@ -91,7 +91,7 @@ def test_the_report_command_is_refused_while_a_run_holds_the_folder(measured):
     with OutFolder(measured).lock():  # this process holds it; the report runs in another
         run = subprocess.run([sys.executable, "-m", "amploop.cli", "report", str(measured)],
                              capture_output=True, text=True, timeout=120, check=False)
-    assert run.returncode == 2, run.stderr
+    assert run.returncode == 4, run.stderr
     assert "another amploop run" in error_line(run.stderr)
     assert not (measured / "report.pdf").exists()
 
@@ -133,7 +133,7 @@ def test_the_report_of_a_run_is_drawn_while_the_run_still_holds_the_folder(
     assert code == 0
     assert seen["lock free"] is False
     returncode, err = seen["second"]
-    assert returncode == 2 and "another amploop run" in error_line(err)
+    assert returncode == 4 and "another amploop run" in error_line(err)
     assert (out / "report.pdf").is_file()
     assert _lock_is_free(out)  # and let go at the end
 
@@ -157,7 +157,7 @@ def test_a_full_disk_while_the_report_is_written_is_one_line_and_leaves_no_file(
     run = subprocess.run([sys.executable, "-m", "amploop.cli", "report", str(measured),
                           *options], capture_output=True, text=True, timeout=300,
                          preexec_fn=_file_size_limit(limit_bytes), check=False)
-    assert run.returncode == 2, run.stderr
+    assert run.returncode == 4, run.stderr
     line = error_line(run.stderr)
     assert "cannot write the report" in line and "File too large" in line, line
     assert [p.name for p in measured.rglob("*") if ".tmp" in p.name] == []

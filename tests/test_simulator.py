@@ -39,8 +39,9 @@ def test_every_circuit_and_plot_is_freed_after_an_analysis(session):
 
 def test_a_rejected_command_is_an_error_not_a_silent_zero(session):
     steps = (Step("alter nosuch acmag=0"), Step("ac dec 2 1 10", ("v(b)",)))
-    with pytest.raises(SimulatorError, match="rejected"):
+    with pytest.raises(SimulatorError, match="rejected") as caught:
         session.run(AnalysisRequest("rc", RC, steps))
+    assert caught.value.kind == "failed"  # neither the deck nor the circuit is at fault
     # and the session still works
     session.run(AnalysisRequest("rc", RC, (Step("ac dec 2 1 10", ("v(b)",)),)))
 
@@ -63,6 +64,45 @@ def test_failure_summaries_are_one_readable_line():
         ["AC operating point failed -", "Error: Transient op failed, timestep too small"])
     assert summarise_failure(["Error on line:", "  r1 a b inf", "unknown parameter (inf)"]) == \
         "Error on line: r1 a b inf unknown parameter (inf)"
+
+
+# -- the kind of a failure, from real ngspice in a worker process ------------------------
+
+
+def test_each_failure_has_its_kind_and_keeps_it_across_the_process_boundary():
+    """Errors raised in a worker come back to the coordinator with their kind, which the
+    command line and the corner results decide by (never by ngspice's wording). The
+    messages are ngspice 39's own: "Undefined parameter", "can't find model", "singular
+    matrix", gmin and source stepping failing (exp(40·v) = v/1 kΩ has no DC solution)."""
+    import pickle
+
+    from amploop.sim.pool import WorkerPool
+
+    floating = "floating\nV1 a 0 dc 1 ac 1\nR1 a b 1k\nC1 b c 1p\nC2 c 0 1p\n.end\n"
+    long = RC.replace("ac 1", "ac 1 pulse(0 1 0 1u 1u 1 2)")
+    requests = {
+        "undefined parameter": (AnalysisRequest(
+            "u", "bad\nV1 a 0 dc 1\nR1 a 0 {nosuch}\n.end\n", (Step("op"),)), "parse"),
+        "missing model": (AnalysisRequest(
+            "m", "bad\nV1 a 0 dc 1\nQ1 a 0 0 nomodel\n.end\n", (Step("op"),)), "parse"),
+        "floating node": (AnalysisRequest(
+            "f", floating, (Step("ac dec 2 1 10", ("v(b)",)),)), "convergence"),
+        "no DC solution": (AnalysisRequest(
+            "n", "nodc\nBx 0 nx I=exp(40*v(nx))\nRx nx 0 1k\n.end\n", (Step("op"),)),
+            "convergence"),
+        "time-out": (AnalysisRequest(  # 2 million time steps under a 0.05 s limit
+            "t", long, (Step("tran 10n 20m 0 10n", ("v(b)",)),), time_limit_s=0.05), "timeout"),
+    }
+    with WorkerPool(1) as pool:
+        got = dict(pool.run([(name, request) for name, (request, _) in requests.items()]))
+    kinds = {name: getattr(got[name], "kind", type(got[name]).__name__) for name in requests}
+    assert kinds == {name: kind for name, (_, kind) in requests.items()}, got
+    assert "singular matrix at node c" in got["floating node"].problem
+    assert "time-out" in got["time-out"].problem and got["time-out"].place == "t"
+    again = pickle.loads(pickle.dumps(got["missing model"]))  # as Dask sends it
+    assert (again.kind, again.problem, again.place) == ("parse", got["missing model"].problem, "m")
+    with pytest.raises(ValueError, match="unknown SimulatorError kind"):
+        SimulatorError("x", kind="parse error")
 
 
 # -- work done in the worker after an analysis ------------------------------------------

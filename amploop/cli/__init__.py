@@ -36,12 +36,26 @@ __all__ = ["ExitCode", "main"]
 
 
 class ExitCode(IntEnum):
-    """Exit codes of the ``amploop`` command."""
+    """Exit codes of the ``amploop`` command.
+
+    ``OK`` (0) every corner measured, or the target met; ``SIMULATOR_FAILURE`` (1) a
+    corner could not be simulated or measured, is suspect, or tuning failed;
+    ``BAD_INPUT`` (2) the job file, the netlist or the command line is wrong (also
+    ``measure`` when ngspice refused the deck of every corner that failed); ``INFEASIBLE`` (3) no compensation
+    within the bounds meets the target; ``RESOURCE`` (4) the out folder cannot be used:
+    not writable, the disk full, held by another run, or its journal locked, damaged or
+    of another version (:class:`~amploop.errors.OutputError`,
+    :class:`~amploop.errors.JournalError`); ``INTERNAL`` (70) an unexpected Python
+    exception, a bug in amploop (``--debug`` shows its traceback); ``INTERRUPTED`` (130)
+    Ctrl-C.
+    """
 
     OK = 0
     SIMULATOR_FAILURE = 1  # a corner could not be simulated or measured
     BAD_INPUT = 2  # the job file, the netlist or the command line is wrong
     INFEASIBLE = 3  # no compensation within the bounds meets the target
+    RESOURCE = 4  # the out folder cannot be used (permissions, disk full, lock, journal)
+    INTERNAL = 70  # an unexpected exception: a bug (EX_SOFTWARE of sysexits.h)
     INTERRUPTED = 130
 
 
@@ -51,8 +65,12 @@ def _exit_code(error: AmploopError) -> ExitCode:
     if isinstance(error, (SimulatorError, MeasurementError)):
         return ExitCode.SIMULATOR_FAILURE
     if isinstance(error, (OutputError, JournalError)):
-        return ExitCode.BAD_INPUT
+        return ExitCode.RESOURCE
     return ExitCode.SIMULATOR_FAILURE
+
+
+_DEBUG_HELP = ("show the traceback of an internal error (as the environment variable "
+               "AMPLOOP_DEBUG=1 does)")
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -64,7 +82,12 @@ def _parser() -> argparse.ArgumentParser:
         "models, flow and foundry rules.",
     )
     parser.add_argument("--version", action="version", version=f"amploop {version('amploop')}")
+    parser.add_argument("--debug", action="store_true", help=_DEBUG_HELP)
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    # also after the command; SUPPRESS keeps a --debug given before it
+    debug = argparse.ArgumentParser(add_help=False)
+    debug.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                       help=_DEBUG_HELP)
 
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("job", help="the job file (TOML)")
@@ -89,12 +112,12 @@ def _parser() -> argparse.ArgumentParser:
                        help="also give this corner a report page (repeatable)")
 
     measure = commands.add_parser(
-        "measure", parents=[common, pages], help="measure loop gain and margins",
+        "measure", parents=[common, pages, debug], help="measure loop gain and margins",
         description="Measure the loop gain and its margins at every corner.")
     measure.add_argument("--set", action="append", default=[], metavar="ROLE=VALUE",
                          help="set a compensation value by its role, e.g. --set cc=1.5p")
     tune = commands.add_parser(
-        "tune", parents=[common, pages], help="choose Cc and Rc for the target margin",
+        "tune", parents=[common, pages, debug], help="choose Cc and Rc for the target margin",
         description="Choose Cc and Rc so that the worst corner meets the target phase margin "
         "with the least bandwidth given away.")
     tune.add_argument("--strategy", default="map", choices=["map", "textbook"],
@@ -103,7 +126,8 @@ def _parser() -> argparse.ArgumentParser:
     tune.add_argument("--resume", action="store_true",
                       help="continue an interrupted run in the same out folder")
     report = commands.add_parser(
-        "report", parents=[pages], help="rebuild report.pdf of an out folder (no simulation)",
+        "report", parents=[pages, debug],
+        help="rebuild report.pdf of an out folder (no simulation)",
         description="Draw report.pdf and its PNG pages from an out folder's results.json and "
         "journal, without simulating.")
     report.add_argument("out", metavar="OUTDIR", help="an out folder of measure or tune")
@@ -125,7 +149,7 @@ def _run_report(args) -> ExitCode:
     from amploop.corners.outputs import is_folder
 
     if not is_folder(args.out):
-        raise OutputError("not a folder", file=args.out)
+        raise JobError("not a folder", file=args.out)
     _write_report(args.out, args, quiet=False, pngs=not args.no_png)
     return ExitCode.OK
 
@@ -177,7 +201,7 @@ def _run_measure(args) -> ExitCode:
     failed = [c for c in result.corners if c.status == "error"]
     suspect = [c for c in result.corners if c.status == "suspect"]
     if failed:
-        if all(c.error and "parse error" in c.error for c in failed):
+        if all(c.error_kind == "parse" for c in failed):
             return ExitCode.BAD_INPUT
         return ExitCode.SIMULATOR_FAILURE
     return ExitCode.SIMULATOR_FAILURE if suspect else ExitCode.OK
@@ -296,11 +320,11 @@ def main(argv: list[str] | None = None) -> int:
         import os
         import traceback
 
-        if os.environ.get("AMPLOOP_DEBUG"):
+        if args.debug or os.environ.get("AMPLOOP_DEBUG"):
             traceback.print_exc()
         where = traceback.extract_tb(exc.__traceback__)[-1]
         print(f"amploop: internal error: {type(exc).__name__}: {exc} (at "
               f"{os.path.basename(where.filename)}:{where.lineno}; finished results are in the out "
-              "folder; AMPLOOP_DEBUG=1 shows the traceback; please report it)", file=sys.stderr)
-        return int(ExitCode.SIMULATOR_FAILURE)
+              "folder; --debug shows the traceback; please report it)", file=sys.stderr)
+        return int(ExitCode.INTERNAL)
     return int(ExitCode.OK)

@@ -57,9 +57,11 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
     """Turn a worker's answer (output or SimulatorError) into a corner result."""
     if isinstance(output, AmploopError):
         problem = output.problem
-        if amplifier is not None and problem.startswith("parse error"):
+        kind = getattr(output, "kind", "failed")
+        if amplifier is not None and kind == "parse":
             problem = amplifier.locate_parse_error(problem)
-        return CornerResult(corner=bench.corner, status="error", error=problem)
+        return CornerResult(corner=bench.corner, status="error", error=problem,
+                            error_kind=kind)
     try:
         response = bench.loop_gain(output)
     except (ValueError, KeyError) as exc:

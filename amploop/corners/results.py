@@ -47,6 +47,10 @@ class CornerResult:
         The DC operating point of its analysis; None when it could not be read.
     suspect_reason
         Why a ``"suspect"`` corner's margins cannot be trusted (one sentence); else None.
+    error_kind
+        The :attr:`~amploop.errors.SimulatorError.kind` of the simulator's failure when
+        its analysis failed (``"parse"``: ngspice refused the deck); None otherwise (also
+        for a loop gain that was simulated but is unusable).
     """
 
     corner: Corner
@@ -57,6 +61,7 @@ class CornerResult:
     warnings: tuple[str, ...] = ()
     operating_point: OperatingPoint | None = None
     suspect_reason: str | None = None
+    error_kind: str | None = None
 
     @property
     def problem(self) -> str | None:

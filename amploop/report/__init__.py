@@ -17,7 +17,7 @@ import matplotlib.pyplot as plt
 from matplotlib.backends.backend_pdf import PdfPages
 
 from amploop.corners.outputs import OutFolder, is_folder, safe_filename
-from amploop.errors import OutputError
+from amploop.errors import JobError, OutputError
 from amploop.report import selection, style
 from amploop.report.corner import corner_page
 from amploop.report.data import ReportData, load_report_data
@@ -95,15 +95,18 @@ def build_report(out: str | Path, *, pngs: bool = True, corner_pages: Iterable[s
 
     Raises
     ------
+    JobError
+        When ``out`` is not a folder or lacks results.json (the command line names no out
+        folder of amploop's).
     OutputError, JournalError
-        When the out folder lacks results.json or the journal entries it names, is used
-        by another run, or the report cannot be written.
+        When the out folder lacks the journal entries results.json names, is used by
+        another run, or the report cannot be written.
     JobError
         When a name in ``corner_pages`` is not a corner of the run.
     """
     started = time.perf_counter()
     if not is_folder(out):
-        raise OutputError("not a folder", file=out)
+        raise JobError("not a folder", file=out)
     folder = OutFolder(out)
     with folder.lock(join=True), load_report_data(folder.path) as data:
         pages_of = selection.corner_pages(data.results.get("corners", []), named=corner_pages,

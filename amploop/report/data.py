@@ -22,7 +22,7 @@ from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK
 from amploop.bench.probe import make_probe
 from amploop.corners.results import SCHEMA
 from amploop.corners.stepcheck import StepCheck, check_from_output
-from amploop.errors import JournalError, OutputError
+from amploop.errors import JobError, JournalError, OutputError
 from amploop.sim.journal import Journal
 from amploop.spice.units import describe_values
 from amploop.strategy.kinds import kind_label
@@ -190,8 +190,10 @@ def load_report_data(out: str | Path) -> ReportData:
 
     Raises
     ------
+    JobError
+        When results.json is missing (not an out folder of amploop's) or of another schema.
     OutputError
-        When results.json is missing or unreadable, or of another schema.
+        When results.json is unreadable.
     JournalError
         When the journal is missing, or (as a page asks for it) lacks an analysis
         results.json names.
@@ -200,15 +202,15 @@ def load_report_data(out: str | Path) -> ReportData:
     try:
         results = json.loads((out / "results.json").read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise OutputError("no results.json: not an amploop out folder", file=out) from None
+        raise JobError("no results.json: not an amploop out folder", file=out) from None
     except (OSError, ValueError) as exc:
         raise OutputError(f"cannot read results.json: {exc}", file=out) from None
     if not isinstance(results, dict) or results.get("schema") != SCHEMA:
         schema = results.get("schema") if isinstance(results, dict) else None
-        raise OutputError(f"results.json has schema {schema}; this amploop reads schema {SCHEMA}",
-                          file=out / "results.json",
-                          hint="run the same measure or tune again into this folder: the "
-                          "journal makes it quick") from None
+        raise JobError(f"results.json has schema {schema}; this amploop reads schema {SCHEMA}",
+                       file=out / "results.json",
+                       hint="run the same measure or tune again into this folder: the "
+                       "journal makes it quick") from None
     probe = make_probe(results.get("probe", "double-injection"))
     device = results.get("device")
     device_key = (device["name"], device["size"]) if device else None

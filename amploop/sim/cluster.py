@@ -112,10 +112,10 @@ def run_analysis(request: AnalysisRequest) -> tuple[str, object]:
 
     Returns
     -------
-    ("ok", AnalysisOutput) or ("error", problem)
-        ``problem`` is the SimulatorError's text (ngspice's failure, a crash after the
-        local pool's retries, or a time-out enforced by the local pool), with the
-        temporary folder taken out of any path it names.
+    ("ok", AnalysisOutput) or ("error", SimulatorError)
+        The SimulatorError (ngspice's failure, a crash after the local pool's retries, or
+        a time-out enforced by the local pool) keeps its kind; the temporary folder is
+        taken out of any path its problem names.
     """
     output: AnalysisOutput | SimulatorError | None = None
     root = ""
@@ -131,9 +131,10 @@ def run_analysis(request: AnalysisRequest) -> tuple[str, object]:
     except SimulatorError as exc:
         output = exc
     if output is None:
-        return "error", "the worker's local pool gave no answer"
+        return "error", SimulatorError("the worker's local pool gave no answer")
     if isinstance(output, SimulatorError):
-        return "error", output.problem.replace(root, "") if root else output.problem
+        return "error", SimulatorError(output.problem.replace(root, "") if root else
+                                       output.problem, kind=output.kind)
     return "ok", replace(output, messages=tuple(m.replace(root, "") for m in output.messages))
 
 
@@ -304,13 +305,14 @@ class ClusterPool:
             allowed = getattr(exc, "allowed_failures", None)
             tries = ("repeatedly" if allowed is None else "once" if allowed == 0
                      else f"{allowed + 1} times")
-            status, payload = "error", (
+            status, payload = "error", SimulatorError(
                 f"the Dask workers running this analysis died {tries} "
-                "(KilledWorker; distributed.scheduler.allowed-failures)")
+                "(KilledWorker; distributed.scheduler.allowed-failures)", kind="crash")
         except Exception as exc:  # noqa: BLE001 - cancelled, lost, or the task raised
             text = str(exc).splitlines()[0] if str(exc) else ""
-            status, payload = "error", f"on the Dask cluster: {type(exc).__name__}: {text}".rstrip(": ")
+            status, payload = "error", SimulatorError(
+                f"on the Dask cluster: {type(exc).__name__}: {text}".rstrip(": "))
         future.release()
         if status == "ok":
             return payload
-        return SimulatorError(payload, place=request.label)
+        return SimulatorError(payload.problem, place=request.label, kind=payload.kind)

@@ -154,7 +154,8 @@ def run_with_deadlines(
                 yield attempt.key, SimulatorError(
                     f"no answer from the Dask cluster within {limit:g} s (twice the time "
                     f"limit plus {grace_s:g} s), {attempt.attempt + 1} attempts: its workers "
-                    "are stopped, cut off or overloaded", place=attempt.request.label)
+                    "are stopped, cut off or overloaded", place=attempt.request.label,
+                    kind="timeout")
     finally:
         if flying and client.status == "running":
             client.cancel([a.future for a in flying.values()])
@@ -163,7 +164,7 @@ def run_with_deadlines(
 def _lost(address: str) -> SimulatorError:
     return SimulatorError(f"lost the connection to the Dask scheduler at {address}",
                           hint="finished analyses are kept in the journal: the same command "
-                          "reuses them once the scheduler is back")
+                          "reuses them once the scheduler is back", kind="crash")
 
 
 def _first_done(client, futures: list, wake: threading.Event, until: float,

@@ -30,7 +30,7 @@ import numpy as np
 from amploop.bench.requests import AnalysisOutput, AnalysisRequest
 from amploop.errors import SimulatorError
 
-__all__ = ["NgspiceSession", "summarise_failure"]
+__all__ = ["NgspiceSession", "failure_kind", "summarise_failure"]
 
 
 # ngspice messages that mean the step failed, whatever the rest says
@@ -52,6 +52,17 @@ _FATAL = [
     )
 ]
 _TRANSIENT_OP = re.compile(r"transient op started", re.IGNORECASE)
+# ngspice messages of an analysis that found no solution (its kind "convergence")
+_NO_SOLUTION = re.compile(
+    r"singular matrix|operating point failed|dc solution failed|timestep too small"
+    r"|gmin stepping failed|source stepping failed|iteration limit reached", re.IGNORECASE)
+
+
+def failure_kind(lines: list[str]) -> str:
+    """The :attr:`~amploop.errors.SimulatorError.kind` of an analysis step that failed with
+    ngspice's messages ``lines``: ``"convergence"`` when they say it found no solution (no
+    DC operating point, a singular matrix, a time step too small), else ``"failed"``."""
+    return "convergence" if any(_NO_SOLUTION.search(line) for line in lines) else "failed"
 
 
 #: Longest echo of a deck line kept in a failure's summary, characters (a BSIM4 instance
@@ -212,13 +223,14 @@ class NgspiceSession:
         ------
         SimulatorError
             On a parse error, a failed analysis (no DC solution, singular matrix), a
-            rejected command, or a vector that is not there. The problem text starts with
-            the kind of failure so callers can tell a bad netlist from a bad circuit.
+            rejected command, or a vector that is not there. Its ``kind`` tells a bad
+            netlist (``"parse"``) from a circuit without a solution (``"convergence"``).
         """
         import time
 
         if self.broken:
-            raise SimulatorError("ngspice session is no longer usable", place=request.label)
+            raise SimulatorError("ngspice session is no longer usable", place=request.label,
+                                 kind="crash")
         started = time.perf_counter()
         rc, out, err = self._load(request.deck)
         messages = out + err
@@ -228,7 +240,7 @@ class NgspiceSession:
             else:
                 self._free()
             raise SimulatorError(f"parse error: {summarise_failure(err or out)}",
-                                 place=request.label)
+                                 place=request.label, kind="parse")
         reads: list[dict[str, np.ndarray]] = []
         warnings: list[str] = []
         transient_op = False
@@ -249,7 +261,8 @@ class NgspiceSession:
                     failed = rc != 0 or plot == before or plot == "const"
                     if failed or any(p.search(line) for line in lines for p in _FATAL):
                         raise SimulatorError(f"{step.command.split()[0]} failed: "
-                                             f"{summarise_failure(lines)}", place=request.label)
+                                             f"{summarise_failure(lines)}", place=request.label,
+                                             kind=failure_kind(lines))
                     if any("gmin stepping" in line.lower() for line in lines):
                         warnings.append("operating point needed gmin stepping")
                 elif rc != 0 or any(p.search(line) for line in err for p in _FATAL):

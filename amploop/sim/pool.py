@@ -90,10 +90,10 @@ def _worker_main(conn) -> None:
         task_id, request = message
         try:
             reply = (task_id, "ok", _with_after(request, session.run(request)))
-        except SimulatorError as exc:
-            reply = (task_id, "error", exc.problem)
+        except SimulatorError as exc:  # pickled whole: its kind travels with it
+            reply = (task_id, "error", exc)
         except Exception as exc:  # noqa: BLE001 - an unexpected failure of one analysis
-            reply = (task_id, "error", f"internal error in the worker: {exc!r}")
+            reply = (task_id, "error", SimulatorError(f"internal error in the worker: {exc!r}"))
         send_frame(conn, reply + (session.broken,))
         if session.broken:
             conn.close()
@@ -269,12 +269,12 @@ class WorkerPool:
                 yield head.key, SimulatorError(
                     "its worker process stopped half-way through sending the answer, "
                     f"past the time limit of {head.request.time_limit_s:g} s "
-                    f"({head.attempt + 1} attempts)", place=head.request.label)
+                    f"({head.attempt + 1} attempts)", place=head.request.label, kind="crash")
             else:
                 how = f"signal {-code}" if code is not None and code < 0 else f"code {code}"
                 yield head.key, SimulatorError(
                     f"ngspice crashed: its worker process ended with {how} "
-                    f"({head.attempt + 1} attempts)", place=head.request.label)
+                    f"({head.attempt + 1} attempts)", place=head.request.label, kind="crash")
 
     def _failed_start(self, worker: _Worker, how: str) -> None:
         """Count a worker that never became ready; the third in a row ends the run."""
@@ -285,6 +285,7 @@ class WorkerPool:
                 f"ngspice worker processes {how}",
                 hint="check that ngspice's shared library is installed; a script "
                 "that calls amploop needs the `if __name__ == \"__main__\":` guard",
+                kind="crash",
             )
 
     def _collect(self, pending: deque) -> Iterator[tuple[Hashable, object]]:
@@ -312,7 +313,7 @@ class WorkerPool:
                     self._failed_starts = 0
                 elif message[0] == "fatal":
                     self._retire(worker, kill=True)
-                    raise SimulatorError(message[1])
+                    raise SimulatorError(message[1], kind="crash")
                 elif worker.queue and message[0] == worker.queue[0].task_id:
                     task = worker.queue.popleft()
                     worker.head_since = time.monotonic()
@@ -335,7 +336,8 @@ class WorkerPool:
             if status == "ok":
                 yield task.key, payload
             else:
-                yield task.key, SimulatorError(payload, place=task.request.label)
+                yield task.key, SimulatorError(payload.problem, place=task.request.label,
+                                               kind=payload.kind)
         # time limits: the start of each new worker, the running (head) task of each other
         now = time.monotonic()
         for worker in list(self._workers):
@@ -354,4 +356,4 @@ class WorkerPool:
                 self._retire(worker, kill=True)
                 yield head.key, SimulatorError(
                     f"time-out: the analysis ran longer than {head.request.time_limit_s:g} s "
-                    "([analysis].time_limit)", place=head.request.label)
+                    "([analysis].time_limit)", place=head.request.label, kind="timeout")

@@ -407,7 +407,7 @@ class Evaluator:
         found: dict[str, dict[str, float]] = {}
         for name, output, _ in self.runner.run(list(benches.items())):
             if isinstance(output, SimulatorError):
-                raise SimulatorError(output.problem, place=name)
+                raise SimulatorError(output.problem, place=name, kind=output.kind)
             assert isinstance(output, AnalysisOutput)
             found[name] = {q: float(output.reads[1 + k][f"amploop_{q}"].real[0])
                            for k, q in enumerate(names)}

@@ -19,7 +19,7 @@ from amploop.corners.measure import JOURNAL_FILE
 from amploop.corners.outputs import OutFolder, remove_stale
 from amploop.corners.results import SCHEMA, CornerResult
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
-from amploop.errors import JobError, JournalError
+from amploop.errors import JobError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool
 from amploop.sim.runner import Runner
@@ -235,8 +235,8 @@ def tune(
     amplifier = prepare_amplifier(job, allow_control=allow_control)
     if out is None:
         if resume:
-            raise JournalError("nothing to resume without an out folder",
-                               hint="give the out folder of the run to resume")
+            raise JobError("nothing to resume without an out folder",
+                           hint="give the out folder of the run to resume")
         with tempfile.TemporaryDirectory(prefix="amploop-tune-") as scratch, \
                 Journal(Path(scratch) / JOURNAL_FILE) as journal:
             return _tune_into(job, amplifier, None, journal, strategy, workers, pool,
@@ -244,8 +244,8 @@ def tune(
     folder = OutFolder(out)
     journal_path = folder.path / JOURNAL_FILE
     if resume and not journal_path.exists():
-        raise JournalError("nothing to resume: this out folder has no journal", file=folder.path,
-                           hint="run without --resume to start")
+        raise JobError("nothing to resume: this out folder has no journal", file=folder.path,
+                       hint="run without --resume to start")
     with folder.lock(), Journal(journal_path) as journal:
         return _tune_into(job, amplifier, folder, journal, strategy, workers, pool, progress,
                           time_domain, finish, started)
