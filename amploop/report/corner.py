@@ -30,6 +30,22 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     """
     corner = data.corner(name)
     fig = new_page()
+    _heading(fig, data, name, corner)
+    mag, phase = _bode(fig, data.curves.get(name, []))
+    final = data.finals.get(name)
+    if final is not None:
+        notes = _margins(mag, phase, final, target_pm) + _device_notes(data, name)
+    else:
+        notes = []
+        mag.text(0.5, 0.5, f"not measured: {corner.get('error')}", transform=mag.transAxes,
+                 ha="center", color=style.LIMIT, wrap=True)
+    _side_panel(fig, mag, notes, data.steps.get(name), corner)
+    return fig
+
+
+def _heading(fig, data: ReportData, name: str, corner: dict) -> None:
+    """The corner's name (red when it limits), its lib, temperature and parameters, and
+    its status badge."""
     limiting = name == data.limiting_corner
     title = f"Corner {name}" + ("  — limiting corner" if limiting else "")
     fig.text(0.06, 0.95, title, fontsize=13, weight="bold",
@@ -42,9 +58,13 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     fig.text(0.95, 0.95, status.upper(), fontsize=12, color="white", weight="bold", ha="right",
              bbox=dict(boxstyle="round,pad=0.35", edgecolor="none", facecolor={
                  "ok": style.FINAL, "suspect": style.SUSPECT}.get(status, style.LIMIT)))
+
+
+def _bode(fig, curves: list):
+    """The magnitude and phase axes with every curve of the corner (final, start, the
+    steps between); returns ``(mag, phase)``."""
     mag = fig.add_axes((0.07, 0.52, 0.6, 0.36))
     phase = fig.add_axes((0.07, 0.1, 0.6, 0.36), sharex=mag)
-    curves = data.curves.get(name, [])
     steps = [c for c in curves if c.kind == "step"]
     for curve in curves:
         if curve.kind == "final":
@@ -63,49 +83,63 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     phase.set_xlabel("frequency")
     phase.xaxis.set_major_formatter(style.hertz)
     plt.setp(mag.get_xticklabels(), visible=False)
-    final = data.finals.get(name)
+    return mag, phase
+
+
+def _margins(mag, phase, final, target_pm: float | None) -> list[str]:
+    """Limits set to the final curve, the margins drawn on it (and the target phase margin,
+    degrees, when given); the notes for the side panel."""
     notes = []
-    if final is not None:
-        m = loop_margins(final)
-        low = max(-270.0, float(np.nanmin(final.phase_deg)) - 10)
-        phase.set_ylim(low, max(20.0, float(np.nanmax(final.phase_deg)) + 10))
-        mag.set_ylim(max(-80.0, float(np.nanmin(final.magnitude_db)) - 5),
-                     float(np.nanmax(final.magnitude_db)) + 8)
-        if m.unity_gain_hz is not None:
-            fu, pm = m.unity_gain_hz, m.phase_margin_deg
-            for ax in (mag, phase):
-                ax.axvline(fu, color=style.FINAL, lw=0.8, ls=":")
-            phase.annotate("", xy=(fu, pm - 180), xytext=(fu, -180),
-                           arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
-            phase.text(fu * 1.25, -180 + pm / 2, f"phase\nmargin\n{pm:.2f}°", color=style.LIMIT,
-                       fontsize=8.5, va="center", ha="left",
-                       bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
-            mag.text(fu * 1.15, 2, f"crossover {engineering(fu, 'Hz')}", color=style.FINAL,
-                     fontsize=9, va="bottom")
-            notes += [f"unity gain {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
-            if target_pm is not None:
-                phase.axhline(target_pm - 180, color=style.LIMIT, lw=0.7, ls="--")
-                phase.text(final.frequency_hz[0] * 1.3, target_pm - 180 + 2,
-                           f"target {target_pm:g}° of margin", color=style.LIMIT, fontsize=7.5)
-        if m.gain_margin_db is not None:
-            fx, gm = m.phase_crossover_hz, m.gain_margin_db
-            mag.annotate("", xy=(fx, -gm), xytext=(fx, 0),
-                         arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
-            mag.text(fx * 1.25, -gm / 2, f"gain margin\n{gm:.1f} dB", color=style.LIMIT,
-                     fontsize=8.5, va="center",
-                     bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
-            phase.axvline(fx, color=style.LIMIT, lw=0.6, ls=":")
-            notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
-        notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
-        device = data.results.get("device")
-        info = data.device_corner(name)
-        if info is not None:
-            notes.append(f"{device['name']}: {engineering(info['resistance_ohm'], 'Ω', 4)} "
-                         f"(square law {engineering(info['square_law_ohm'], 'Ω', 3)})")
-            notes.append(f"  this corner alone would want {engineering(info['wanted_rc_ohm'], 'Ω', 4)}")
-    else:
-        mag.text(0.5, 0.5, f"not measured: {corner.get('error')}", transform=mag.transAxes,
-                 ha="center", color=style.LIMIT, wrap=True)
+    m = loop_margins(final)
+    low = max(-270.0, float(np.nanmin(final.phase_deg)) - 10)
+    phase.set_ylim(low, max(20.0, float(np.nanmax(final.phase_deg)) + 10))
+    mag.set_ylim(max(-80.0, float(np.nanmin(final.magnitude_db)) - 5),
+                 float(np.nanmax(final.magnitude_db)) + 8)
+    if m.unity_gain_hz is not None:
+        fu, pm = m.unity_gain_hz, m.phase_margin_deg
+        for ax in (mag, phase):
+            ax.axvline(fu, color=style.FINAL, lw=0.8, ls=":")
+        phase.annotate("", xy=(fu, pm - 180), xytext=(fu, -180),
+                       arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+        phase.text(fu * 1.25, -180 + pm / 2, f"phase\nmargin\n{pm:.2f}°", color=style.LIMIT,
+                   fontsize=8.5, va="center", ha="left",
+                   bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+        mag.text(fu * 1.15, 2, f"crossover {engineering(fu, 'Hz')}", color=style.FINAL,
+                 fontsize=9, va="bottom")
+        notes += [f"unity gain {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
+        if target_pm is not None:
+            phase.axhline(target_pm - 180, color=style.LIMIT, lw=0.7, ls="--")
+            phase.text(final.frequency_hz[0] * 1.3, target_pm - 180 + 2,
+                       f"target {target_pm:g}° of margin", color=style.LIMIT, fontsize=7.5)
+    if m.gain_margin_db is not None:
+        fx, gm = m.phase_crossover_hz, m.gain_margin_db
+        mag.annotate("", xy=(fx, -gm), xytext=(fx, 0),
+                     arrowprops=dict(arrowstyle="<->", color=style.LIMIT, lw=1.2))
+        mag.text(fx * 1.25, -gm / 2, f"gain margin\n{gm:.1f} dB", color=style.LIMIT,
+                 fontsize=8.5, va="center",
+                 bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+        phase.axvline(fx, color=style.LIMIT, lw=0.6, ls=":")
+        notes.append(f"gain margin {gm:.1f} dB at {engineering(fx, 'Hz')}")
+    notes.insert(0, f"DC loop gain {m.dc_loop_gain_db:.1f} dB")
+    return notes
+
+
+def _device_notes(data: ReportData, name: str) -> list[str]:
+    """The resistance of the MOSFET standing in for Rc at this corner, in ohms, and what
+    the corner alone would want (none without such a device)."""
+    notes = []
+    device = data.results.get("device")
+    info = data.device_corner(name)
+    if info is not None:
+        notes.append(f"{device['name']}: {engineering(info['resistance_ohm'], 'Ω', 4)} "
+                     f"(square law {engineering(info['square_law_ohm'], 'Ω', 3)})")
+        notes.append(f"  this corner alone would want {engineering(info['wanted_rc_ohm'], 'Ω', 4)}")
+    return notes
+
+
+def _side_panel(fig, mag, notes: list[str], step, corner: dict) -> None:
+    """The legend, the final values' notes, the step figures and the status lines, down
+    the right-hand side of the page."""
     handles, labels = mag.get_legend_handles_labels()
     if handles:
         fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(0.69, 0.89),
@@ -115,7 +149,6 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
     for note in notes:
         fig.text(0.695, y, note, fontsize=9)
         y -= 0.03
-    step = data.steps.get(name)
     if step is not None and step.metrics is not None:
         settle = shown_value(step.metrics.settling_s, "", "s")
         fig.text(0.695, y - 0.01, f"step response: overshoot {step.metrics.overshoot_pct:.2f} %,\n"
@@ -127,4 +160,3 @@ def corner_page(data: ReportData, name: str, target_pm: float | None):
         for part in textwrap.wrap(line, 56):
             fig.text(0.695, y, part, fontsize=7.5, color=colour)
             y -= 0.019
-    return fig
