@@ -204,7 +204,7 @@ def _run_tune(args) -> ExitCode:
         data = result.as_json()
         if args.json:
             print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
-                                                   "limiting_corner", "worst", "ac_analyses")}
+                                                   "worst", "ac_analyses")}
                              | {"message": result.outcome.message, "out": str(result.out)}))
         elif not args.quiet:
             values = values_line(job, result.outcome.values)

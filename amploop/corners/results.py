@@ -11,9 +11,10 @@ from amploop.analysis.loopgain import FrequencyResponse
 from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.spec.model import Corner, Job, OperatingPointLimits
+from amploop.spice.labels import JOURNAL_KEY
 
 #: The version of results.json's layout.
-SCHEMA = 1
+SCHEMA = 2
 
 __all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_loop_gain"]
 
@@ -143,7 +144,7 @@ class MeasureResult:
         corners = []
         for c in self.corners:
             data = with_step(c.as_json(), self.step_checks.get(c.corner.name))
-            data["analysis"] = self.keys.get(c.corner.name)
+            data[JOURNAL_KEY] = self.keys.get(c.corner.name)
             corners.append(data)
         return {
             "schema": SCHEMA,

@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 import re
 
+from amploop.spice.labels import ROLE_LABELS
+
 __all__ = ["SCALE_SUFFIXES", "describe_values", "engineering", "parse_value", "spice_number"]
 
 #: SPICE scale suffixes (case-insensitive, as in SPICE). ``meg`` must be tried before ``m``.
@@ -147,10 +149,10 @@ def describe_values(values: dict[str, float], *, equals: str = " = ", joiner: st
     """
     parts = []
     if "cc" in values:
-        parts.append(f"Cc{equals}{engineering(values['cc'], 'F', 4)}")
+        parts.append(f"{ROLE_LABELS['cc']}{equals}{engineering(values['cc'], 'F', 4)}")
     if "rc" in values and device is not None:
         name, size = device
         parts.append(f"{name} {size}{equals}{engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
     elif "rc" in values:
-        parts.append(f"Rc{equals}{engineering(values['rc'], 'Ω', 4)}")
+        parts.append(f"{ROLE_LABELS['rc']}{equals}{engineering(values['rc'], 'Ω', 4)}")
     return joiner.join(parts)

@@ -181,14 +181,13 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
     report["sample_resistance_ohm"] = rounds[-1]["resistance_ohm"]
     report["start"] = start_note
     extra = {"rounds": rounds, "device": report}
-    label = f"{device.name} {device.size} = {engineering(verified.values['rc'], 'm', 4)}"
-    values_text = f"Cc = {engineering(verified.values['cc'], 'F', 4)}, {label}"
+    values_text = describe_device_values(verified.values, device)
     if not solution.feasible:
         return Outcome("infeasible", verified.values, verified,
                        f"no Cc and {device.name} size within the bounds meets "
                        f"{target.phase_margin_deg:g}° at every corner: the best reachable "
                        f"worst-corner phase margin is {worst.phase_margin_deg:.2f}° (corner "
-                       f"{worst.limiting_corner}) at {values_text}", extra)
+                       f"{worst.phase_margin_corner}) at {values_text}", extra)
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
         return Outcome("failed", verified.values, verified,
                        f"the maps and the simulation still disagree by "
@@ -199,7 +198,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
         return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° (corner "
-                   f"{worst.limiting_corner}) at {values_text}", extra)
+                   f"{worst.phase_margin_corner}) at {values_text}", extra)
 
 
 def _starting_size(evaluator: Evaluator, in_effect: dict[str, float],
@@ -269,5 +268,4 @@ def _device_report(evaluator: Evaluator, verified: PointResult, maps, target: Ta
 
 def describe_device_values(values: dict[str, float], device) -> str:
     """``"Cc = 292.8 fF, Mz w = 2.1 µm"``."""
-    text = describe_values({"cc": values["cc"]})
-    return f"{text}, {device.name} {device.size} = {engineering(values['rc'], 'm', 4)}"
+    return describe_values(values, device=(device.name, device.size))

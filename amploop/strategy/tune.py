@@ -25,6 +25,7 @@ from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool
 from amploop.sim.runner import Runner
 from amploop.spec.model import Job
+from amploop.spice.labels import PHASE_MARGIN_CORNER, UNITY_GAIN_CORNER
 from amploop.strategy import STRATEGIES, Evaluator, Outcome
 from amploop.strategy.common import Evaluator as _Evaluator
 from amploop.strategy.common import HistoryEntry, bounds_of
@@ -117,12 +118,12 @@ class TuneResult:
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
-            "limiting_corner": worst.limiting_corner if worst else None,
             "worst": None if worst is None else {
                 "phase_margin_deg": worst.phase_margin_deg,
                 "unity_gain_hz": worst.unity_gain_hz,
                 "gain_margin_db": worst.gain_margin_db,
-                "bandwidth_corner": worst.bandwidth_corner,
+                PHASE_MARGIN_CORNER: worst.phase_margin_corner,
+                UNITY_GAIN_CORNER: worst.unity_gain_corner,
             },
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
             "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
