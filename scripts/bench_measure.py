@@ -118,7 +118,7 @@ def raw_pyspice(decks: list[str], steps, reps: int) -> float:
             ngspice.load_circuit(deck)
             for command in steps:
                 lib.ngSpice_Command(command.encode())
-            for name in ("ac1.v(tb_out)", "ac1.v(tb_fb)", "ac2.i(vprobe)"):
+            for name in ("ac1.v(tb_out)", "ac1.v(tb_fb)", "ac2.i(vtb_series)"):
                 info = lib.ngGet_Vec_Info(name.encode())
                 bytes(ffi.buffer(info.v_compdata, info.v_length * 16))
             lib.ngSpice_Command(b"destroy all")

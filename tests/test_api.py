@@ -243,6 +243,6 @@ def test_measure_json_carries_the_margins_and_the_limiting_corner(measured, caps
         assert entry["gain_margin_db"] == pytest.approx(c.margins.gain_margin_db)
         assert entry["unity_gain_hz"] == pytest.approx(c.margins.unity_gain_hz)
     lowest = min(result.corners, key=lambda c: c.margins.phase_margin_deg)
-    assert summary["limiting_corner"] == lowest.corner.name
+    assert summary["worst"]["phase_margin_corner"] == lowest.corner.name
     assert summary["worst"]["phase_margin_deg"] == pytest.approx(lowest.margins.phase_margin_deg)
     assert summary["failed_corners"] == [] and summary["out"] == str(Path(folder).resolve())

@@ -58,7 +58,7 @@ def test_a_damaged_record_is_recomputed_and_reported_in_one_line(tmp_path, capsy
     victim = first["corners"][2]
     journal = out / "journal.sqlite"
     assert not journal.with_name("journal.sqlite-wal").exists()  # closed: all in the file
-    assert damage_record(journal, victim["analysis"]) > 10_000
+    assert damage_record(journal, victim["journal_key"]) > 10_000
     with sqlite3.connect(journal) as db:  # the premise: SQLite itself sees nothing wrong
         assert db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     db.close()
@@ -79,7 +79,7 @@ def test_a_damaged_record_is_recomputed_and_reported_in_one_line(tmp_path, capsy
 def test_the_report_refuses_a_damaged_record_in_one_line(tmp_path, capsys):
     out = tmp_path / "out"
     first, _ = measure_demo(out, capsys)
-    key = first["corners"][0]["analysis"]
+    key = first["corners"][0]["journal_key"]
     damage_record(out / "journal.sqlite", key)
     with Journal(out / "journal.sqlite", readonly=True) as journal, \
             pytest.raises(JournalError, match="damaged: checksum mismatch"):

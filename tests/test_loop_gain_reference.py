@@ -9,6 +9,8 @@ over 1 Hz–1 GHz, phase margin 0.05°, unity-gain frequency 0.1 %, DC loop gain
 
 from __future__ import annotations
 
+import subprocess
+
 import numpy as np
 import pytest
 from nodal import Macromodel, exact_loop_gain
@@ -88,6 +90,32 @@ def test_lc_break_misses_the_loading_that_double_injection_keeps(macro_job, tmp_
     assert naive.margins.dc_loop_gain_db - dc_db == pytest.approx(loading_db, abs=0.05)
     assert pm - naive.margins.phase_margin_deg > 3.0
     assert naive.margins.unity_gain_hz / ugf - 1 > 0.10
+
+
+@pytest.mark.parametrize("probe", ["double-injection", "lc"])
+def test_the_written_deck_gives_the_loop_gain_amploop_measured(probe, macro_job, tmp_path):
+    """Reference: ngspice itself, in batch mode (``ngspice -b``) on the deck ``measure``
+    leaves in decks/, computing the loop gain with the probe's own formula in the deck's
+    ``.control`` block; amploop's loop gain (from the vectors it read) must agree at every
+    frequency, and at 10 Hz, 1 MHz and 100 MHz in particular (wrdata keeps 9 digits)."""
+    out = tmp_path / "out"
+    corner = measure(load_job(macro_job(RESISTIVE, probe=probe)), out=out,
+                     workers=1).corners[0]
+    assert corner.status == "ok", corner.error
+    decks = out / "decks"
+    deck = decks / f"{corner.corner.name}.cir"
+    assert "let loop_gain" in deck.read_text()
+    proc = subprocess.run(["ngspice", "-b", deck.name], cwd=decks, capture_output=True,
+                          text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stdout[-800:] + proc.stderr[-800:]
+    by_hand = np.loadtxt(decks / f"{corner.corner.name}-loop_gain.txt")
+    measured = corner.loop_gain
+    np.testing.assert_allclose(by_hand[:, 0], measured.frequency_hz, rtol=1e-8)
+    np.testing.assert_allclose(by_hand[:, 1] + 1j * by_hand[:, 2], measured.values, rtol=1e-6)
+    for f in (10.0, 1e6, 1e8):
+        i = int(np.argmin(np.abs(measured.frequency_hz - f)))
+        assert abs(by_hand[i, 1] + 1j * by_hand[i, 2] - measured.values[i]) \
+            < 1e-6 * abs(measured.values[i])
 
 
 def test_margins_of_several_corners_each_match(macro_job, tmp_path):

@@ -165,7 +165,7 @@ def test_report_holds_every_page_corner_and_value(demo_report):
     assert (cc, rc) == ("292.8 fF", "20 kΩ")  # the demo's tuned values, as README shows
     summary = pages[0].splitlines()
     assert f"Chosen: Cc = {cc}, Rc = {rc}" in [line.strip() for line in summary]
-    limiting = results["limiting_corner"]
+    limiting = results["worst"]["phase_margin_corner"]
     assert limiting in {c["name"] for c in corners}
     worst_pm = f"{results['worst']['phase_margin_deg']:.2f}"
     assert f"worst-corner phase margin {worst_pm}° (corner {limiting})" in pages[0]
@@ -236,6 +236,19 @@ def test_report_of_a_folder_without_results_is_one_line(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert len(err.strip().splitlines()) == 1 and "results.json" in err
+
+
+def test_report_of_an_older_results_json_says_to_run_again_in_one_line(tmp_path, capsys):
+    """A results.json of schema 1 names its journal keys as ``analysis``: refused, with
+    what to do, before the journal is opened."""
+    (tmp_path / "results.json").write_text(json.dumps(
+        {"schema": 1, "command": "measure", "job": "old", "status": "ok", "corners": []}))
+    code = main(["report", str(tmp_path)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert len(err.strip().splitlines()) == 1, err
+    assert "results.json" in err and "schema 1" in err and "again" in err
+    assert "Traceback" not in err
 
 
 def test_report_reads_a_journal_in_a_folder_whose_name_looks_like_a_uri(macro_job, tmp_path,

@@ -137,7 +137,7 @@ def test_tune_command_prints_the_result_and_exits_0(tmp_path, capsys):
     assert code == 0
     summary = json.loads(out.strip().splitlines()[-1])
     assert summary["status"] == "converged" and summary["strategy"] == "map"
-    assert summary["limiting_corner"] in summary["message"]
+    assert summary["worst"]["phase_margin_corner"] in summary["message"]
 
 
 def test_infeasible_exits_3_and_says_why(tmp_path, capsys):

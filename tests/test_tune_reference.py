@@ -189,7 +189,8 @@ def test_map_tuning_meets_the_target_within_tolerance(tuned):
     data = json.loads((out / "results.json").read_text())
     assert data["status"] == "converged" and data["command"] == "tune"
     assert data["values"]["cc"] == result.outcome.values["cc"]
-    assert data["limiting_corner"] in CORNERS
+    assert data["worst"]["phase_margin_corner"] in CORNERS
+    assert data["worst"]["unity_gain_corner"] in CORNERS
     assert data["target"] == {"phase_margin_deg": TARGET_PM, "tolerance_deg": TOLERANCE,
                               "gain_margin_db": GM_MIN}
 
@@ -232,7 +233,7 @@ def test_infeasible_is_an_answer(tmp_path):
     worst = result.outcome.final.worst
     assert worst.phase_margin_deg < TARGET_PM
     assert result.outcome.values["cc"] == pytest.approx(2e-13)  # the most Cc allowed
-    assert worst.limiting_corner in result.outcome.message
+    assert worst.phase_margin_corner in result.outcome.message
     assert f"{worst.phase_margin_deg:.2f}" in result.outcome.message
     data = json.loads((tmp_path / "out" / "results.json").read_text())
     assert data["status"] == "infeasible"

@@ -17,7 +17,7 @@ import pytest
 from conftest import DEMO
 
 from amploop.cli import main
-from amploop.cli.terminal import corner_table
+from amploop.cli.terminal import corner_table, values_line
 from amploop.corners.measure import measure
 from amploop.spec.job import load_job
 from amploop.spec.model import Knob, Target
@@ -108,6 +108,25 @@ def test_a_missed_gain_margin_is_named_with_its_corner_and_marked(demo_corners):
         else:
             assert row.rstrip().endswith("ok"), row
     assert missed_target(demo_corners, Target(phase_margin_deg=60.0, gain_margin_db=10.0)) is None
+
+
+def test_the_terminal_uses_the_words_of_the_report_and_results_json(demo_corners):
+    """One name for one thing: the table's headings read as the report's summary table
+    ("DC loop gain (dB)", never "DC gain dB"), and the values line names the roles Cc and
+    Rc as the report and the messages do, whatever the job's keys are."""
+    from amploop.report.summary import _HEADER
+
+    table = corner_table(demo_corners).splitlines()
+    rule = next(i for i, line in enumerate(table) if set(line) <= {"-", " "})
+    words = " ".join(" ".join(line.split()) for line in table[:rule])
+    for heading in ("DC loop gain", "(dB)", "unity-gain", "frequency", "phase margin",
+                    "gain margin", "crossover"):
+        assert heading in words, table[:rule]
+    assert "DC gain dB" not in words and "PM deg" not in words, words
+    assert [" ".join(h.split()) for h in _HEADER[1:5]] == [
+        "DC loop gain (dB)", "unity-gain frequency", "phase margin (°)", "gain margin (dB)"]
+    job = load_job(DEMO / "job.toml")
+    assert values_line(job, {"cc": 292.8e-15, "rc": 20e3}) == "Cc = 292.8 fF, Rc = 20 kΩ"
 
 
 def test_a_shortfall_shows_the_digits_that_make_it_one(demo_corners):

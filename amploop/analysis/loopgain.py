@@ -67,14 +67,14 @@ def unwrap_from_dc(values: np.ndarray) -> np.ndarray:
 
 
 def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
-                     i_probe_run2: np.ndarray) -> np.ndarray:
+                     i_series_run2: np.ndarray) -> np.ndarray:
     """Loop gain from a series-voltage and a shunt-current injection at one break point.
 
     The loop is broken between the amplifier side ``a`` and the feedback side ``b`` by a
-    voltage source ``Vprobe b a`` (AC 1 in run 1), with a current source from ground
-    into ``a`` (AC 1 in run 2). With the voltage loop gain Tv = −v(a)/v(b) (run 1) and
-    the current loop gain Ti = −iy/ix (run 2, ix = −i(Vprobe) flowing from ``a`` into
-    the feedback side), the true loop gain is
+    series voltage source from ``b`` (+) to ``a`` (AC 1 in run 1), with a current source
+    from ground into ``a`` (AC 1 in run 2). With the voltage loop gain Tv = −v(a)/v(b)
+    (run 1) and the current loop gain Ti = −iy/ix (run 2, ix = −(the series source's
+    current) flowing from ``a`` into the feedback side), the true loop gain is
 
         T = (Tv·Ti − 1) / (Tv + Ti + 2),  equivalently  1/(1+T) = 1/(1+Tv) + 1/(1+Ti)
 
@@ -87,8 +87,8 @@ def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
     ----------
     v_a_run1, v_b_run1
         Node voltages (complex, V per V injected) either side of the probe in run 1.
-    i_probe_run2
-        ngspice's branch current of ``Vprobe`` in run 2 (A per A injected; positive from
+    i_series_run2
+        ngspice's branch current of the series source in run 2 (A per A injected; positive from
         its + terminal ``b`` through it to ``a``).
 
     Returns
@@ -97,7 +97,7 @@ def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
         Complex loop gain.
     """
     del v_a_run1  # implied by v(b) − v(a) = 1; kept in the signature for clarity of the probe
-    ix = -np.asarray(i_probe_run2, dtype=complex)
+    ix = -np.asarray(i_series_run2, dtype=complex)
     return 1.0 / (np.asarray(v_b_run1, dtype=complex) + ix) - 1.0
 
 

@@ -27,7 +27,10 @@ import numpy as np
 from amploop.analysis.loopgain import FrequencyResponse, double_injection, voltage_break
 from amploop.bench.requests import Step
 
-__all__ = ["DoubleInjection", "LcBreak", "Probe", "make_probe"]
+__all__ = ["RERUN_VECTOR", "DoubleInjection", "LcBreak", "Probe", "make_probe"]
+
+#: The vector a hand-runnable deck's formula (:meth:`Probe.rerun_formula`) defines.
+RERUN_VECTOR = "loop_gain"
 
 
 class Probe:
@@ -65,6 +68,18 @@ class Probe:
         """
         raise NotImplementedError
 
+    def rerun_formula(self, a: str, b: str) -> list[str]:
+        """The ``.control`` lines of a hand-runnable deck that set the vector
+        :data:`RERUN_VECTOR` to the loop gain, after the commands of :meth:`steps` ran in a
+        fresh ngspice session (its AC runs are then the plots ``ac1``, ``ac2``, …).
+
+        Parameters
+        ----------
+        a, b
+            The amplifier-side and the feedback-side node of the break.
+        """
+        raise NotImplementedError
+
 
 @dataclass(frozen=True)
 class DoubleInjection(Probe):
@@ -77,32 +92,46 @@ class DoubleInjection(Probe):
     """
 
     name: str = "double-injection"
+    #: The series voltage injection source, and the shunt current injection source.
+    series_source = "Vtb_series"
+    shunt_source = "Itb_shunt"
+
+    @property
+    def _series_current(self) -> str:
+        """ngspice's vector of the series source's branch current."""
+        return f"i({self.series_source.lower()})"
 
     def elements(self, a: str, b: str) -> list[str]:
-        """``Vprobe`` with its + terminal at ``b`` and its − at ``a`` (AC 1), and ``Iprobe``
-        from ground into ``a`` (AC 0 until the second run)."""
+        """The series source with its + terminal at ``b`` and its − at ``a`` (AC 1), and the
+        shunt source from ground into ``a`` (AC 0 until the second run)."""
         return [
-            f"Vprobe {b} {a} dc 0 ac 1",
-            f"Iprobe 0 {a} dc 0 ac 0",
+            f"{self.series_source} {b} {a} dc 0 ac 1",
+            f"{self.shunt_source} 0 {a} dc 0 ac 0",
         ]
 
     def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
         """Run 1 of ``ac_command`` with the voltage injection (reads v(``a``) and v(``b``)),
         the two ``alter`` commands that swap the injections, and run 2 with the current
-        injection (reads i(vprobe))."""
+        injection (reads the series source's current)."""
         return (
             Step(ac_command, ("frequency", f"v({a})", f"v({b})")),
-            Step("alter vprobe acmag=0"),
-            Step("alter iprobe acmag=1"),
-            Step(ac_command, ("frequency", "i(vprobe)")),
+            Step(f"alter {self.series_source.lower()} acmag=0"),
+            Step(f"alter {self.shunt_source.lower()} acmag=1"),
+            Step(ac_command, ("frequency", self._series_current)),
         )
 
     def loop_gain(self, reads, a, b):
-        """T from run 1's v(``a``) and v(``b``) and run 2's i(vprobe) in ``reads``
-        (:func:`~amploop.analysis.loopgain.double_injection`)."""
+        """T from run 1's v(``a``) and v(``b``) and run 2's series-source current in
+        ``reads`` (:func:`~amploop.analysis.loopgain.double_injection`)."""
         run1, run2 = reads[0], reads[3]
-        values = double_injection(run1[f"v({a})"], run1[f"v({b})"], run2["i(vprobe)"])
+        values = double_injection(run1[f"v({a})"], run1[f"v({b})"], run2[self._series_current])
         return FrequencyResponse(np.real(run1["frequency"]), values)
+
+    def rerun_formula(self, a, b):
+        """T = 1/(v(``b``) of run 1 − the series source's current of run 2) − 1
+        (:func:`~amploop.analysis.loopgain.double_injection`; v(``a``) is implied by
+        v(``b``) − v(``a``) = 1)."""
+        return [f"let {RERUN_VECTOR} = 1/(ac1.v({b}) - ac2.{self._series_current}) - 1"]
 
 
 @dataclass(frozen=True)
@@ -124,12 +153,12 @@ class LcBreak(Probe):
     capacitance_f: float = 1.0
 
     def elements(self, a: str, b: str) -> list[str]:
-        """``Lprobe`` from ``a`` to ``b``, and ``Cprobe`` from ``b`` to an AC 1 source to
-        ground."""
+        """``Ltb_break`` from ``a`` to ``b``, and ``Ctb_drive`` from ``b`` to ``Vtb_drive``,
+        an AC 1 source to ground."""
         return [
-            f"Lprobe {a} {b} {self.inductance_h:.17g}",
-            f"Cprobe {b} probe_drive {self.capacitance_f:.17g}",
-            "Vprobe probe_drive 0 dc 0 ac 1",
+            f"Ltb_break {a} {b} {self.inductance_h:.17g}",
+            f"Ctb_drive {b} tb_drive {self.capacitance_f:.17g}",
+            "Vtb_drive tb_drive 0 dc 0 ac 1",
         ]
 
     def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
@@ -142,6 +171,11 @@ class LcBreak(Probe):
         run = reads[0]
         return FrequencyResponse(np.real(run["frequency"]),
                                  voltage_break(run[f"v({a})"], run[f"v({b})"]))
+
+    def rerun_formula(self, a, b):
+        """T = −v(``a``)/v(``b``) of the one run
+        (:func:`~amploop.analysis.loopgain.voltage_break`)."""
+        return [f"let {RERUN_VECTOR} = -v({a})/v({b})"]
 
 
 def make_probe(kind: str) -> Probe:

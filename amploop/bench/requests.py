@@ -23,10 +23,10 @@ class Step:
     Attributes
     ----------
     command
-        An ngspice command: ``"ac dec 40 1 10G"``, ``"alter vprobe acmag=0"``, ``"op"``.
+        An ngspice command: ``"ac dec 40 1 10G"``, ``"alter vtb_series acmag=0"``, ``"op"``.
     read
         Vector names as ngspice knows them in that plot: ``"frequency"``, ``"v(tb_out)"``,
-        ``"i(vprobe)"``, ``"@m.x1.m1[gm]"``.
+        ``"i(vtb_series)"``, ``"@m.x1.m1[gm]"``.
     optional
         For a command that is not an analysis: its rejection, or a vector it cannot find,
         leaves out what it could not read instead of failing the analysis (the

@@ -25,7 +25,7 @@ from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.amplifier import Amplifier
 from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK, port_node
 from amploop.bench.oppoint import KEEP_OP_LINE, OperatingPoint, OperatingPointProbe
-from amploop.bench.probe import Probe, make_probe
+from amploop.bench.probe import RERUN_VECTOR, DoubleInjection, Probe, make_probe
 from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.spec.model import Corner
 from amploop.spice.ngread import deck_text
@@ -105,15 +105,8 @@ class Testbench:
             "set num_threads=1",
             *[step.command for step in steps],
         ]
-        if self.probe.name == "double-injection":
-            ac = [i for i, s in enumerate(self.steps) if s.is_ac]
-            first, second = f"ac{1}", f"ac{len(ac)}"
-            lines.append(
-                f"let loop_gain = 1/({first}.v({NODE_FEEDBACK}) - {second}.i(vprobe)) - 1"
-            )
-        else:
-            lines.append(f"let loop_gain = -v({NODE_AMP})/v({NODE_FEEDBACK})")
-        lines.append(f"wrdata {data_file} loop_gain")
+        lines += self.probe.rerun_formula(NODE_AMP, NODE_FEEDBACK)
+        lines.append(f"wrdata {data_file} {RERUN_VECTOR}")
         if self.op_probe is not None:  # the operating point, printed
             op = self.steps[-1]
             lines += [op.command, "print " + " ".join(op.read)]
@@ -277,7 +270,7 @@ def build_step_testbench(
               f"{spice_number(rise)} {spice_number(10 * stop_s)} {spice_number(20 * stop_s)})")
     deck, _ = closed_loop_deck(
         amplifier, corner, full_values,
-        loop_elements=[f"Vprobe {NODE_FEEDBACK} {NODE_AMP} dc 0",
+        loop_elements=[f"{DoubleInjection.series_source} {NODE_FEEDBACK} {NODE_AMP} dc 0",
                        ".options reltol=1e-6 vntol=1e-9 abstol=1e-15"],
         title=f"amploop step response: job {job.name}, corner {corner.name}",
         signal=signal,

@@ -209,8 +209,8 @@ def _run_measure(args) -> ExitCode:
 
 def _measure_summary(result, failed: list, suspect: list) -> dict:
     """The one line ``measure --json`` prints: the run, each corner's margins (as in
-    results.json), and the worst figures with the limiting corner (null unless every
-    corner is ok)."""
+    results.json), and the ``worst`` block of results.json, which names the limiting
+    corner (null unless every corner is ok)."""
     from amploop.strategy.common import worst_case
 
     summary = result.as_json()
@@ -219,11 +219,7 @@ def _measure_summary(result, failed: list, suspect: list) -> dict:
                "gain_margin_db", "phase_crossover_hz")
     return {k: summary[k] for k in ("job", "status", "values", "ac_analyses")} | {
         "corners": [{k: c[k] for k in figures} for c in summary["corners"]],
-        "limiting_corner": worst and worst.limiting_corner,
-        "worst": worst and {"phase_margin_deg": worst.phase_margin_deg,
-                            "unity_gain_hz": worst.unity_gain_hz,
-                            "gain_margin_db": worst.gain_margin_db,
-                            "bandwidth_corner": worst.bandwidth_corner},
+        "worst": worst and worst.as_json(),
         "failed_corners": [c.corner.name for c in failed],
         "suspect_corners": [c.corner.name for c in suspect],
         "out": str(result.out)}
@@ -242,7 +238,7 @@ def _run_tune(args) -> ExitCode:
         data = result.as_json()
         if args.json:
             print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
-                                                   "limiting_corner", "worst", "ac_analyses")}
+                                                   "worst", "ac_analyses")}
                              | {"message": result.outcome.message, "out": str(result.out)}))
         elif not args.quiet:
             values = values_line(job, result.outcome.values)

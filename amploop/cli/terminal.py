@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import sys
 
+from amploop.spice.labels import FIGURE_LABELS
 from amploop.spice.units import describe_values, engineering
 
 
@@ -22,8 +23,16 @@ def page_progress(quiet: bool):
 
 
 def _table(rows: list[list[str]], header: list[str]) -> str:
-    widths = [max(len(header[i]), *(len(r[i]) for r in rows)) for i in range(len(header))]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths))]
+    """``rows`` under ``header``, whose headings may wrap at a line break; the first column
+    left-aligned, the others right-aligned."""
+    parts = [h.split("\n") for h in header]
+    depth = max(len(p) for p in parts)
+    parts = [[""] * (depth - len(p)) + p for p in parts]  # headings sit on the rule
+    widths = [max(*(len(x) for x in parts[i]), *(len(r[i]) for r in rows))
+              for i in range(len(header))]
+    lines = ["  ".join((p[k].ljust(w) if i == 0 else p[k].rjust(w))
+                       for i, (p, w) in enumerate(zip(parts, widths))).rstrip()
+             for k in range(depth)]
     lines.append("  ".join("-" * w for w in widths))
     for row in rows:
         lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w)
@@ -50,11 +59,14 @@ def _corner_note(corner, target) -> str:
     return label
 
 
+_TABLE_FIGURES = ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
+                  "phase_crossover_hz")
+
+
 def corner_table(corners, target=None) -> str:
     """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
     corner that misses the ``target`` says which margin and by how much)."""
-    header = ["corner", "DC gain dB", "unity gain", "PM deg", "GM dB", "phase xover",
-              "out - CM", "note"]
+    header = ["corner", *(FIGURE_LABELS[k] for k in _TABLE_FIGURES), "out - CM", "note"]
     rows = []
     for c in corners:
         m = c.margins
@@ -113,7 +125,7 @@ def values_line(job, values: dict) -> str:
     """``Cc = 292.8 fF, Rc = 20 kΩ``, or the device's size when one stands in for Rc."""
     knob = job.compensation.get("rc")
     device = (knob.name, knob.size) if knob is not None and knob.where == "device" else None
-    return describe_values(values, device)
+    return describe_values(values, device=device)
 
 
 def _who(names: list[str], total: int) -> str:

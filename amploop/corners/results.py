@@ -11,6 +11,7 @@ from amploop.analysis.loopgain import FrequencyResponse
 from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.oppoint import OperatingPoint, corner_status
 from amploop.spec.model import Corner, Job, OperatingPointLimits
+from amploop.spice.labels import JOURNAL_KEY
 
 #: The version of results.json's layout (2: each per-corner fact once, in a list of corner
 #: records with a ``name``, ``device.corners`` too).
@@ -170,7 +171,7 @@ class MeasureResult:
         corners = []
         for c in self.corners:
             data = with_step(c.as_json(), self.step_checks.get(c.corner.name))
-            data["analysis"] = self.keys.get(c.corner.name)
+            data[JOURNAL_KEY] = self.keys.get(c.corner.name)
             corners.append(data)
         return {
             "schema": SCHEMA,

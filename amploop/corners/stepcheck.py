@@ -16,6 +16,7 @@ from amploop.bench.testbench import build_step_testbench
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner
+from amploop.spice.labels import JOURNAL_KEY
 
 __all__ = ["StepCheck", "run_step_checks", "step_stop_s", "with_step"]
 
@@ -64,7 +65,7 @@ class StepCheck:
         keys of the corner itself, :func:`with_step`)."""
         m = self.metrics
         return {
-            "analysis": self.key,
+            JOURNAL_KEY: self.key,
             "step_v": self.step_v,
             "step_at_s": self.step_at_s,
             "stop_s": self.stop_s,

@@ -106,7 +106,7 @@ def _margins(mag, phase, final, target_pm: float | None) -> list[str]:
                    bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
         mag.text(fu * 1.15, 2, f"crossover {engineering(fu, 'Hz')}", color=style.FINAL,
                  fontsize=9, va="bottom")
-        notes += [f"unity gain {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
+        notes += [f"unity-gain frequency {engineering(fu, 'Hz')}", f"phase margin {pm:.2f}°"]
         if target_pm is not None:
             phase.axhline(target_pm - 180, color=style.LIMIT, lw=0.7, ls="--")
             phase.text(final.frequency_hz[0] * 1.3, target_pm - 180 + 2,

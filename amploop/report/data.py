@@ -24,6 +24,7 @@ from amploop.corners.results import SCHEMA
 from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JobError, JournalError, OutputError
 from amploop.sim.journal import Journal
+from amploop.spice.labels import JOURNAL_KEY, JOURNAL_KEYS, PHASE_MARGIN_CORNER
 from amploop.spice.units import describe_values
 from amploop.strategy.kinds import kind_label
 
@@ -144,8 +145,11 @@ class ReportData:
 
     @property
     def limiting_corner(self) -> str | None:
-        if self.results.get("limiting_corner"):
-            return self.results["limiting_corner"]
+        """The corner with the smallest phase margin (results.json's
+        ``worst.phase_margin_corner`` after tune), None when no corner measured."""
+        named = (self.results.get("worst") or {}).get(PHASE_MARGIN_CORNER)
+        if named:
+            return named
         ok = [c for c in self.results["corners"] if c.get("phase_margin_deg") is not None]
         return min(ok, key=lambda c: c["phase_margin_deg"])["name"] if ok else None
 
@@ -229,7 +233,7 @@ def load_report_data(out: str | Path) -> ReportData:
     def loop_gain(key: str) -> FrequencyResponse:
         return probe.loop_gain(reads(key), NODE_AMP, NODE_FEEDBACK)
 
-    history = [h for h in results.get("history", []) if h.get("analyses")]
+    history = [h for h in results.get("history", []) if h.get(JOURNAL_KEYS)]
     story = [h for h in history if h["kind"] != "report-map"]
     final_values = results.get("values", {})
     final_step = max((h["step"] for h in story if h["values"] == final_values), default=None)
@@ -237,7 +241,7 @@ def load_report_data(out: str | Path) -> ReportData:
 
     def final_key(name: str) -> str | None:
         corner = data.corner(name)
-        key = corner.get("analysis") if final_entry is None else final_entry["analyses"].get(name)
+        key = corner.get(JOURNAL_KEY) if final_entry is None else final_entry[JOURNAL_KEYS].get(name)
         return key if key and corner.get("status") in ("ok", "suspect") else None
 
     # the maps: the last three characterisation samples of each corner
@@ -245,7 +249,7 @@ def load_report_data(out: str | Path) -> ReportData:
 
     def map_points(name: str):
         """The samples' (Cc, Rc) as corner ``name`` saw them, or None without a map."""
-        if len(samples) < 3 or not all(h["analyses"].get(name) for h in samples):
+        if len(samples) < 3 or not all(h[JOURNAL_KEYS].get(name) for h in samples):
             return None
         if device is not None:  # the samples' resistance as this corner saw it
             r = (data.device_corner(name) or {}).get("sample_resistance_ohm")
@@ -254,7 +258,7 @@ def load_report_data(out: str | Path) -> ReportData:
 
     def load_map(name: str) -> CompensationMap:
         return CompensationMap.from_loop_gains(
-            map_points(name), [loop_gain(h["analyses"][name]) for h in samples])
+            map_points(name), [loop_gain(h[JOURNAL_KEYS][name]) for h in samples])
 
     data.maps = LazyFigures([n for n in names if map_points(n) is not None], load_map, keep=1)
     # the netlist's own values, predicted from the map (no simulation)
@@ -269,7 +273,7 @@ def load_report_data(out: str | Path) -> ReportData:
                 curves.append(Curve(f"netlist values (from the map): "
                                     f"{_values_label(start, device_key)}", "start", response))
         for entry in story:
-            key = entry["analyses"].get(name)
+            key = entry[JOURNAL_KEYS].get(name)
             if key is None or entry["step"] == final_step:
                 continue
             words = kind_label(entry["kind"])
@@ -284,12 +288,12 @@ def load_report_data(out: str | Path) -> ReportData:
 
     def load_step(name: str) -> StepCheck:
         step = data.corner(name)["step"]
-        return check_from_output(name, step["analysis"], step["step_v"], step["step_at_s"],
-                                 step["stop_s"], reads(step["analysis"]), step["band"])
+        return check_from_output(name, step[JOURNAL_KEY], step["step_v"], step["step_at_s"],
+                                 step["stop_s"], reads(step[JOURNAL_KEY]), step["band"])
 
     def has_step(name: str) -> bool:
         step = data.corner(name).get("step")
-        return bool(step and step.get("analysis") and step.get("error") is None)
+        return bool(step and step.get(JOURNAL_KEY) and step.get("error") is None)
 
     data.finals = LazyFigures([n for n in names if final_key(n)],
                               lambda name: loop_gain(final_key(name)))

@@ -54,7 +54,7 @@ def convergence_page(data: ReportData, target_pm: float | None):
         top.text(x[0], target_pm + tol, f" target {target_pm:g}° (+{tol:g}°)", color=style.LIMIT,
                  fontsize=8, va="bottom")
     top.set_ylabel("worst-corner phase margin (°)")
-    bottom.set_ylabel("worst-corner unity gain")
+    bottom.set_ylabel("worst-corner unity-gain frequency")
     bottom.set_yscale("log")
     bottom.yaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
     bottom.yaxis.set_major_formatter(style.hertz)

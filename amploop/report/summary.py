@@ -10,6 +10,7 @@ from amploop.bench.oppoint import status_label, warning_advice
 from amploop.report import style
 from amploop.report.data import ReportData
 from amploop.report.pages import footer, new_page, shown_value, values_text
+from amploop.spice.labels import FIGURE_LABELS
 from amploop.spice.units import engineering
 
 #: Table rows on the first summary page, and on each page after it.
@@ -34,8 +35,8 @@ def _corner_rows(data: ReportData) -> list[list[str]]:
     return rows
 
 
-_HEADER = ["corner", "DC loop gain\n(dB)", "unity-gain\nfrequency", "phase margin\n(°)",
-           "gain margin\n(dB)", "step overshoot\n(%)", "settling\ntime", "status"]
+_HEADER = ["corner", *(FIGURE_LABELS[k] for k in ("dc_loop_gain_db", "unity_gain_hz",
+           "phase_margin_deg", "gain_margin_db", "overshoot_pct", "settling_time_s")), "status"]
 
 
 def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:

@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 import re
 
+from amploop.spice.labels import ROLE_LABELS
+
 __all__ = ["NUMBER", "NUMBER_PATTERN", "SCALE_SUFFIXES", "describe_values", "engineering",
            "parse_value", "scale_of", "spice_number", "split_number"]
 
@@ -182,10 +184,10 @@ def describe_values(values: dict[str, float], device: tuple[str, str] | None = N
     """
     parts = []
     if "cc" in values:
-        parts.append(f"Cc = {engineering(values['cc'], 'F', 4)}")
+        parts.append(f"{ROLE_LABELS['cc']} = {engineering(values['cc'], 'F', 4)}")
     if "rc" in values and device is not None:
         name, size = device
         parts.append(f"{name} {size} = {engineering(values['rc'], '' if size == 'm' else 'm', 4)}")
     elif "rc" in values:
-        parts.append(f"Rc = {engineering(values['rc'], 'Ω', 4)}")
+        parts.append(f"{ROLE_LABELS['rc']} = {engineering(values['rc'], 'Ω', 4)}")
     return ", ".join(parts)

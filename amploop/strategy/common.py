@@ -18,6 +18,12 @@ from amploop.corners.results import CornerResult
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner, Knob, Target
+from amploop.spice.labels import (
+    JOURNAL_KEYS,
+    PHASE_MARGIN_CORNER,
+    UNITY_GAIN_CORNER,
+    WORST_PHASE_MARGIN_CORNER,
+)
 from amploop.strategy.kinds import kind_label
 
 __all__ = [
@@ -48,17 +54,24 @@ class WorstCase:
         The smallest unity-gain frequency over the corners (the bandwidth that is sure).
     gain_margin_db
         The smallest gain margin, None when no corner reaches −180°.
-    limiting_corner
-        The corner with the smallest phase margin.
-    bandwidth_corner
+    phase_margin_corner
+        The corner with the smallest phase margin (the report's limiting corner).
+    unity_gain_corner
         The corner with the smallest unity-gain frequency.
     """
 
     phase_margin_deg: float
     unity_gain_hz: float
     gain_margin_db: float | None
-    limiting_corner: str
-    bandwidth_corner: str
+    phase_margin_corner: str
+    unity_gain_corner: str
+
+    def as_json(self) -> dict:
+        """The ``worst`` block of results.json (and of ``measure --json``)."""
+        return {"phase_margin_deg": self.phase_margin_deg, "unity_gain_hz": self.unity_gain_hz,
+                "gain_margin_db": self.gain_margin_db,
+                PHASE_MARGIN_CORNER: self.phase_margin_corner,
+                UNITY_GAIN_CORNER: self.unity_gain_corner}
 
 
 def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
@@ -73,8 +86,8 @@ def worst_case(corners: tuple[CornerResult, ...]) -> WorstCase | None:
         phase_margin_deg=float(by_pm.margins.phase_margin_deg),
         unity_gain_hz=float(by_ugf.margins.unity_gain_hz),
         gain_margin_db=min(gms) if gms else None,
-        limiting_corner=by_pm.corner.name,
-        bandwidth_corner=by_ugf.corner.name,
+        phase_margin_corner=by_pm.corner.name,
+        unity_gain_corner=by_ugf.corner.name,
     )
 
 
@@ -217,10 +230,10 @@ class HistoryEntry:
             "worst_phase_margin_deg": w and w.phase_margin_deg,
             "worst_unity_gain_hz": w and w.unity_gain_hz,
             "worst_gain_margin_db": w and w.gain_margin_db,
-            "limiting_corner": w and w.limiting_corner,
+            WORST_PHASE_MARGIN_CORNER: w and w.phase_margin_corner,
             "ac_analyses": self.ac_analyses,
             "note": self.note,
-            "analyses": dict(self.analyses),
+            JOURNAL_KEYS: dict(self.analyses),
         }
 
 

@@ -187,7 +187,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
                        f"no Cc and {device.name} size within the bounds meets "
                        f"{target.phase_margin_deg:g}° at every corner: the best reachable "
                        f"worst-corner phase margin is {worst.phase_margin_deg:.2f}° (corner "
-                       f"{worst.limiting_corner}) at {values_text}", extra)
+                       f"{worst.phase_margin_corner}) at {values_text}", extra)
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
         return Outcome("failed", verified.values, verified,
                        f"the maps and the simulation still disagree by "
@@ -198,7 +198,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
         return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° (corner "
-                   f"{worst.limiting_corner}) at {values_text}", extra)
+                   f"{worst.phase_margin_corner}) at {values_text}", extra)
 
 
 def _starting_size(evaluator: Evaluator, in_effect: dict[str, float],

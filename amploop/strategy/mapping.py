@@ -120,7 +120,7 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             "infeasible", verified.values, verified,
             f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
             f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
-            f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
+            f"(corner {worst.phase_margin_corner}) at " + describe_values(verified.values),
             extra,
         )
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
@@ -135,5 +135,5 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
                    f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                   f"(corner {worst.limiting_corner}) at " + describe_values(verified.values),
+                   f"(corner {worst.phase_margin_corner}) at " + describe_values(verified.values),
                    extra)

@@ -45,7 +45,7 @@ class MapSolution:
     gain_margin_db
         The predicted worst-corner gain margin, dB; None when no corner has a phase
         crossover.
-    limiting_corner
+    phase_margin_corner
         The corner with the smallest predicted phase margin.
     """
 
@@ -55,7 +55,7 @@ class MapSolution:
     phase_margin_deg: float
     unity_gain_hz: float
     gain_margin_db: float | None
-    limiting_corner: str
+    phase_margin_corner: str
 
 
 def cc_grid(low: float, high: float, n: int) -> np.ndarray:
@@ -204,7 +204,7 @@ def solve_on_maps(
         best_cc, best_rc = float(cc[i]), float(rc[j])
     pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
-                       unity_gain_hz=ugf, gain_margin_db=gm, limiting_corner=limiting)
+                       unity_gain_hz=ugf, gain_margin_db=gm, phase_margin_corner=limiting)
 
 
 def rounded_neighbours(value: float, bounds: tuple[float, float], digits: int = 4,
@@ -282,4 +282,4 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
     (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min)
     best_pm, best_ugf, best_gm, limiting = figures[i][j]
     return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,
-                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, limiting_corner=limiting)
+                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, phase_margin_corner=limiting)

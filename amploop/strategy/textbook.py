@@ -223,7 +223,7 @@ def _ending(current: PointResult, target: Target) -> Outcome:
     if missed is None:
         return Outcome("converged", current.values, current,
                        f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                       f"(corner {worst.limiting_corner}) at " + describe_values(current.values))
+                       f"(corner {worst.phase_margin_corner}) at " + describe_values(current.values))
     return Outcome("failed", current.values, current,
                    "the textbook procedure ends at " + describe_values(current.values)
                    + f": {missed}")

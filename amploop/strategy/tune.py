@@ -133,13 +133,7 @@ class TuneResult:
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
-            "limiting_corner": worst.limiting_corner if worst else None,
-            "worst": None if worst is None else {
-                "phase_margin_deg": worst.phase_margin_deg,
-                "unity_gain_hz": worst.unity_gain_hz,
-                "gain_margin_db": worst.gain_margin_db,
-                "bandwidth_corner": worst.bandwidth_corner,
-            },
+            "worst": None if worst is None else worst.as_json(),
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
             "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
             "probe": self.job.analysis.probe,
