@@ -66,8 +66,7 @@ def unwrap_from_dc(values: np.ndarray) -> np.ndarray:
     return np.degrees(np.unwrap(np.angle(values)))
 
 
-def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
-                     i_series_run2: np.ndarray) -> np.ndarray:
+def double_injection(v_b_run1: np.ndarray, i_series_run2: np.ndarray) -> np.ndarray:
     """Loop gain from a series-voltage and a shunt-current injection at one break point.
 
     The loop is broken between the amplifier side ``a`` and the feedback side ``b`` by a
@@ -85,8 +84,9 @@ def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
 
     Parameters
     ----------
-    v_a_run1, v_b_run1
-        Node voltages (complex, V per V injected) either side of the probe in run 1.
+    v_b_run1
+        The feedback side's node voltage in run 1 (complex, V per V injected; the
+        amplifier side's follows from v(b) − v(a) = 1).
     i_series_run2
         ngspice's branch current of the series source in run 2 (A per A injected; positive from
         its + terminal ``b`` through it to ``a``).
@@ -96,7 +96,6 @@ def double_injection(v_a_run1: np.ndarray, v_b_run1: np.ndarray,
     numpy.ndarray
         Complex loop gain.
     """
-    del v_a_run1  # implied by v(b) − v(a) = 1; kept in the signature for clarity of the probe
     ix = -np.asarray(i_series_run2, dtype=complex)
     return 1.0 / (np.asarray(v_b_run1, dtype=complex) + ix) - 1.0
 

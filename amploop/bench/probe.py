@@ -121,10 +121,10 @@ class DoubleInjection(Probe):
         )
 
     def loop_gain(self, reads, a, b):
-        """T from run 1's v(``a``) and v(``b``) and run 2's series-source current in
+        """T from run 1's v(``b``) (``a`` is the amplifier side) and run 2's series-source current in
         ``reads`` (:func:`~amploop.analysis.loopgain.double_injection`)."""
         run1, run2 = reads[0], reads[3]
-        values = double_injection(run1[f"v({a})"], run1[f"v({b})"], run2[self._series_current])
+        values = double_injection(run1[f"v({b})"], run2[self._series_current])
         return FrequencyResponse(np.real(run1["frequency"]), values)
 
     def rerun_formula(self, a, b):
