@@ -190,7 +190,7 @@ def test_report_holds_every_page_corner_and_value(demo_report):
         assert title.split()[:2] == ["Corner", name]
         assert ("limiting corner" in title) == (name == limiting), name
         lines = [" ".join(line.split()) for line in page.splitlines()]
-        for shown in (f"phase margin {pm}°", f"unity gain {unity}",
+        for shown in (f"phase margin {pm}°", f"unity-gain frequency {unity}",
                       f"gain margin {gm} dB", f"final: Cc = {cc}, Rc = {rc}"):
             assert any(shown in line for line in lines), (name, shown)
 

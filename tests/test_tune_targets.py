@@ -21,9 +21,9 @@ from amploop.cli.terminal import corner_table, values_line
 from amploop.corners.measure import measure
 from amploop.spec.job import load_job
 from amploop.spec.model import Knob, Target
-from amploop.strategy.common import corner_shortfall, missed_target
 from amploop.strategy.remarks import bound_remark
 from amploop.strategy.tune import tune
+from amploop.strategy.worst import corner_shortfall, missed_target
 
 
 def demo_copy(folder: Path, edit=lambda text: text) -> Path:

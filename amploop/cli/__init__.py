@@ -211,7 +211,7 @@ def _measure_summary(result, failed: list, suspect: list) -> dict:
     """The one line ``measure --json`` prints: the run, each corner's margins (as in
     results.json), and the ``worst`` block of results.json, which names the limiting
     corner (null unless every corner is ok)."""
-    from amploop.strategy.common import worst_case
+    from amploop.strategy.worst import worst_case
 
     summary = result.as_json()
     worst = worst_case(result.corners)

@@ -51,7 +51,7 @@ def _corner_note(corner, target) -> str:
 
     label = status_label(corner.status, corner.warnings)
     if corner.status == "ok" and target is not None:
-        from amploop.strategy.common import corner_shortfall
+        from amploop.strategy.worst import corner_shortfall
 
         missed = corner_shortfall(corner, target)
         if missed:
@@ -155,8 +155,8 @@ def tune_progress_line(entry, best: dict, target) -> str:
     :data:`TUNE_PROGRESS_KEY`): the running answer first, the point so far that meets
     ``target`` with the most worst-corner bandwidth (kept in ``best``, updated here; the
     report's samples do not count), then what this point gave."""
-    from amploop.strategy.common import meets_target
     from amploop.strategy.kinds import kind_label
+    from amploop.strategy.worst import meets_target
 
     w = entry.worst
     if w is not None and entry.kind != "report-map" and meets_target(w, target) \

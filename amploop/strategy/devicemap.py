@@ -18,16 +18,10 @@ from amploop.analysis.triode import in_triode, resistance_at_size, square_law_re
 from amploop.errors import TuningError
 from amploop.spec.model import Target
 from amploop.spice.units import describe_values, engineering
-from amploop.strategy.common import (
-    Evaluator,
-    Outcome,
-    PointResult,
-    bounds_of,
-    missed_target,
-    not_simulated,
-)
+from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.mapsolve import round_on_maps, solve_on_maps
 from amploop.strategy.samples import initial_samples, samples_around
+from amploop.strategy.worst import missed_target
 
 __all__ = ["device_json", "device_operating_points", "model_card", "tune_device_by_map"]
 

@@ -15,17 +15,11 @@ from __future__ import annotations
 from amploop.analysis.compmap import CompensationMap
 from amploop.spec.model import Target
 from amploop.spice.units import describe_values
-from amploop.strategy.common import (
-    Evaluator,
-    Outcome,
-    PointResult,
-    bounds_of,
-    missed_target,
-    not_simulated,
-)
+from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
 from amploop.strategy.samples import initial_samples, samples_around
+from amploop.strategy.worst import missed_target
 
 __all__ = ["tune_by_map"]
 

@@ -16,7 +16,8 @@ from scipy.optimize import minimize
 
 from amploop.spec.model import Target
 from amploop.spice.units import describe_values
-from amploop.strategy.common import Evaluator, Outcome, bounds_of, meets_target, missed_target
+from amploop.strategy.common import Evaluator, Outcome, bounds_of
+from amploop.strategy.worst import meets_target, missed_target
 
 __all__ = ["tune_by_optimizer"]
 

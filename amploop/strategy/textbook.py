@@ -35,10 +35,9 @@ from amploop.strategy.common import (
     PointResult,
     bounds_of,
     gm_quantity,
-    meets_target,
-    missed_target,
     not_simulated,
 )
+from amploop.strategy.worst import meets_target, missed_target
 
 __all__ = ["tune_by_textbook"]
 
