@@ -215,88 +215,109 @@ def load_report_data(out: str | Path) -> ReportData:
                        file=out / "results.json",
                        hint="run the same measure or tune again into this folder: the "
                        "journal makes it quick") from None
-    probe = make_probe(results.get("probe", "double-injection"))
-    device = results.get("device")
-    device_key = (device["name"], device["size"]) if device else None
     names = [c["name"] for c in results.get("corners", [])]
-    journal = Journal(out / "journal.sqlite", readonly=True)
-    data = ReportData(out=out, results=results, corner_names=names, journal=journal)
+    data = ReportData(out=out, results=results, corner_names=names,
+                      journal=Journal(out / "journal.sqlite", readonly=True))
+    figures = _Figures(data)
+    data.maps = LazyFigures([n for n in names if figures.map_points(n) is not None],
+                            figures.load_map, keep=1)
+    data.finals = LazyFigures([n for n in names if figures.final_key(n)],
+                              lambda name: figures.loop_gain(figures.final_key(name)))
+    data.curves = LazyFigures(names, figures.load_curves)
+    data.steps = LazyFigures([n for n in names if figures.has_step(n)], figures.load_step)
+    return data
 
-    def reads(key: str):
-        output = data.journal.get(key)
+
+class _Figures:
+    """How each figure of the report is rebuilt from results.json and the journal of
+    ``data`` (a corner at a time, as the pages ask)."""
+
+    def __init__(self, data: ReportData) -> None:
+        results = data.results
+        self.data = data
+        self.probe = make_probe(results.get("probe", "double-injection"))
+        self.device = results.get("device")
+        self.device_key = (self.device["name"], self.device["size"]) if self.device else None
+        history = [h for h in results.get("history", []) if h.get(JOURNAL_KEYS)]
+        self.story = [h for h in history if h["kind"] != "report-map"]
+        self.final_values = results.get("values", {})
+        self.final_step = max((h["step"] for h in self.story if h["values"] == self.final_values),
+                              default=None)
+        self.final_entry = next((h for h in self.story if h["step"] == self.final_step), None)
+        # the maps: the last three characterisation samples of each corner
+        self.samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+        # the netlist's own values, predicted from the map (no simulation)
+        self.start = results.get("values_in_netlist")
+        self.predict_start = (bool(self.start) and data.command == "tune"
+                              and self.device is None)
+
+    def reads(self, key: str):
+        """The vectors of the journal's analysis ``key``."""
+        output = self.data.journal.get(key)
         if output is None:
             raise JournalError(f"the journal lacks analysis {key[:12]}… named in results.json",
-                               file=data.journal.path, hint="rerun the command to rebuild it")
-        data.analyses_read += 1
+                               file=self.data.journal.path, hint="rerun the command to rebuild it")
+        self.data.analyses_read += 1
         return output.reads
 
-    def loop_gain(key: str) -> FrequencyResponse:
-        return probe.loop_gain(reads(key), NODE_AMP, NODE_FEEDBACK)
+    def loop_gain(self, key: str) -> FrequencyResponse:
+        """The loop gain of the journal's analysis ``key``."""
+        return self.probe.loop_gain(self.reads(key), NODE_AMP, NODE_FEEDBACK)
 
-    history = [h for h in results.get("history", []) if h.get(JOURNAL_KEYS)]
-    story = [h for h in history if h["kind"] != "report-map"]
-    final_values = results.get("values", {})
-    final_step = max((h["step"] for h in story if h["values"] == final_values), default=None)
-    final_entry = next((h for h in story if h["step"] == final_step), None)
-
-    def final_key(name: str) -> str | None:
-        corner = data.corner(name)
-        key = corner.get(JOURNAL_KEY) if final_entry is None else final_entry[JOURNAL_KEYS].get(name)
+    def final_key(self, name: str) -> str | None:
+        """The journal key of corner ``name``'s loop gain at the final values (None when the
+        corner gave no margins)."""
+        corner = self.data.corner(name)
+        key = (corner.get(JOURNAL_KEY) if self.final_entry is None
+               else self.final_entry[JOURNAL_KEYS].get(name))
         return key if key and corner.get("status") in ("ok", "suspect") else None
 
-    # the maps: the last three characterisation samples of each corner
-    samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
-
-    def map_points(name: str):
+    def map_points(self, name: str):
         """The samples' (Cc, Rc) as corner ``name`` saw them, or None without a map."""
+        samples = self.samples
         if len(samples) < 3 or not all(h[JOURNAL_KEYS].get(name) for h in samples):
             return None
-        if device is not None:  # the samples' resistance as this corner saw it
-            r = (data.device_corner(name) or {}).get("sample_resistance_ohm")
+        if self.device is not None:  # the samples' resistance as this corner saw it
+            r = (self.data.device_corner(name) or {}).get("sample_resistance_ohm")
             return None if r is None else [(h["values"]["cc"], r) for h in samples]
         return [(h["values"]["cc"], h["values"].get("rc", 0.0)) for h in samples]
 
-    def load_map(name: str) -> CompensationMap:
+    def load_map(self, name: str) -> CompensationMap:
+        """Corner ``name``'s compensation map from its three samples."""
         return CompensationMap.from_loop_gains(
-            map_points(name), [loop_gain(h[JOURNAL_KEYS][name]) for h in samples])
+            self.map_points(name), [self.loop_gain(h[JOURNAL_KEYS][name]) for h in self.samples])
 
-    data.maps = LazyFigures([n for n in names if map_points(n) is not None], load_map, keep=1)
-    # the netlist's own values, predicted from the map (no simulation)
-    start = results.get("values_in_netlist")
-    predict_start = bool(start) and data.command == "tune" and device is None
-
-    def load_curves(name: str) -> list[Curve]:
-        curves = []
-        if predict_start and name in data.maps:
-            response = data.maps[name].loop_gain(start["cc"], start.get("rc", 0.0))
+    def load_curves(self, name: str) -> list[Curve]:
+        """Corner ``name``'s loop gains for its page: the netlist's values (predicted from
+        the map), every step of the tuning, the final values."""
+        data, curves = self.data, []
+        if self.predict_start and name in data.maps:
+            response = data.maps[name].loop_gain(self.start["cc"], self.start.get("rc", 0.0))
             if np.all(np.isfinite(response.values)):
                 curves.append(Curve(f"netlist values (from the map): "
-                                    f"{_values_label(start, device_key)}", "start", response))
-        for entry in story:
+                                    f"{_values_label(self.start, self.device_key)}", "start",
+                                    response))
+        for entry in self.story:
             key = entry[JOURNAL_KEYS].get(name)
-            if key is None or entry["step"] == final_step:
+            if key is None or entry["step"] == self.final_step:
                 continue
             words = kind_label(entry["kind"])
             curves.append(Curve(f"{entry['step']}. {words}: "
-                                f"{_values_label(entry['values'], device_key)}",
-                                "step", loop_gain(key)))
+                                f"{_values_label(entry['values'], self.device_key)}",
+                                "step", self.loop_gain(key)))
         if name in data.finals:
             label = "final" if data.command == "tune" else "as in the netlist"
-            curves.append(Curve(f"{label}: {_values_label(final_values, device_key)}", "final",
-                                data.finals[name]))
+            curves.append(Curve(f"{label}: {_values_label(self.final_values, self.device_key)}",
+                                "final", data.finals[name]))
         return curves
 
-    def load_step(name: str) -> StepCheck:
-        step = data.corner(name)["step"]
+    def load_step(self, name: str) -> StepCheck:
+        """Corner ``name``'s closed-loop step response from its transient."""
+        step = self.data.corner(name)["step"]
         return check_from_output(name, step[JOURNAL_KEY], step["step_v"], step["step_at_s"],
-                                 step["stop_s"], reads(step[JOURNAL_KEY]), step["band"])
+                                 step["stop_s"], self.reads(step[JOURNAL_KEY]), step["band"])
 
-    def has_step(name: str) -> bool:
-        step = data.corner(name).get("step")
+    def has_step(self, name: str) -> bool:
+        """Whether corner ``name`` has a step response to show."""
+        step = self.data.corner(name).get("step")
         return bool(step and step.get(JOURNAL_KEY) and step.get("error") is None)
-
-    data.finals = LazyFigures([n for n in names if final_key(n)],
-                              lambda name: loop_gain(final_key(name)))
-    data.curves = LazyFigures(names, load_curves)
-    data.steps = LazyFigures([n for n in names if has_step(n)], load_step)
-    return data
