@@ -196,9 +196,11 @@ class ClusterPool:
     def __init__(self, address: str, *, timeout_s: float = CONNECT_TIMEOUT_S,
                  retries: int = 2, grace_s: float = GRACE_S) -> None:
         distributed = _distributed()
-        # the client logs a lost scheduler with its reconnection tracebacks; the run
-        # reports it in one line (deadlines.py), so only its critical records are shown
-        logging.getLogger("distributed.client").setLevel(logging.CRITICAL)
+        # the client and its connection's batched sender log a lost scheduler with
+        # tracebacks (the sender's "Batched Comm Closed", at INFO); the run reports it in
+        # one line (deadlines.py), so only their critical records are shown
+        for name in ("distributed.client", "distributed.batched"):
+            logging.getLogger(name).setLevel(logging.CRITICAL)
         self.address = address
         self.retries = retries
         self.grace_s = grace_s
