@@ -27,7 +27,7 @@ from bench_measure import DEMO, scratch
 def main() -> None:
     from amploop.sim.pool import default_workers
     from amploop.spec.job import load_job
-    from amploop.spice.units import engineering
+    from amploop.spice.units import describe_values, engineering
     from amploop.strategy.tune import tune
 
     job = load_job(DEMO)
@@ -42,8 +42,7 @@ def main() -> None:
                           workers=default_workers(), time_domain=False)
             worst = result.outcome.final.worst
             total = result.ac_run + result.ac_reused
-            values = ", ".join(f"{k}={engineering(v, 'F' if k == 'cc' else 'Ω', 4)}"
-                               for k, v in result.outcome.values.items())
+            values = describe_values(result.outcome.values)
             print(f"{strategy:<10} {result.status:<10} {total:>5} {total / corners:>9.1f} "
                   f"{len(result.history):>6} {worst.phase_margin_deg:>8.2f}° "
                   f"{engineering(worst.unity_gain_hz, 'Hz'):>10}  {values}")

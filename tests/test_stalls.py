@@ -14,6 +14,7 @@ import os
 import signal
 import threading
 import time
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 
@@ -160,6 +161,27 @@ SHORT = AnalysisRequest("short", "* short\nV1 a 0 sin(0 1 1meg)\nR1 a b 1k\nC1 b
                         (Step("tran 1n 20u 19u", ("v(b)",)),), time_limit_s=2.0)
 
 
+def local_reference() -> AnalysisOutput:
+    """SHORT run once on an undisturbed local pool: the arrays every cluster run must give."""
+    with WorkerPool(1) as local:
+        [(_, reference)] = list(local.run([(0, SHORT)]))
+    return reference
+
+
+@contextmanager
+def warm_cluster_pool(tmp_path):
+    """A ClusterPool (grace 2 s) on a local two-worker cluster whose workers have each run
+    SHORT once (their ngspice started); yields ``(pool, worker address -> pid)``."""
+    from test_cluster import local_cluster
+
+    from amploop.sim.cluster import ClusterPool
+
+    with local_cluster(tmp_path) as running, \
+            ClusterPool(running.scheduler_address, grace_s=2.0) as pool:
+        list(pool.run([(n, SHORT) for n in range(4)]))
+        yield pool, pool.client.run(os.getpid)
+
+
 def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(tmp_path):
     """SIGSTOP a Dask worker process that holds an analysis: within twice the time limit
     plus the grace, its analyses are handed to the other worker; every analysis gives the
@@ -167,20 +189,12 @@ def test_a_stopped_dask_worker_costs_a_deadline_and_its_analyses_run_elsewhere(t
     import pytest
 
     pytest.importorskip("distributed")
-    from test_cluster import local_cluster
-
-    from amploop.sim.cluster import ClusterPool
-
-    with WorkerPool(1) as local:
-        [(_, reference)] = list(local.run([(0, SHORT)]))
+    reference = local_reference()
     assert isinstance(reference, AnalysisOutput), reference
     requests = [(n, replace(SHORT, label=f"short-{n}")) for n in range(8)]
     stopped: list[int] = []
     results: dict = {}
-    with local_cluster(tmp_path) as running, \
-            ClusterPool(running.scheduler_address, grace_s=2.0) as pool:
-        list(pool.run([(n, SHORT) for n in range(4)]))  # every worker's ngspice started
-        pids = pool.client.run(os.getpid)
+    with warm_cluster_pool(tmp_path) as (pool, pids):
 
         def run() -> None:
             for key, output in pool.run(requests):
@@ -210,19 +224,11 @@ def test_a_worker_stopped_before_its_answer_is_fetched_costs_a_deadline(tmp_path
     import pytest
 
     pytest.importorskip("distributed")
-    from test_cluster import local_cluster
-
-    from amploop.sim.cluster import ClusterPool
-
-    with WorkerPool(1) as local:
-        [(_, reference)] = list(local.run([(0, SHORT)]))
+    reference = local_reference()
     requests = [(n, replace(SHORT, label=f"short-{n}")) for n in range(4)]
     stopped: list[int] = []
     results: dict = {}
-    with local_cluster(tmp_path) as running, \
-            ClusterPool(running.scheduler_address, grace_s=2.0) as pool:
-        list(pool.run([(n, SHORT) for n in range(4)]))  # every worker's ngspice started
-        pids = pool.client.run(os.getpid)
+    with warm_cluster_pool(tmp_path) as (pool, pids):
         fetch = pool._outcome
 
         def stop_its_holder_then_fetch(future, request, timeout_s):
