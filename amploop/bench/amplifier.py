@@ -11,8 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+from amploop.bench.cmbreak import CommonModeBreak, locate_common_mode_break
 from amploop.bench.knobsites import Device, KnobSite, closest_names, device_site, locate_knob
-from amploop.bench.nodes import NODE_AMP, port_node
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_CM_DRIVE, NODE_CM_DRIVEN, port_node
 from amploop.errors import NetlistError
 from amploop.spec.model import Job
 from amploop.spice.deckfiles import files_read
@@ -50,6 +51,9 @@ class Amplifier:
         The MOSFET that stands in for Rc; None when Rc is not a device.
     warnings
         Remarks for the user, such as a device for Rc that touches the output.
+    common_mode_break
+        The 0 V source on the common-mode feedback path of a fully-differential amplifier
+        that the probe replaces; None when the job names none.
     """
 
     job: Job
@@ -59,6 +63,18 @@ class Amplifier:
     reads: tuple[Path, ...] = ()
     device: Device | None = None
     warnings: tuple[str, ...] = ()
+    common_mode_break: CommonModeBreak | None = None
+
+    @property
+    def fully_differential(self) -> bool:
+        """Whether the amplifier has two outputs."""
+        return self.job.amplifier.fully_differential
+
+    @property
+    def extra_ports(self) -> tuple[str, ...]:
+        """The testbench nodes the instance line adds after the subckt's own ports: the two
+        sides of the common-mode break, when there is one."""
+        return (NODE_CM_DRIVE, NODE_CM_DRIVEN) if self.common_mode_break else ()
 
     def node_vector(self, node: str) -> str:
         """ngspice's vector name of the voltage of subckt node ``node`` in the testbench:
@@ -67,11 +83,16 @@ class Amplifier:
         index = self.subckt.port_index(node)
         if node == "0":
             return "0"
+        brk = self.common_mode_break
+        if index is None and brk is not None and node.lower() in map(str.lower, brk.nodes):
+            return f"v({NODE_CM_DRIVE if node.lower() == brk.drive.lower() else NODE_CM_DRIVEN})"
         if index is None:
             return f"v(x1.{node.lower()})"
         port = self.subckt.ports[index]
         if port.lower() == self.job.amplifier.out.lower():
             return f"v({NODE_AMP})"
+        if port.lower() == (self.job.amplifier.out_n or "").lower():
+            return f"v({NODE_AMP_N})"
         if port.lower() == self.job.amplifier.in_p.lower():
             return "v(tb_inp)"
         if port.lower() == self.job.amplifier.in_n.lower():
@@ -146,10 +167,16 @@ class Amplifier:
             elif site.kind == "param":
                 rewrite(site.statement, replace_param(latest(site.statement), site.knob.name, text))
             elif site.kind == "element":
-                rewrite(site.statement, replace_element_value(latest(site.statement), text))
+                for statement in site.statements:
+                    rewrite(statement, replace_element_value(latest(statement), text))
             elif site.kind == "device":
                 rewrite(site.statement,
                         replace_instance_param(latest(site.statement), site.knob.size, text))
+        brk = self.common_mode_break
+        if brk is not None:  # its nodes become ports; the probe sits outside
+            rewrite(brk.statement, brk.removed_text())
+            header = self.subckt.header
+            rewrite(header, brk.header_text(latest(header)))
         return edits, instance
 
     def render(self, values: dict[str, float], params: dict[str, float]) -> tuple[
@@ -183,19 +210,8 @@ class Amplifier:
         changed: dict[Path, dict[int, str]] = {}
         for role, value in values.items():
             site = self.sites[role]
-            text = spice_number(value)
-            statement = site.statement
-            lines = changed.setdefault(statement.file, {})
-            base = lines.get(statement.index)
-            if base is not None:
-                statement = Statement(statement.file, statement.index, statement.line,
-                                      tuple(tokenize(base)), statement.subckt, statement.section)
-            if site.kind in ("subckt-param", "param"):
-                lines[statement.index] = replace_param(statement, site.knob.name, text)
-            elif site.kind == "element":
-                lines[statement.index] = replace_element_value(statement, text)
-            else:
-                lines[statement.index] = replace_instance_param(statement, site.knob.size, text)
+            for statement in site.statements:
+                self._set_in_copy(changed, site, statement, spice_number(value))
         result: dict[Path, str] = {}
         for file, new_lines in changed.items():
             source = self.netlist.files[file]
@@ -207,6 +223,23 @@ class Amplifier:
                     out.extend(logical.raw)
             result[file] = "\n".join(out) + "\n"
         return result
+
+    @staticmethod
+    def _set_in_copy(changed: dict[Path, dict[int, str]], site: KnobSite,
+                     statement: Statement, text: str) -> None:
+        """Write the value ``text`` of ``site`` into ``statement`` among the ``changed``
+        lines (file -> line index -> new text), on top of an earlier change to it."""
+        lines = changed.setdefault(statement.file, {})
+        base = lines.get(statement.index)
+        if base is not None:
+            statement = Statement(statement.file, statement.index, statement.line,
+                                  tuple(tokenize(base)), statement.subckt, statement.section)
+        if site.kind in ("subckt-param", "param"):
+            lines[statement.index] = replace_param(statement, site.knob.name, text)
+        elif site.kind == "element":
+            lines[statement.index] = replace_element_value(statement, text)
+        else:
+            lines[statement.index] = replace_instance_param(statement, site.knob.size, text)
 
 
 def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
@@ -255,8 +288,8 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         if warning:
             warnings.append(warning)
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
-                     reads=reads.files, device=device,
-                     warnings=tuple(warnings))
+                     reads=reads.files, device=device, warnings=tuple(warnings),
+                     common_mode_break=locate_common_mode_break(job, subckt))
 
 
 def _check_named_devices(job: Job, subckt: Subckt) -> None:
@@ -280,6 +313,8 @@ def _check_ports(job: Job, subckt: Subckt) -> None:
         "[amplifier].in_n": job.amplifier.in_n,
         "[amplifier].out": job.amplifier.out,
     }
+    if job.amplifier.out_n is not None:
+        named["[amplifier].out_n"] = job.amplifier.out_n
     named.update({f"[bias].{s.port}": s.port for s in job.bias.sources})
     used: dict[str, str] = {}
     for place, port in named.items():

@@ -10,6 +10,7 @@ from amploop.spec.model import Job, Knob
 from amploop.spice.netlist import Netlist, Subckt, value_of
 from amploop.spice.rewrite import element_value
 from amploop.spice.source import Statement
+from amploop.spice.units import engineering
 
 __all__ = ["Device", "KnobSite", "closest_names", "device_site", "locate_knob"]
 
@@ -30,12 +31,20 @@ class KnobSite:
         The statement that holds it (the ``.subckt`` header for subckt parameters).
     value
         The value in effect in the netlist, SI.
+    twins
+        The statements of the knob's matched elements (:attr:`Knob.twins`), set with it.
     """
 
     knob: Knob
     kind: str
     statement: Statement
     value: float
+    twins: tuple[Statement, ...] = ()
+
+    @property
+    def statements(self) -> tuple[Statement, ...]:
+        """Every statement the knob's value is written into: its own, then its twins'."""
+        return (self.statement, *self.twins)
 
 
 @dataclass(frozen=True)
@@ -107,6 +116,32 @@ def closest_names(name: str, choices) -> str:
     return text if "did you mean" in text else ""
 
 
+def _twin(netlist: Netlist, subckt: Subckt, knob: Knob, name: str, value: float,
+          scope: dict) -> Statement:
+    """The statement of ``name``, the matched twin of ``knob`` whose own element holds
+    ``value`` (SI): the same kind of element, with the same value."""
+    place = f"[compensation].{knob.role}.element"
+    statement = subckt.element(name)
+    first = knob.name
+    if statement is None:
+        names = [s.tokens[0] for s in subckt.elements()]
+        raise NetlistError(f"{place}: no element {name!r} in subckt {subckt.name}"
+                           + did_you_mean(name, names), file=netlist.root,
+                           place=subckt.header.line)
+    if statement.keyword[0] != first[0].lower():
+        raise NetlistError(f"{place}: {statement.tokens[0]} is not the same kind of element "
+                           f"as {first}", file=statement.file, place=statement.line)
+    twin_value = value_of(element_value(statement), scope, where=statement.where)
+    if abs(twin_value - value) > 1e-9 * max(abs(value), abs(twin_value)):
+        unit = "F" if knob.role == "cc" else "Ω"
+        raise NetlistError(
+            f"{place}: {first} is {engineering(value, unit, 4)} and {statement.tokens[0]} "
+            f"is {engineering(twin_value, unit, 4)}; the two halves are set to one value "
+            "together", file=statement.file, place=statement.line,
+            hint="give both the same value in the netlist")
+    return statement
+
+
 def locate_knob(job: Job, netlist: Netlist, subckt: Subckt, knob: Knob, global_exprs: dict,
                 header_params: dict, local: dict) -> KnobSite:
     """Where ``knob`` of ``job`` lives in ``netlist``, inside ``subckt`` or globally: the
@@ -148,7 +183,9 @@ def locate_knob(job: Job, netlist: Netlist, subckt: Subckt, knob: Knob, global_e
                 place=statement.line,
             )
         expr = element_value(statement)
-        return KnobSite(knob, "element", statement, value_of(expr, scope, where=statement.where))
+        value = value_of(expr, scope, where=statement.where)
+        twins = tuple(_twin(netlist, subckt, knob, name, value, scope) for name in knob.twins)
+        return KnobSite(knob, "element", statement, value, twins)
     # a MOSFET standing in for Rc
     if statement.keyword[0] != "m":
         raise NetlistError(f"{place}: {statement.tokens[0]} is not a MOSFET", file=statement.file,

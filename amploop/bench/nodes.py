@@ -3,12 +3,20 @@ node each subckt port is tied to (every name the testbench adds starts with ``tb
 
 from __future__ import annotations
 
-__all__ = ["NODE_AMP", "NODE_FEEDBACK", "port_node"]
+__all__ = ["NODE_AMP", "NODE_AMP_N", "NODE_CM_DRIVE", "NODE_CM_DRIVEN", "NODE_FEEDBACK",
+           "NODE_FEEDBACK_N", "port_node"]
 
 #: Amplifier side of the probe: the subckt's output with the load.
 NODE_AMP = "tb_out"
 #: Feedback side of the probe: where the feedback network meets the output.
 NODE_FEEDBACK = "tb_fb"
+#: The same two sides at the second output of a fully-differential amplifier.
+NODE_AMP_N = "tb_outn"
+NODE_FEEDBACK_N = "tb_fbn"
+#: The two sides of the common-mode loop's break, brought out of the subckt: the node
+#: that drives it (the first node of the user's 0 V source) and the node it drives.
+NODE_CM_DRIVE = "tb_cma"
+NODE_CM_DRIVEN = "tb_cmb"
 
 
 def port_node(port: str) -> str:

@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from amploop.bench.nodes import NODE_AMP, port_node
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, port_node
 from amploop.bench.requests import Step
 from amploop.spec.model import OperatingPointLimits
 from amploop.spice.units import engineering
@@ -117,6 +117,9 @@ class OperatingPoint:
         without a voltage source on a port.
     devices
         The job's named devices, in the order input, second stage.
+    output_n_v
+        The second output's DC voltage of a fully-differential amplifier, volts; None for
+        a single-ended one.
     """
 
     output_v: float | None
@@ -124,6 +127,7 @@ class OperatingPoint:
     supply_span_v: float | None
     devices: tuple[DeviceRegion, ...] = ()
     inverting_input_v: float | None = None
+    output_n_v: float | None = None
 
     @property
     def output_shift_v(self) -> float | None:
@@ -149,24 +153,33 @@ class OperatingPoint:
 
     def as_json(self) -> dict:
         """The corner's ``operating_point`` entry in results.json."""
-        return {"output_v": self.output_v, "common_mode_v": self.common_mode_v,
+        data = {"output_v": self.output_v, "common_mode_v": self.common_mode_v,
                 "output_shift_v": self.output_shift_v,
                 "inverting_input_v": self.inverting_input_v,
                 "supply_span_v": self.supply_span_v,
                 "devices": [d.as_json() for d in self.devices]}
+        if self.output_n_v is not None:
+            data["output_n_v"] = self.output_n_v
+        return data
 
     def problems(self, limits: OperatingPointLimits) -> list[str]:
         """What is wrong with it against ``limits`` (the job's ``[operating_point]``), one
         clause each (empty: nothing found)."""
         found = []
-        shift = self.output_shift_v
         span = self.supply_span_v
-        if shift is not None and span is not None and abs(shift) > limits.max_output_shift * span:
-            found.append(
-                f"the DC output sits at {engineering(self.output_v, 'V')}, "
-                f"{engineering(abs(shift), 'V')} {'above' if shift > 0 else 'below'} the "
-                f"{engineering(self.common_mode_v, 'V')} common mode, more than "
-                f"{limits.max_output_shift:.0%} of the {engineering(span, 'V')} supply span")
+        outputs = [("the DC output", self.output_v)]
+        if self.output_n_v is not None:
+            outputs = [("the first output", self.output_v), ("the second output", self.output_n_v)]
+        for what, volts in outputs:
+            if volts is None or self.common_mode_v is None or span is None:
+                continue
+            shift = volts - self.common_mode_v
+            if abs(shift) > limits.max_output_shift * span:
+                found.append(
+                    f"{what} sits at {engineering(volts, 'V')}, "
+                    f"{engineering(abs(shift), 'V')} {'above' if shift > 0 else 'below'} the "
+                    f"{engineering(self.common_mode_v, 'V')} common mode, more than "
+                    f"{limits.max_output_shift:.0%} of the {engineering(span, 'V')} supply span")
         for device in self.devices:
             if device.region == "off":
                 found.append(f"{device.name} ({device.role}) is off, its model reporting "
@@ -187,6 +200,8 @@ class OperatingPointProbe:
     ----------
     output, common_mode, inverting_input
         The vectors of the output, the common-mode source's node and the inverting input.
+    output_n
+        The second output's vector of a fully-differential amplifier; None otherwise.
     supplies
         The vectors of the ports driven by voltage sources.
     devices
@@ -201,6 +216,7 @@ class OperatingPointProbe:
     devices: tuple[tuple[str, str], ...]
     limits: OperatingPointLimits
     inverting_input: str = "v(tb_inn)"
+    output_n: str | None = None
 
     @classmethod
     def for_amplifier(cls, amplifier: Amplifier) -> OperatingPointProbe:
@@ -211,6 +227,10 @@ class OperatingPointProbe:
                                        if s.kind == "volts"))
         devices = tuple((role, getattr(job.amplifier, role)) for role in _ROLES
                         if getattr(job.amplifier, role))
+        if job.amplifier.fully_differential:  # both inputs float; the signal source holds it
+            return cls(output=f"v({NODE_AMP})", common_mode="v(tb_sig)", supplies=supplies,
+                       devices=devices, limits=job.operating_point,
+                       output_n=f"v({NODE_AMP_N})")
         return cls(output=f"v({NODE_AMP})", common_mode="v(tb_inp)", supplies=supplies,
                    devices=devices, limits=job.operating_point)
 
@@ -219,6 +239,8 @@ class OperatingPointProbe:
         model without ``vdsat`` leaves that device's region unknown, never the loop gain
         unread)."""
         reads = [self.output, self.common_mode, self.inverting_input, *self.supplies]
+        if self.output_n is not None:
+            reads.append(self.output_n)
         for _, name in self.devices:
             reads += [device_vector(name, "vds"), device_vector(name, "vdsat")]
         return Step(f"setplot {OP_PLOT}", tuple(dict.fromkeys(reads)), optional=True)
@@ -240,7 +262,8 @@ class OperatingPointProbe:
                         for role, name in self.devices)
         return OperatingPoint(output_v=value(self.output), common_mode_v=value(self.common_mode),
                               supply_span_v=span or None, devices=devices,
-                              inverting_input_v=value(self.inverting_input))
+                              inverting_input_v=value(self.inverting_input),
+                              output_n_v=self.output_n and value(self.output_n))
 
 
 _BROKEN_ADVICE = ("check what sets the DC level at the inverting input (a dc_path too large "

@@ -27,7 +27,7 @@ import numpy as np
 from amploop.analysis.loopgain import FrequencyResponse, double_injection, voltage_break
 from amploop.bench.requests import Step
 
-__all__ = ["RERUN_VECTOR", "DoubleInjection", "LcBreak", "Probe", "make_probe"]
+__all__ = ["RERUN_VECTOR", "DifferentialInjection", "DoubleInjection", "LcBreak", "Probe", "make_probe"]
 
 #: The vector a hand-runnable deck's formula (:meth:`Probe.rerun_formula`) defines.
 RERUN_VECTOR = "loop_gain"
@@ -89,12 +89,21 @@ class DoubleInjection(Probe):
     ----------
     name
         The probe's name, as ``[analysis].probe`` gives it.
+    series_source, shunt_source
+        The names of the series voltage and the shunt current injection source.
+    starts_on
+        Whether the deck starts with the series injection on (AC 1); a probe that runs
+        after another one's starts with it off and switches it on in its first step.
+    first_plot
+        The number of ngspice's plot its first AC run makes (``ac1``, ``ac2``, …), for the
+        hand-runnable deck's formula.
     """
 
     name: str = "double-injection"
-    #: The series voltage injection source, and the shunt current injection source.
-    series_source = "Vtb_series"
-    shunt_source = "Itb_shunt"
+    series_source: str = "Vtb_series"
+    shunt_source: str = "Itb_shunt"
+    starts_on: bool = True
+    first_plot: int = 1
 
     @property
     def _series_current(self) -> str:
@@ -102,10 +111,11 @@ class DoubleInjection(Probe):
         return f"i({self.series_source.lower()})"
 
     def elements(self, a: str, b: str) -> list[str]:
-        """The series source with its + terminal at ``b`` and its − at ``a`` (AC 1), and the
-        shunt source from ground into ``a`` (AC 0 until the second run)."""
+        """The series source with its + terminal at ``b`` and its − at ``a`` (AC 1, or 0
+        until its first step when it does not start on), and the shunt source from ground
+        into ``a`` (AC 0 until the second run)."""
         return [
-            f"{self.series_source} {b} {a} dc 0 ac 1",
+            f"{self.series_source} {b} {a} dc 0 ac {1 if self.starts_on else 0}",
             f"{self.shunt_source} 0 {a} dc 0 ac 0",
         ]
 
@@ -113,25 +123,115 @@ class DoubleInjection(Probe):
         """Run 1 of ``ac_command`` with the voltage injection (reads v(``a``) and v(``b``)),
         the two ``alter`` commands that swap the injections, and run 2 with the current
         injection (reads the series source's current)."""
-        return (
+        switch_on = () if self.starts_on else (
+            Step(f"alter {self.series_source.lower()} acmag=1"),)
+        return switch_on + (
             Step(ac_command, ("frequency", f"v({a})", f"v({b})")),
             Step(f"alter {self.series_source.lower()} acmag=0"),
             Step(f"alter {self.shunt_source.lower()} acmag=1"),
             Step(ac_command, ("frequency", self._series_current)),
         )
 
+    def off_steps(self) -> tuple[Step, ...]:
+        """The command that leaves the deck with neither injection on, after :meth:`steps`."""
+        return (Step(f"alter {self.shunt_source.lower()} acmag=0"),)
+
     def loop_gain(self, reads, a, b):
         """T from run 1's v(``b``) (``a`` is the amplifier side) and run 2's series-source current in
         ``reads`` (:func:`~amploop.analysis.loopgain.double_injection`)."""
-        run1, run2 = reads[0], reads[3]
+        first = 0 if self.starts_on else 1  # after the step that switches it on
+        run1, run2 = reads[first], reads[first + 3]
         values = double_injection(run1[f"v({b})"], run2[self._series_current])
         return FrequencyResponse(np.real(run1["frequency"]), values)
 
-    def rerun_formula(self, a, b):
+    def rerun_formula(self, a, b, vector: str = RERUN_VECTOR):
         """T = 1/(v(``b``) of run 1 − the series source's current of run 2) − 1
         (:func:`~amploop.analysis.loopgain.double_injection`; v(``a``) is implied by
-        v(``b``) − v(``a``) = 1)."""
-        return [f"let {RERUN_VECTOR} = 1/(ac1.v({b}) - ac2.{self._series_current}) - 1"]
+        v(``b``) − v(``a``) = 1), into ``vector``."""
+        run1, run2 = f"ac{self.first_plot}", f"ac{self.first_plot + 1}"
+        return [f"let {vector} = 1/({run1}.v({b}) - {run2}.{self._series_current}) - 1"]
+
+
+@dataclass(frozen=True)
+class DifferentialInjection(Probe):
+    """Double injection at both outputs of a fully-differential amplifier, in anti-phase.
+
+    Each output gets a series voltage source and a shunt current source, as
+    :class:`DoubleInjection` does; run 1 drives the series sources with +½ and −½, run 2
+    the shunt sources with +½ and −½ (into the ``a`` side of the first output and out of
+    the second's). In the differential half circuit of a symmetric amplifier these are a
+    unit injection, and the half circuit's own double injection formula gives
+
+        T_d = 1 / ((v(b) − v(b_n)) of run 1 − (i_p + i_n) of run 2) − 1,
+
+    with i_p and i_n the series sources' branch currents as ngspice reports them (the
+    second one is written the other way round, + at its amplifier side, so that its
+    current is the first one's mirror image). For a symmetric circuit this is exactly the
+    differential-mode loop gain; with mismatched halves it is the loop gain of the
+    differential part of the response to a purely differential injection (the common
+    mode it stirs up is left out).
+
+    Attributes
+    ----------
+    name
+        The probe's name, as ``[analysis].probe`` gives it.
+    a_n, b_n
+        The amplifier side and the feedback side of the second output's break.
+    series, shunt
+        The names of the two series voltage sources and the two shunt current sources,
+        first output's first.
+    """
+
+    name: str = "double-injection"
+    a_n: str = "tb_outn"
+    b_n: str = "tb_fbn"
+    series: tuple[str, str] = ("Vtb_series", "Vtb_series_n")
+    shunt: tuple[str, str] = ("Itb_shunt", "Itb_shunt_n")
+
+    def _currents(self) -> tuple[str, str]:
+        return tuple(f"i({name.lower()})" for name in self.series)
+
+    def elements(self, a: str, b: str) -> list[str]:
+        """Both outputs' series sources (AC ½ each, the second written + at its amplifier
+        side) and shunt sources (AC 0 until the second run); ``a`` and ``b`` are the first
+        output's amplifier and feedback side."""
+        return [
+            f"{self.series[0]} {b} {a} dc 0 ac 0.5",
+            f"{self.series[1]} {self.a_n} {self.b_n} dc 0 ac 0.5",
+            f"{self.shunt[0]} 0 {a} dc 0 ac 0",
+            f"{self.shunt[1]} {self.a_n} 0 dc 0 ac 0",
+        ]
+
+    def steps(self, ac_command: str, a: str, b: str) -> tuple[Step, ...]:
+        """Run 1 of ``ac_command`` (reads v(``b``) and v(``b_n``); ``a`` is implied), the
+        ``alter`` commands that swap the injections, run 2 (reads both series sources'
+        currents)."""
+        return (
+            Step(ac_command, ("frequency", f"v({b})", f"v({self.b_n})")),
+            *[Step(f"alter {name.lower()} acmag=0") for name in self.series],
+            *[Step(f"alter {name.lower()} acmag=0.5") for name in self.shunt],
+            Step(ac_command, ("frequency", *self._currents())),
+        )
+
+    def off_steps(self) -> tuple[Step, ...]:
+        """The commands that leave the deck with no injection on, after :meth:`steps`."""
+        return tuple(Step(f"alter {name.lower()} acmag=0") for name in self.shunt)
+
+    def loop_gain(self, reads, a, b):
+        """T_d from run 1's v(``b``), v(``b_n``) and run 2's currents in ``reads``
+        (the formula above, ``a`` implied; :func:`~amploop.analysis.loopgain.double_injection`)."""
+        run1, run2 = reads[0], reads[5]
+        i_p, i_n = self._currents()
+        values = double_injection(run1[f"v({b})"] - run1[f"v({self.b_n})"],
+                                  run2[i_p] + run2[i_n])
+        return FrequencyResponse(np.real(run1["frequency"]), values)
+
+    def rerun_formula(self, a, b, vector: str = RERUN_VECTOR):
+        """T_d = 1/((v(``b``) − v(``b_n``)) of run 1 − (i_p + i_n) of run 2) − 1, into
+        ``vector`` (``a`` implied)."""
+        i_p, i_n = self._currents()
+        return [(f"let {vector} = 1/((ac1.v({b}) - ac1.v({self.b_n})) - (ac2.{i_p} + "
+                 f"ac2.{i_n})) - 1")]
 
 
 @dataclass(frozen=True)

@@ -23,9 +23,10 @@ from pathlib import Path
 
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.bench.amplifier import Amplifier
-from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK, port_node
+from amploop.bench.loops import LoopReadout, loop_readout
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_FEEDBACK, NODE_FEEDBACK_N, port_node
 from amploop.bench.oppoint import KEEP_OP_LINE, OperatingPoint, OperatingPointProbe
-from amploop.bench.probe import RERUN_VECTOR, DoubleInjection, Probe, make_probe
+from amploop.bench.probe import DoubleInjection, Probe
 from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.spec.model import Corner
 from amploop.spice.ngread import deck_text
@@ -48,8 +49,8 @@ class Testbench:
         ngspice netlist text, title line first and ``.end`` last, no ``.control`` block.
     steps
         Simulator commands to run after loading the deck.
-    probe
-        The loop-gain probe in it.
+    loops
+        The loop-gain probes in it, and which runs hold which loop.
     files
         Files the deck reads (absolute paths).
     notes
@@ -65,7 +66,7 @@ class Testbench:
     values: dict[str, float]
     deck: str
     steps: tuple[Step, ...]
-    probe: Probe
+    loops: LoopReadout
     files: tuple[Path, ...]
     notes: tuple[str, ...] = ()
     label: str = ""
@@ -78,8 +79,13 @@ class Testbench:
                                steps=self.steps, time_limit_s=time_limit_s, after=after)
 
     def loop_gain(self, output: AnalysisOutput) -> FrequencyResponse:
-        """The loop gain from ``output``, a finished analysis of this testbench."""
-        return self.probe.loop_gain(output.reads, NODE_AMP, NODE_FEEDBACK)
+        """The loop gain from ``output``, a finished analysis of this testbench (the
+        differential loop's for a fully-differential amplifier)."""
+        return self.loops.loop_gain(output.reads)
+
+    def common_mode_loop_gain(self, output: AnalysisOutput) -> FrequencyResponse | None:
+        """The common-mode loop's gain from ``output``; None when it is not measured."""
+        return self.loops.common_mode_loop_gain(output.reads)
 
     def operating_point(self, output: AnalysisOutput) -> OperatingPoint | None:
         """The DC operating point read in ``output`` (None when the deck reads none or
@@ -92,7 +98,8 @@ class Testbench:
         """The deck with a ``.control`` block, to rerun by hand: ``ngspice -b FILE``.
 
         It runs the same commands and writes the loop gain (frequency, real, imaginary)
-        to ``data_file`` with ngspice's ``wrdata``.
+        to ``data_file`` with ngspice's ``wrdata``; the common-mode loop's, when measured,
+        goes to the same name with ``-cm`` before its suffix.
 
         Parameters
         ----------
@@ -105,8 +112,10 @@ class Testbench:
             "set num_threads=1",
             *[step.command for step in steps],
         ]
-        lines += self.probe.rerun_formula(NODE_AMP, NODE_FEEDBACK)
-        lines.append(f"wrdata {data_file} {RERUN_VECTOR}")
+        lines += self.loops.rerun_formula()
+        stem, dot, suffix = data_file.rpartition(".")
+        files = [data_file, f"{stem}-cm{dot}{suffix}" if dot else f"{data_file}-cm"]
+        lines += [f"wrdata {file} {vector}" for file, vector in zip(files, self.loops.vectors)]
         if self.op_probe is not None:  # the operating point, printed
             op = self.steps[-1]
             lines += [op.command, "print " + " ".join(op.read)]
@@ -145,7 +154,6 @@ def build_testbench(
     probe: Probe | None = None,
     ac_command: str | None = None,
     label: str | None = None,
-    extra_steps: tuple[Step, ...] = (),
 ) -> Testbench:
     """Write the closed-loop loop-gain testbench for one corner.
 
@@ -159,30 +167,28 @@ def build_testbench(
         Compensation values by role (``cc`` in farads, ``rc`` in ohms or a device size);
         roles left out keep the netlist's value.
     probe
-        Defaults to the job's ``[analysis].probe``.
+        Defaults to the job's ``[analysis].probe`` (a fully-differential amplifier has
+        its own probes).
     ac_command
         Defaults to the job's sweep.
     label
         Names the analysis in messages and in the journal (default: the corner's name).
-    extra_steps
-        Commands to run before the probe's (e.g. an ``op`` that reads device gm).
 
     Returns
     -------
     Testbench
     """
     job = amplifier.job
-    probe = probe or make_probe(job.analysis.probe)
+    loops = loop_readout(job, probe)
     ac_command = ac_command or job.analysis.ac_command()
     full_values = amplifier.values_in_effect(values)
     # the AC analysis keeps its operating point as a plot, read after the AC runs
-    loop = [*probe.elements(NODE_AMP, NODE_FEEDBACK), KEEP_OP_LINE]
+    loop = [*loops.elements(), KEEP_OP_LINE]
     deck, notes = closed_loop_deck(amplifier, corner, full_values, loop_elements=loop,
                                    title=f"amploop loop gain: job {job.name}, corner {corner.name}")
     op_probe = OperatingPointProbe.for_amplifier(amplifier)
-    steps = (tuple(extra_steps) + probe.steps(ac_command, NODE_AMP, NODE_FEEDBACK)
-             + (op_probe.step(),))
-    return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, probe=probe,
+    steps = loops.steps(ac_command) + (op_probe.step(),)
+    return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, loops=loops,
                      files=amplifier.files, notes=tuple(notes), label=label or corner.name,
                      op_probe=op_probe)
 
@@ -254,30 +260,29 @@ def build_step_testbench(
     -------
     StepBench
     """
-    from amploop.spice.expressions import evaluate
-
     job = amplifier.job
     full_values = amplifier.values_in_effect(values)
     _job_text(job, job.bias.common_mode, "[bias].common_mode")
-    try:
-        start = evaluate(job.bias.common_mode, {k: repr(v) for k, v in corner.params.items()})
-        low, high = spice_number(start), spice_number(start + step_v)
-    except ValueError:
-        low, high = _quote(job.bias.common_mode), "{" + f"{job.bias.common_mode}+{step_v!r}" + "}"
     step_at = 0.02 * stop_s
     rise = 1e-4 * stop_s
-    signal = (f"pulse({low} {high} {spice_number(step_at)} {spice_number(rise)} "
-              f"{spice_number(rise)} {spice_number(10 * stop_s)} {spice_number(20 * stop_s)})")
+    # a fully-differential amplifier gets the step in anti-phase, half on each input
+    halves = (step_v / 2, -step_v / 2) if amplifier.fully_differential else (step_v,)
+    signals = [_pulse(job, corner, half, step_at, rise, stop_s) for half in halves]
+    shorts = [f"{DoubleInjection.series_source} {NODE_FEEDBACK} {NODE_AMP} dc 0"]
+    if amplifier.fully_differential:
+        shorts.append(f"Vtb_series_n {NODE_AMP_N} {NODE_FEEDBACK_N} dc 0")
+    if amplifier.common_mode_break is not None:
+        shorts.append("Vtb_cm_series tb_cmb tb_cma dc 0")
     deck, _ = closed_loop_deck(
         amplifier, corner, full_values,
-        loop_elements=[f"{DoubleInjection.series_source} {NODE_FEEDBACK} {NODE_AMP} dc 0",
-                       ".options reltol=1e-6 vntol=1e-9 abstol=1e-15"],
+        loop_elements=[*shorts, ".options reltol=1e-6 vntol=1e-9 abstol=1e-15"],
         title=f"amploop step response: job {job.name}, corner {corner.name}",
-        signal=signal,
+        signal=signals[0], signal_n=signals[-1],
     )
     tmax = stop_s / 4000
     command = f"tran {spice_number(tmax)} {spice_number(stop_s)} 0 {spice_number(tmax)}"
-    reads = ["time", f"v({NODE_AMP})"]
+    reads = ["time", f"v({NODE_AMP})"] + ([f"v({NODE_AMP_N})"] if amplifier.fully_differential
+                                          else [])
     device = amplifier.device
     if device is not None:  # the triode device's terminals, for the linearity check
         reads += [v for v in dict.fromkeys(amplifier.node_vector(n) for n in
@@ -288,6 +293,21 @@ def build_step_testbench(
                      step_at_s=step_at, stop_s=stop_s, label=label or f"{corner.name} (step)")
 
 
+def _pulse(job, corner: Corner, step_v: float, step_at_s: float, rise_s: float,
+           stop_s: float) -> str:
+    """The signal source's waveform: from the common mode up by ``step_v`` (volts) at
+    ``step_at_s``, rising in ``rise_s``, for a run of ``stop_s`` (seconds)."""
+    from amploop.spice.expressions import evaluate
+
+    try:
+        start = evaluate(job.bias.common_mode, {k: repr(v) for k, v in corner.params.items()})
+        low, high = spice_number(start), spice_number(start + step_v)
+    except ValueError:
+        low, high = _quote(job.bias.common_mode), "{" + f"{job.bias.common_mode}+{step_v!r}" + "}"
+    return (f"pulse({low} {high} {spice_number(step_at_s)} {spice_number(rise_s)} "
+            f"{spice_number(rise_s)} {spice_number(10 * stop_s)} {spice_number(20 * stop_s)})")
+
+
 def closed_loop_deck(
     amplifier: Amplifier,
     corner: Corner,
@@ -296,12 +316,15 @@ def closed_loop_deck(
     loop_elements: list[str],
     title: str,
     signal: str = "ac 0",
+    signal_n: str = "ac 0",
 ) -> tuple[str, list[str]]:
     """The deck text of the amplifier in its feedback loop.
 
-    ``loop_elements`` connect ``tb_out`` (amplifier side) to ``tb_fb`` (feedback side):
-    a probe, or a plain short for time-domain runs. ``signal`` is appended to the signal
-    source (``ac 0`` for loop-gain runs, a ``pulse(...)`` for a step).
+    ``loop_elements`` connect ``tb_out`` (amplifier side) to ``tb_fb`` (feedback side),
+    and for a fully-differential amplifier ``tb_outn`` to ``tb_fbn`` and the common-mode
+    break's two sides: probes, or plain shorts for time-domain runs. ``signal`` is appended
+    to the signal source (``ac 0`` for loop-gain runs, a ``pulse(...)`` for a step), and
+    ``signal_n`` to the second output's signal source.
     """
     job = amplifier.job
     text = partial(_job_text, job)  # every job string written below passes through it
@@ -348,24 +371,41 @@ def closed_loop_deck(
             lines.append(f"Vbias{number} {node} 0 dc {value}  ; port {port}")
         else:
             lines.append(f"Ibias{number} {node} 0 dc {value}  ; port {port}")
-    instance = ["X1", *[nodes[p.lower()] for p in subckt.ports], subckt.name]
+    if job.amplifier.out_n is not None:
+        nodes[job.amplifier.out_n.lower()] = NODE_AMP_N
+    instance = ["X1", *[nodes[p.lower()] for p in subckt.ports], *amplifier.extra_ports,
+                subckt.name]
     instance += [f"{text(k, '[compensation]')}={v}" for k, v in instance_params.items()]
     lines.append(" ".join(instance))
     common_mode = _quote(text(job.bias.common_mode, "[bias].common_mode"))
-    lines.append(f"Vcm tb_inp 0 dc {common_mode}")
-    lines.append(f"Vsig tb_sig 0 dc {common_mode} {signal}")
-    fb = job.feedback
-    def feedback(key: str) -> str:
-        return _quote(text(getattr(fb, key), f"[feedback].{key}"))
-
-    if fb.kind == "resistive":
-        lines.append(f"Rin tb_sig tb_inn {feedback('input')}")
-        lines.append(f"Rfb {NODE_FEEDBACK} tb_inn {feedback('feedback')}")
-    else:
-        lines.append(f"Cin tb_sig tb_inn {feedback('input')}")
-        lines.append(f"Cfb {NODE_FEEDBACK} tb_inn {feedback('feedback')}")
-        lines.append(f"Rdc {NODE_FEEDBACK} tb_inn {feedback('dc_path')}")
-    lines.append(f"Cload {NODE_AMP} 0 {feedback('load')}")
+    sides = [("", "tb_sig", "tb_inn", NODE_FEEDBACK, NODE_AMP, signal)]
+    if job.amplifier.out_n is None:
+        lines.append(f"Vcm tb_inp 0 dc {common_mode}")
+    else:  # the same network on the second side, from tb_outn back to the other input
+        sides.append(("n", "tb_sign", "tb_inp", NODE_FEEDBACK_N, NODE_AMP_N, signal_n))
+    for suffix, sig, inverting, fb_node, out_node, waveform in sides:
+        lines.append(f"Vsig{suffix} {sig} 0 dc {common_mode} {waveform}")
+        lines.extend(_feedback_lines(job, text, suffix, sig, inverting, fb_node, out_node))
     lines.extend(loop_elements)
     lines.append(".end")
     return "\n".join(lines) + "\n", notes
+
+
+def _feedback_lines(job, text, suffix: str, sig: str, inverting: str, fb_node: str,
+                    out_node: str) -> list[str]:
+    """The feedback network of one side: Z1 from ``sig`` to ``inverting``, Z2 from
+    ``fb_node`` to ``inverting`` (with the DC path across a capacitor), the load at
+    ``out_node``; element names end in ``suffix``."""
+    fb = job.feedback
+
+    def value(key: str) -> str:
+        return _quote(text(getattr(fb, key), f"[feedback].{key}"))
+
+    if fb.kind == "resistive":
+        lines = [f"Rin{suffix} {sig} {inverting} {value('input')}",
+                 f"Rfb{suffix} {fb_node} {inverting} {value('feedback')}"]
+    else:
+        lines = [f"Cin{suffix} {sig} {inverting} {value('input')}",
+                 f"Cfb{suffix} {fb_node} {inverting} {value('feedback')}",
+                 f"Rdc{suffix} {fb_node} {inverting} {value('dc_path')}"]
+    return lines + [f"Cload{suffix} {out_node} 0 {value('load')}"]

@@ -24,7 +24,12 @@ from amploop.corners.outputs import (
     write_into,
 )
 from amploop.corners.portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
-from amploop.corners.results import CornerResult, MeasureResult, assess_loop_gain
+from amploop.corners.results import (
+    CornerResult,
+    MeasureResult,
+    assess_common_mode,
+    assess_loop_gain,
+)
 from amploop.errors import AmploopError
 from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool, default_workers
@@ -72,8 +77,9 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
                             error="the simulator returned non-finite loop-gain values")
     op = bench.operating_point(output)
     # figures a worker already read off (CornerWork), else read them here
-    margins, status, reason = output.after if output.after is not None else \
-        assess_loop_gain(response, op, bench.op_probe and bench.op_probe.limits)
+    margins, status, reason, common_mode = output.after if output.after is not None else \
+        corner_figures(bench, output)
+    cm_response = bench.common_mode_loop_gain(output)
     return CornerResult(
         corner=bench.corner,
         status=status,
@@ -83,7 +89,29 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
         warnings=output.warnings,
         operating_point=op,
         suspect_reason=reason if status == "suspect" else None,
+        common_mode=common_mode,
+        common_mode_loop_gain=cm_response,
+        measures_common_mode=bench.loops.common_mode is not None,
     )
+
+
+def corner_figures(bench: Testbench, output) -> tuple:
+    """The margins of a finished analysis ``output`` of ``bench``, its status and reason
+    (:func:`~amploop.corners.results.assess_loop_gain`), and the common-mode loop's
+    margins (None when not measured). A common-mode loop that is negative at DC makes the
+    corner an error, one that never crosses 0 dB makes it suspect, each saying so."""
+    response = bench.loop_gain(output)
+    probe = bench.op_probe
+    margins, status, reason = assess_loop_gain(response, bench.operating_point(output),
+                                               probe and probe.limits)
+    cm_response = bench.common_mode_loop_gain(output)
+    if cm_response is None:
+        return margins, status, reason, None
+    common_mode, problem = assess_common_mode(cm_response)
+    if problem is not None and status != "error":
+        status = "error" if "negative" in problem else "suspect"
+        reason = problem if reason is None else f"{reason}; {problem}"
+    return margins, status, reason, common_mode
 
 
 @dataclass(frozen=True)
@@ -105,7 +133,8 @@ class CornerWork:
     folder
         The out folder (absolute).
     csv
-        Where the loop-gain CSV goes, relative to ``folder``.
+        Where the loop-gain CSV goes, relative to ``folder`` (the common-mode loop's
+        gets ``-cm`` before the suffix).
     deck
         Where the deck to rerun by hand goes, relative to ``folder``.
     data_file
@@ -135,23 +164,29 @@ class CornerWork:
     def files(self, result: CornerResult) -> list[str]:
         """The files :meth:`write_files` writes for the corner's ``result``, relative to
         the folder."""
-        return [self.deck] + ([self.csv] if result.loop_gain is not None else [])
+        return ([self.deck] + ([self.csv] if result.loop_gain is not None else [])
+                + ([self.cm_csv] if result.common_mode_loop_gain is not None else []))
 
-    def write_files(self, response: FrequencyResponse | None) -> None:
+    @property
+    def cm_csv(self) -> str:
+        """Where the common-mode loop's CSV goes, relative to the folder."""
+        return self.csv.removesuffix(".csv") + "-cm.csv"
+
+    def write_files(self, response: FrequencyResponse | None,
+                    cm_response: FrequencyResponse | None = None) -> None:
         """The deck to rerun by hand (naming the files it reads relative to itself), and the
-        loop-gain CSV when there is a loop gain (``response``); written in place (a rerun
-        writes them again)."""
+        loop-gain CSVs when there is a loop gain (``response``, and ``cm_response`` of the
+        common-mode loop); written in place (a rerun writes them again)."""
         deck = self.includes.rewrite(self.bench.hand_deck(data_file=self.data_file))
         write_into(self.folder, self.deck, deck, atomic=False)
         if response is not None:
             write_into(self.folder, self.csv, loop_gain_csv(response), atomic=False)
+        if cm_response is not None:
+            write_into(self.folder, self.cm_csv, loop_gain_csv(cm_response), atomic=False)
 
-    def __call__(self, output) -> tuple[Margins, str, str | None]:
-        response = self.bench.loop_gain(output)
-        probe = self.bench.op_probe
-        figures = assess_loop_gain(response, self.bench.operating_point(output),
-                                   probe and probe.limits)
-        self.write_files(response)
+    def __call__(self, output) -> tuple[Margins, str, str | None, Margins | None]:
+        figures = corner_figures(self.bench, output)
+        self.write_files(self.bench.loop_gain(output), self.bench.common_mode_loop_gain(output))
         return figures
 
 
@@ -249,7 +284,7 @@ def _measure_into(job, amplifier, values, benches, folder, journal, pool, worker
             if folder is not None and getattr(output, "after", None) is None:
                 # not done in a worker: taken from the journal, a remote or failed
                 # analysis, or a worker whose write failed
-                works[name].write_files(result.loop_gain)
+                works[name].write_files(result.loop_gain, result.common_mode_loop_gain)
             if progress is not None:
                 progress(len(results), len(benches), result)
         if time_domain:

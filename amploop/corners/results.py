@@ -52,6 +52,14 @@ class CornerResult:
         The :attr:`~amploop.errors.SimulatorError.kind` of the simulator's failure when
         its analysis failed (``"parse"``: ngspice refused the deck); None otherwise (also
         for a loop gain that was simulated but is unusable).
+    common_mode
+        The common-mode feedback loop's margins of a fully-differential amplifier; None
+        when that loop was not measured.
+    common_mode_loop_gain
+        The common-mode loop's gain; None when not measured.
+    measures_common_mode
+        Whether the job measures a common-mode loop (its results.json entry then has a
+        ``common_mode`` table, null where the figures are missing).
     """
 
     corner: Corner
@@ -63,6 +71,9 @@ class CornerResult:
     operating_point: OperatingPoint | None = None
     suspect_reason: str | None = None
     error_kind: str | None = None
+    common_mode: Margins | None = None
+    common_mode_loop_gain: FrequencyResponse | None = field(default=None, repr=False)
+    measures_common_mode: bool = False
 
     @property
     def problem(self) -> str | None:
@@ -78,11 +89,9 @@ class CornerResult:
 
     def as_json(self) -> dict:
         """The corner's entry in results.json: the corner, status, error, figures, warnings."""
-        figures = dict.fromkeys(
-            ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db",
-             "phase_crossover_hz"))
-        if self.margins is not None:
-            figures.update(self.margins.as_dict())
+        figures = _figures(self.margins)
+        common_mode = {"common_mode": _figures(self.common_mode)} \
+            if self.measures_common_mode else {}
         return {
             "name": self.corner.name,
             "lib": self.corner.lib,
@@ -92,6 +101,7 @@ class CornerResult:
             "error": self.error,
             "suspect_reason": self.suspect_reason,
             **figures,
+            **common_mode,
             "operating_point": self.operating_point and self.operating_point.as_json(),
             "warnings": list(self.warnings),
         }
@@ -187,6 +197,36 @@ class MeasureResult:
             "seconds": self.seconds,
             "warnings": list(self.warnings),
         }
+
+
+def _figures(margins: Margins | None) -> dict:
+    """The figures of ``margins`` by results.json key, null for each when there are none."""
+    figures = dict.fromkeys(("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg",
+                             "gain_margin_db", "phase_crossover_hz"))
+    if margins is not None:
+        figures.update(margins.as_dict())
+    return figures
+
+
+def assess_common_mode(response: FrequencyResponse) -> tuple[Margins, str | None]:
+    """Margins of a measured common-mode loop gain, and what makes them unusable (None:
+    nothing). A loop gain that is negative at DC with |T| below 1 is what a break source
+    written the wrong way round gives (about −6 dB): that is said."""
+    from amploop.spice.units import engineering
+
+    margins = loop_margins(response)
+    dc_db, dc_phase = margins.dc_loop_gain_db, float(response.phase_deg[0])
+    f0, f1 = response.frequency_hz[0], response.frequency_hz[-1]
+    if abs(dc_phase) > 90.0:
+        hint = ("; is the break source written the wrong way round? its first node must be "
+                "the driving side" if dc_db < 0 else ": check the common-mode feedback's "
+                "polarity")
+        return margins, (f"the common-mode loop gain is negative at {engineering(f0, 'Hz')} "
+                         f"(phase {dc_phase:.0f}°, |T| {dc_db:.1f} dB){hint}")
+    if margins.unity_gain_hz is None:
+        return margins, (f"the common-mode loop gain never crosses 0 dB between "
+                         f"{engineering(f0, 'Hz')} and {engineering(f1, 'Hz')}")
+    return margins, None
 
 
 def assess_loop_gain(response: FrequencyResponse, op: OperatingPoint | None = None,

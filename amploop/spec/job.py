@@ -43,7 +43,7 @@ _TOP_KEYS = {
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
-    "second_stage_device",
+    "second_stage_device", "out_n", "common_mode_break",
 }
 
 
@@ -126,6 +126,9 @@ def _build_job(path: Path, data: dict) -> Job:
         input_device=r.string(amp_data, "input_device", "[amplifier]", required=False),
         second_stage_device=r.string(amp_data, "second_stage_device", "[amplifier]",
                                      required=False),
+        out_n=r.string(amp_data, "out_n", "[amplifier]", required=False),
+        common_mode_break=r.string(amp_data, "common_mode_break", "[amplifier]",
+                                   required=False),
     )
 
     bias = read_bias(r, r.table(data, "bias", "[bias]"))
@@ -137,6 +140,7 @@ def _build_job(path: Path, data: dict) -> Job:
     defaults = read_params(r, data.get("params", {}), "[params]")
     corners = read_corners(r, data, defaults)
 
+    _check_differential(r, amplifier, target, compensation)
     job = Job(
         path=path,
         name=name,
@@ -156,6 +160,30 @@ def _build_job(path: Path, data: dict) -> Job:
     check_corner_params(r, job)
     check_feedback_resistors(job)
     return job
+
+
+def _check_differential(r: Reader, amplifier: Amplifier, target, compensation) -> None:
+    """The keys of a fully-differential job agree: two distinct outputs, a common-mode
+    break only with them, common-mode targets only with a break, element pairs only for a
+    fully-differential amplifier."""
+    if amplifier.out_n is not None and amplifier.out_n.lower() == amplifier.out.lower():
+        raise r.fail("[amplifier].out_n", f"is the same port as out ({amplifier.out!r}); "
+                     "a fully-differential amplifier has two outputs")
+    if amplifier.common_mode_break is not None and amplifier.out_n is None:
+        raise r.fail("[amplifier].common_mode_break", "a common-mode break needs a "
+                     "fully-differential amplifier", hint="give its second output as out_n")
+    if target is not None and amplifier.common_mode_break is None:
+        for key, value in (("common_mode_phase_margin", target.common_mode_phase_margin_deg),
+                           ("common_mode_gain_margin", target.common_mode_gain_margin_db)):
+            if value is not None:
+                raise r.fail(f"[target].{key}", "a common-mode target needs the loop's break",
+                             hint="name the 0 V source on the common-mode feedback path as "
+                             "[amplifier].common_mode_break")
+    for role, knob in compensation.items():
+        if knob.twins and amplifier.out_n is None:
+            raise r.fail(f"[compensation].{role}.element", "a list of elements sets the two "
+                         "halves of a fully-differential amplifier", hint="give out_n, or "
+                         "one element")
 
 
 def _existing_file(r: Reader, job_path: Path, data: dict, key: str, place: str, *,

@@ -69,6 +69,13 @@ class Amplifier:
     input_device, second_stage_device
         An input-pair transistor and the second-stage driver, for the textbook strategy
         (their gm come from the operating point); None when not given.
+    out_n
+        The second output of a fully-differential amplifier (the one that falls with
+        ``in_p``); None for a single-ended amplifier.
+    common_mode_break
+        A 0 V voltage source inside the subckt on the common-mode feedback path, first
+        node on the driving side; amploop replaces it by its probe. None: the common-mode
+        loop is not measured.
     """
 
     netlist: Path
@@ -80,6 +87,13 @@ class Amplifier:
     includes: tuple[Path, ...] = ()
     input_device: str | None = None
     second_stage_device: str | None = None
+    out_n: str | None = None
+    common_mode_break: str | None = None
+
+    @property
+    def fully_differential(self) -> bool:
+        """Whether the amplifier has two outputs (``out_n`` given)."""
+        return self.out_n is not None
 
 
 @dataclass(frozen=True)
@@ -161,6 +175,9 @@ class Knob:
         value is rewritten) or ``"device"`` (a MOSFET whose ``size`` is tuned).
     name
         The parameter, element or device name.
+    twins
+        For ``where == "element"`` in a fully-differential amplifier: the matched
+        elements always set to the same value as ``name`` (the other half's Cc or Rc).
     size
         For ``where == "device"``: ``"w"``, ``"l"`` or ``"m"``.
     minimum, maximum
@@ -173,6 +190,7 @@ class Knob:
     size: str | None = None
     minimum: float | None = None
     maximum: float | None = None
+    twins: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -244,11 +262,16 @@ class Target:
         How far above it the worst corner may land where the bounds allow, degrees.
     gain_margin_db
         The minimum gain margin at every corner, dB; None for no minimum.
+    common_mode_phase_margin_deg, common_mode_gain_margin_db
+        The same minimums for the common-mode feedback loop of a fully-differential
+        amplifier, degrees and dB; None: that loop is measured, not targeted.
     """
 
     phase_margin_deg: float
     tolerance_deg: float = 1.0
     gain_margin_db: float | None = None
+    common_mode_phase_margin_deg: float | None = None
+    common_mode_gain_margin_db: float | None = None
 
 
 @dataclass(frozen=True)

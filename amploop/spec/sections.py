@@ -111,9 +111,24 @@ def read_compensation(r: Reader, data: dict) -> dict[str, Knob]:
                 what = "Cc" if role == "cc" else f"the device's {size.upper()}"
                 raise r.fail(f"{place}.{bound}", f"{what} must stay above zero: its {bound} "
                              "bound is 0", hint="give the smallest value worth trying")
-        knobs[role] = Knob(role=role, where=where, name=r.string(spec, where, place), size=size,
-                           minimum=minimum, maximum=maximum)
+        names = _knob_names(r, spec, where, place)
+        knobs[role] = Knob(role=role, where=where, name=names[0], size=size,
+                           minimum=minimum, maximum=maximum, twins=names[1:])
     return knobs
+
+
+def _knob_names(r: Reader, spec: dict, where: str, place: str) -> tuple[str, ...]:
+    """The name a knob's ``where`` key gives, or for ``element`` a list of two matched
+    elements (the halves of a fully-differential amplifier), first one first."""
+    value = spec.get(where)
+    if where != "element" or not isinstance(value, list):
+        return (r.string(spec, where, place),)
+    if len(value) != 2 or not all(isinstance(v, str) and v for v in value):
+        raise r.fail(f"{place}.element", "expected one element name, or a list of the two "
+                     'matched elements such as ["Cc1", "Cc2"]')
+    if value[0].lower() == value[1].lower():
+        raise r.fail(f"{place}.element", f"names {value[0]!r} twice")
+    return tuple(value)
 
 
 def read_analysis(r: Reader, data: dict) -> Analysis:
@@ -157,7 +172,16 @@ def read_target(r: Reader, data: dict) -> Target | None:
         raise r.fail("[target].tolerance", "must be above 0 degrees")
     gm = data.get("gain_margin")
     gm = None if gm is None else r.number(gm, "[target].gain_margin")
-    return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm)
+    cm_pm = data.get("common_mode_phase_margin")
+    if cm_pm is not None:
+        cm_pm = r.number(cm_pm, "[target].common_mode_phase_margin")
+        if not 0 < cm_pm < 180:
+            raise r.fail("[target].common_mode_phase_margin",
+                         f"expected degrees between 0 and 180, got {cm_pm:g}")
+    cm_gm = data.get("common_mode_gain_margin")
+    cm_gm = None if cm_gm is None else r.number(cm_gm, "[target].common_mode_gain_margin")
+    return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm,
+                  common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm)
 
 
 def read_transient(r: Reader, data: dict) -> Transient:
@@ -232,7 +256,8 @@ _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
 MAX_TIME_LIMIT_S = 1e6
 
 
-_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin"}
+_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin",
+                "common_mode_gain_margin"}
 
 
 _TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}

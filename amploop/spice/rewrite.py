@@ -19,6 +19,7 @@ from amploop.spice.source import Statement, active_statements, include_target, s
 
 __all__ = [
     "ANALYSIS_COMMANDS",
+    "add_subckt_ports",
     "element_value",
     "element_value_index",
     "render_file",
@@ -53,6 +54,18 @@ def replace_param(statement: Statement, name: str, value: str) -> str:
             tokens[i] = f"{prefix}{key}={value}"
             return " ".join(tokens)
     raise NetlistError(f"parameter {name!r} not set here", file=statement.file, place=statement.line)
+
+
+def add_subckt_ports(statement: Statement, nodes: tuple[str, ...]) -> str:
+    """The text of the ``.subckt`` ``statement`` with ``nodes`` appended to its ports
+    (before ``params:`` and the parameter defaults): inner nodes brought out to the
+    instance."""
+    tokens = list(statement.tokens)
+    end = 2
+    while end < len(tokens) and tokens[end].lower() != "params:" \
+            and not is_assignment(split_params_prefix(tokens[end])[1]):
+        end += 1
+    return " ".join(tokens[:end] + list(nodes) + tokens[end:])
 
 
 _VALUE_KEYS = {"r": ("r", "resistance"), "c": ("c", "capacitance"), "l": ("l", "inductance")}
