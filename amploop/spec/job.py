@@ -140,7 +140,7 @@ def _build_job(path: Path, data: dict) -> Job:
     defaults = read_params(r, data.get("params", {}), "[params]")
     corners = read_corners(r, data, defaults)
 
-    _check_differential(r, amplifier, target, compensation)
+    _check_differential(r, amplifier, target, compensation, analysis)
     job = Job(
         path=path,
         name=name,
@@ -162,13 +162,17 @@ def _build_job(path: Path, data: dict) -> Job:
     return job
 
 
-def _check_differential(r: Reader, amplifier: Amplifier, target, compensation) -> None:
+def _check_differential(r: Reader, amplifier: Amplifier, target, compensation,
+                        analysis) -> None:
     """The keys of a fully-differential job agree: two distinct outputs, a common-mode
     break only with them, common-mode targets only with a break, element pairs only for a
     fully-differential amplifier."""
     if amplifier.out_n is not None and amplifier.out_n.lower() == amplifier.out.lower():
         raise r.fail("[amplifier].out_n", f"is the same port as out ({amplifier.out!r}); "
                      "a fully-differential amplifier has two outputs")
+    if amplifier.out_n is not None and analysis.probe != "double-injection":
+        raise r.fail("[analysis].probe", f"a fully-differential amplifier is measured by "
+                     f"double injection only, not {analysis.probe!r}")
     if amplifier.common_mode_break is not None and amplifier.out_n is None:
         raise r.fail("[amplifier].common_mode_break", "a common-mode break needs a "
                      "fully-differential amplifier", hint="give its second output as out_n")
