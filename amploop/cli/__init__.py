@@ -11,13 +11,11 @@ import sys
 from enum import IntEnum
 from importlib.metadata import version
 
+from amploop.cli.progress import corner_progress, page_progress, tune_progress
 from amploop.cli.terminal import (
     corner_table,
-    page_progress,
     print_corner_errors,
     print_corner_remarks,
-    progress_printer,
-    tune_progress,
     values_line,
 )
 from amploop.errors import (
@@ -138,9 +136,9 @@ def _parser() -> argparse.ArgumentParser:
 def _write_report(out, args, *, quiet: bool, pngs: bool = True) -> None:
     from amploop.report import build_report
 
-    outcome = build_report(out, pngs=pngs, corner_pages=args.corner_page,
-                           all_corner_pages=args.all_corner_pages,
-                           progress=page_progress(quiet))
+    with page_progress(quiet) as progress:
+        outcome = build_report(out, pngs=pngs, corner_pages=args.corner_page,
+                               all_corner_pages=args.all_corner_pages, progress=progress)
     if not quiet:
         print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
 
@@ -175,6 +173,8 @@ def _run_measure(args) -> ExitCode:
 
     def finish(result) -> None:
         """Print the results and draw the report while the out folder is still held."""
+        if progress is not None:
+            progress.close()
         failed = [c for c in result.corners if c.status == "error"]
         suspect = [c for c in result.corners if c.status == "suspect"]
         if args.json:
@@ -193,11 +193,10 @@ def _run_measure(args) -> ExitCode:
         if not args.no_report and any(c.margins is not None for c in result.corners):
             _write_report(result.out, args, quiet=args.quiet or args.json)
 
-    with _cluster_pool(args) as pool:
+    with _cluster_pool(args) as pool, corner_progress(args.quiet) as progress:
         result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
-                         pool=pool, allow_control=args.allow_control,
-                         progress=progress_printer(args.quiet), time_domain=not args.no_report,
-                         finish=finish)
+                         pool=pool, allow_control=args.allow_control, progress=progress,
+                         time_domain=not args.no_report, finish=finish)
     failed = [c for c in result.corners if c.status == "error"]
     suspect = [c for c in result.corners if c.status == "suspect"]
     if failed:
@@ -233,8 +232,8 @@ def _run_tune(args) -> ExitCode:
 
     def finish(result) -> None:
         """Print the results and draw the report while the out folder is still held."""
-        if not args.quiet and sys.stderr.isatty():
-            sys.stderr.write("\n")
+        if progress is not None:
+            progress.close()  # its last line stays
         data = result.as_json()
         if args.json:
             print(json.dumps({k: data[k] for k in ("job", "strategy", "status", "values",
@@ -268,11 +267,10 @@ def _run_tune(args) -> ExitCode:
                           f"{engineering(info['square_law_ohm'], 'Ω', 4):>10}  "
                           f"{engineering(info['wanted_rc_ohm'], 'Ω', 4):>10}")
 
-    with _cluster_pool(args) as pool:
+    with _cluster_pool(args) as pool, tune_progress(args.quiet, job) as progress:
         result = tune(job, out=args.out, strategy=args.strategy, workers=args.workers,
                       pool=pool, allow_control=args.allow_control, resume=args.resume,
-                      progress=tune_progress(args.quiet, job),
-                      time_domain=not args.no_report, finish=finish)
+                      progress=progress, time_domain=not args.no_report, finish=finish)
     if result.status == "converged":
         return ExitCode.OK
     print(f"amploop: {result.status}: {result.outcome.message}", file=sys.stderr)

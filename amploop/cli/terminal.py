@@ -1,5 +1,6 @@
-"""What the terminal shows: the corner table, remarks on suspect corners, the progress
-lines of measure, tune and report, the chosen values. Printing only; no decisions."""
+"""What the terminal shows: the corner table, remarks on suspect corners, the chosen
+values, and the words of tune's progress line (the live displays are in
+:mod:`amploop.cli.progress`). Printing only; no decisions."""
 
 from __future__ import annotations
 
@@ -7,19 +8,6 @@ import sys
 
 from amploop.spice.labels import FIGURE_LABELS
 from amploop.spice.units import describe_values, engineering
-
-
-def page_progress(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done: int, total: int) -> None:
-        sys.stderr.write(f"\r  report: page {done}/{total}")
-        if done == total:
-            sys.stderr.write("\r" + " " * 40 + "\r")
-        sys.stderr.flush()
-
-    return show
 
 
 def _table(rows: list[list[str]], header: list[str]) -> str:
@@ -108,19 +96,6 @@ def print_corner_remarks(corners) -> None:
               + (f": {advice}" if advice else ""), file=sys.stderr)
 
 
-def progress_printer(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done: int, total: int, result) -> None:
-        sys.stderr.write(f"\r  corners {done}/{total}")
-        if done == total:
-            sys.stderr.write("\r" + " " * 40 + "\r")
-        sys.stderr.flush()
-
-    return show
-
-
 def values_line(job, values: dict) -> str:
     """``Cc = 292.8 fF, Rc = 20 kΩ``, or the device's size when one stands in for Rc."""
     knob = job.compensation.get("rc")
@@ -168,21 +143,3 @@ def tune_progress_line(entry, best: dict, target) -> str:
         f"{w.phase_margin_deg:.2f}° at {engineering(w.unity_gain_hz, 'Hz')}"
     return (f"best ≥ {target.phase_margin_deg:g}°: {answer} | step {entry.step} {kind_label(entry.kind)}: "
             f"{this} | {entry.ac_analyses} AC")
-
-
-def tune_progress(quiet: bool, job):
-    if quiet or not sys.stderr.isatty():
-        return None
-    best: dict = {}
-
-    def show(entry) -> None:
-        import shutil
-
-        if not best and entry.step == 1:
-            sys.stderr.write(TUNE_PROGRESS_KEY + "\n")
-        width = shutil.get_terminal_size((100, 24)).columns - 1
-        line = "  " + tune_progress_line(entry, best, job.target)
-        sys.stderr.write("\r" + line[:width].ljust(width))
-        sys.stderr.flush()
-
-    return show

@@ -44,76 +44,27 @@ def map_page(data: ReportData):
     its compensation map in ``data``."""
     name = data.limiting_corner
     cmap = data.maps.get(name) if name else None
+    device = data.results.get("device") if cmap is not None else None
     fig = new_page()
-    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name})", fontsize=13,
-             weight="bold")
-    fig.text(0.06, 0.922, "Every point computed from three analyses of the corner (the loop gain "
-             "is bilinear in the branch impedance Rc + 1/sCc); shaded: all corners meet the target.",
-             fontsize=8.5, color=style.MUTED)
+    _heading(fig, name, device)
     ax = fig.add_axes((0.08, 0.1, 0.62, 0.78))
     if cmap is None:
         ax.text(0.5, 0.5, "no compensation map in this out folder", ha="center",
                 transform=ax.transAxes)
         return fig
-    r = data.results
-    knobs = r.get("bounds") or {}
-    device = r.get("device")
-    cc_lo, cc_hi = knobs.get("cc", [min(s[0] for s in cmap.samples) / 3, max(s[0] for s in cmap.samples) * 3])
-    rc_lo, rc_hi = knobs.get("rc", [0.0, max(max(s[1] for s in cmap.samples) * 3, 1.0)])
-    chosen_rc = r.get("values", {}).get("rc", 0.0)
-    if device is not None:  # the device's resistance as this corner sees it
-        chosen_rc = data.device_corner(name)["resistance_ohm"]
-        rc_lo, rc_hi = 0.0, 3 * max(chosen_rc, max(s[1] for s in cmap.samples))
-        fig.texts[1].set_text(f"{device['name']} stands in for Rc: the vertical axis is its "
-                              "channel resistance as this corner sees it; shaded: this corner "
-                              "meets the target.")
+    (cc_lo, cc_hi), (rc_lo, rc_hi), chosen_rc = _plane(data, name, cmap)
     cc = cc_grid(cc_lo, cc_hi, 60)
     rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
     pm, ugf, _ = _map_margins(cmap, cc, rc)
     if rc.size > 1:
-        target = r.get("target", {})
-        if target:
-            # each corner costs a grid evaluation: above the count where every corner gets
-            # a page, the region is found on a grid of half the steps, at every fourth
-            # frequency (as the map strategy's first look)
-            few = len(data.maps) <= EVERY_CORNER_UP_TO
-            shade_cc, shade_rc = (cc, rc) if few else (cc[::2], rc[::2])
-            every = 2 if few else 4
-            pm_w, gm_w = _worst_grid(data, shade_cc, shade_rc, every) if device is None else \
-                _worst_grid(ReportData(data.out, r, [name], maps={name: cmap}), shade_cc,
-                            shade_rc, every)
-            ok = pm_w >= target["phase_margin_deg"]
-            if target.get("gain_margin_db") is not None:
-                ok &= gm_w >= target["gain_margin_db"]
-            ax.contourf(shade_cc, shade_rc, ok.T.astype(float), levels=[0.5, 1.5],
-                        colors=[style.FEASIBLE])
-        levels = [lv for lv in (30, 40, 50, 55, 60, 65, 70, 75, 80, 90) if np.nanmin(pm) < lv < np.nanmax(pm)]
-        cs = ax.contour(cc, rc, pm.T, levels=levels, colors=[style.FINAL], linewidths=0.9)
-        ax.clabel(cs, fmt=lambda v: f"{v:g}°", fontsize=7.5)
-        finite = ugf[np.isfinite(ugf)]
-        if finite.size:
-            ulevels = np.geomspace(finite.min(), finite.max(), 7)[1:-1]
-            ulevels = sorted({float(f"{u:.2g}") for u in ulevels})
-            cu = ax.contour(cc, rc, ugf.T, levels=ulevels, colors=[style.MUTED], linewidths=0.7,
-                            linestyles="--")
-            ax.clabel(cu, fmt=lambda v: engineering(v, "Hz", 2), fontsize=7)
+        _shade_feasible(ax, data, name, cc, rc)
+        _margin_contours(ax, cc, rc, pm, ugf)
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(style.farads)
     ax.yaxis.set_major_formatter(style.ohms)
     ax.set_xlabel("Cc")
     ax.set_ylabel("Rc")
-    history = [h for h in r.get("history", []) if h["kind"] not in ("report-map",)]
-    textbook = [h for h in history if h["kind"] in ("start", "dominant-pole", "lead", "adjust-cc")]
-    if textbook:
-        xs = [h["values"]["cc"] for h in textbook]
-        ys = [h["values"].get("rc", 0.0) for h in textbook]
-        ax.plot(xs, ys, "-o", color=style.TEXTBOOK, ms=4, lw=1.2, label="textbook procedure, step by step")
-    ax.plot([s[0] for s in cmap.samples], [s[1] for s in cmap.samples],
-            "s", color=style.START, ms=6, label="the three simulated samples the map is built on")
-    chosen = r.get("values", {})
-    if "cc" in chosen:
-        ax.plot([chosen["cc"]], [chosen_rc], "*", color=style.FINAL, ms=16,
-                markeredgecolor="white", label=f"chosen: {values_text(chosen, r)}", zorder=6)
+    _points(ax, data.results, cmap, chosen_rc)
     if rc.size > 1:
         pad = 0.03 * (rc[-1] - rc[0])
         ax.set_ylim(rc[0] - pad, rc[-1] + pad)
@@ -124,3 +75,97 @@ def map_page(data: ReportData):
                 "green: every corner meets the target"), fontsize=8.5, color=style.MUTED,
              va="top")
     return fig
+
+
+def _heading(fig, name: str | None, device: dict | None) -> None:
+    """The page's title and the line under it: what the map is, or, where a device stands
+    in for Rc, what its vertical axis is."""
+    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name})", fontsize=13,
+             weight="bold")
+    if device is None:
+        line = ("Every point computed from three analyses of the corner (the loop gain is "
+                "bilinear in the branch impedance Rc + 1/sCc); shaded: all corners meet the "
+                "target.")
+    else:
+        line = (f"{device['name']} stands in for Rc: the vertical axis is its channel "
+                "resistance as this corner sees it; shaded: this corner meets the target.")
+    fig.text(0.06, 0.922, line, fontsize=8.5, color=style.MUTED)
+
+
+def _plane(data: ReportData, name: str, cmap):
+    """The (Cc, Rc) plane drawn, in F and Ω: the job's bounds (else three times around the
+    map's samples), and the chosen Rc; where a device stands in for Rc, its resistance at
+    corner ``name`` and a plane from 0 to three times the largest Rc seen."""
+    r = data.results
+    knobs = r.get("bounds") or {}
+    sample_cc = [s[0] for s in cmap.samples]
+    sample_rc = [s[1] for s in cmap.samples]
+    cc_bounds = knobs.get("cc", [min(sample_cc) / 3, max(sample_cc) * 3])
+    rc_bounds = knobs.get("rc", [0.0, max(max(sample_rc) * 3, 1.0)])
+    chosen_rc = r.get("values", {}).get("rc", 0.0)
+    if r.get("device") is not None:  # the device's resistance as this corner sees it
+        chosen_rc = data.device_corner(name)["resistance_ohm"]
+        rc_bounds = [0.0, 3 * max(chosen_rc, max(sample_rc))]
+    return cc_bounds, rc_bounds, chosen_rc
+
+
+def _shade_feasible(ax, data: ReportData, name: str, cc: np.ndarray, rc: np.ndarray) -> None:
+    """Shade where every corner meets the target (where a device stands in for Rc, where
+    corner ``name`` does); nothing without a target."""
+    r = data.results
+    target = r.get("target", {})
+    if not target:
+        return
+    # each corner costs a grid evaluation: above the count where every corner gets a page,
+    # the region is found on a grid of half the steps, at every fourth frequency (as the
+    # map strategy's first look)
+    few = len(data.maps) <= EVERY_CORNER_UP_TO
+    shade_cc, shade_rc = (cc, rc) if few else (cc[::2], rc[::2])
+    every = 2 if few else 4
+    corners = data if r.get("device") is None else \
+        ReportData(data.out, r, [name], maps={name: data.maps[name]})
+    pm_w, gm_w = _worst_grid(corners, shade_cc, shade_rc, every)
+    ok = pm_w >= target["phase_margin_deg"]
+    if target.get("gain_margin_db") is not None:
+        ok &= gm_w >= target["gain_margin_db"]
+    ax.contourf(shade_cc, shade_rc, ok.T.astype(float), levels=[0.5, 1.5],
+                colors=[style.FEASIBLE])
+
+
+def _margin_contours(ax, cc: np.ndarray, rc: np.ndarray, pm: np.ndarray,
+                     ugf: np.ndarray) -> None:
+    """Solid lines of phase margin ``pm`` (degrees) and dashed ones of unity-gain frequency
+    ``ugf`` (Hz) over the grid ``cc`` × ``rc``."""
+    levels = [lv for lv in (30, 40, 50, 55, 60, 65, 70, 75, 80, 90)
+              if np.nanmin(pm) < lv < np.nanmax(pm)]
+    cs = ax.contour(cc, rc, pm.T, levels=levels, colors=[style.FINAL], linewidths=0.9)
+    ax.clabel(cs, fmt=lambda v: f"{v:g}°", fontsize=7.5)
+    finite = ugf[np.isfinite(ugf)]
+    if finite.size:
+        ulevels = np.geomspace(finite.min(), finite.max(), 7)[1:-1]
+        ulevels = sorted({float(f"{u:.2g}") for u in ulevels})
+        cu = ax.contour(cc, rc, ugf.T, levels=ulevels, colors=[style.MUTED], linewidths=0.7,
+                        linestyles="--")
+        ax.clabel(cu, fmt=lambda v: engineering(v, "Hz", 2), fontsize=7)
+
+
+_TEXTBOOK_KINDS = ("start", "dominant-pole", "lead", "adjust-cc")
+
+
+def _points(ax, results: dict, cmap, chosen_rc: float) -> None:
+    """The textbook procedure's steps (where it ran), the map's three samples and the
+    chosen point (its Rc ``chosen_rc``, in Ω)."""
+    history = [h for h in results.get("history", []) if h["kind"] not in ("report-map",)]
+    textbook = [h for h in history if h["kind"] in _TEXTBOOK_KINDS]
+    if textbook:
+        xs = [h["values"]["cc"] for h in textbook]
+        ys = [h["values"].get("rc", 0.0) for h in textbook]
+        ax.plot(xs, ys, "-o", color=style.TEXTBOOK, ms=4, lw=1.2,
+                label="textbook procedure, step by step")
+    ax.plot([s[0] for s in cmap.samples], [s[1] for s in cmap.samples],
+            "s", color=style.START, ms=6, label="the three simulated samples the map is built on")
+    chosen = results.get("values", {})
+    if "cc" in chosen:
+        ax.plot([chosen["cc"]], [chosen_rc], "*", color=style.FINAL, ms=16,
+                markeredgecolor="white", label=f"chosen: {values_text(chosen, results)}",
+                zorder=6)

@@ -27,7 +27,7 @@ import re
 
 import numpy as np
 
-from amploop.bench.requests import AnalysisOutput, AnalysisRequest
+from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.errors import SimulatorError
 
 __all__ = ["NgspiceSession", "failure_kind", "summarise_failure"]
@@ -52,10 +52,17 @@ _FATAL = [
     )
 ]
 _TRANSIENT_OP = re.compile(r"transient op started", re.IGNORECASE)
+_TRANSIENT_OP_WARNING = ("operating point found only by ngspice's transient fallback; "
+                         "it may move with the compensation values")
 # ngspice messages of an analysis that found no solution (its kind "convergence")
 _NO_SOLUTION = re.compile(
     r"singular matrix|operating point failed|dc solution failed|timestep too small"
     r"|gmin stepping failed|source stepping failed|iteration limit reached", re.IGNORECASE)
+
+
+def _fatal(lines: list[str]) -> bool:
+    """Whether any of ngspice's messages ``lines`` means the step failed."""
+    return any(p.search(line) for line in lines for p in _FATAL)
 
 
 def failure_kind(lines: list[str]) -> str:
@@ -232,64 +239,80 @@ class NgspiceSession:
             raise SimulatorError("ngspice session is no longer usable", place=request.label,
                                  kind="crash")
         started = time.perf_counter()
-        rc, out, err = self._load(request.deck)
-        messages = out + err
-        if rc != 0 or any(p.search(line) for line in err for p in _FATAL):
-            if rc != 0 or any("cannot recover" in line.lower() for line in err):
-                self.broken = True
-            else:
-                self._free()
-            raise SimulatorError(f"parse error: {summarise_failure(err or out)}",
-                                 place=request.label, kind="parse")
+        messages = self._load_checked(request)
         reads: list[dict[str, np.ndarray]] = []
         warnings: list[str] = []
-        transient_op = False
         try:
             for step in request.steps:
-                before = self._current_plot()
-                rc, out, err = self._command(step.command)
-                messages += out + err
-                lines = out + err
-                if step.is_analysis:
-                    if any(_TRANSIENT_OP.search(line) for line in lines):
-                        transient_op = True
-                        warnings.append(
-                            "operating point found only by ngspice's transient fallback; "
-                            "it may move with the compensation values"
-                        )
-                    plot = self._current_plot()
-                    failed = rc != 0 or plot == before or plot == "const"
-                    if failed or any(p.search(line) for line in lines for p in _FATAL):
-                        raise SimulatorError(f"{step.command.split()[0]} failed: "
-                                             f"{summarise_failure(lines)}", place=request.label,
-                                             kind=failure_kind(lines))
-                    if any("gmin stepping" in line.lower() for line in lines):
-                        warnings.append("operating point needed gmin stepping")
-                elif rc != 0 or any(p.search(line) for line in err for p in _FATAL):
-                    if step.optional:
-                        reads.append({})
-                        continue
-                    raise SimulatorError(f"command {step.command!r} rejected: "
-                                         f"{summarise_failure(err)}", place=request.label)
-                values: dict[str, np.ndarray] = {}
-                if step.read:
-                    plot = self._current_plot()
-                    for name in step.read:
-                        vector = self._vector(plot, name)
-                        if vector is None and step.optional:
-                            continue
-                        if vector is None:
-                            raise SimulatorError(f"vector {name} not found in plot {plot}",
-                                                 place=request.label)
-                        values[name] = vector
-                reads.append(values)
+                reads.append(self._step(step, request.label, messages, warnings))
         finally:
             if not self.broken:
                 self._free()
         return AnalysisOutput(
             reads=tuple(reads),
             warnings=tuple(dict.fromkeys(warnings)),
-            transient_op=transient_op,
+            transient_op=_TRANSIENT_OP_WARNING in warnings,
             seconds=time.perf_counter() - started,
             messages=tuple(messages),
         )
+
+    def _load_checked(self, request: AnalysisRequest) -> list[str]:
+        """Load ``request``'s deck; its messages, or SimulatorError (kind ``parse``) when
+        ngspice refused it (the session then broken where the library cannot recover)."""
+        rc, out, err = self._load(request.deck)
+        if rc != 0 or _fatal(err):
+            if rc != 0 or any("cannot recover" in line.lower() for line in err):
+                self.broken = True
+            else:
+                self._free()
+            raise SimulatorError(f"parse error: {summarise_failure(err or out)}",
+                                 place=request.label, kind="parse")
+        return out + err
+
+    def _step(self, step: Step, label: str, messages: list[str],
+              warnings: list[str]) -> dict[str, np.ndarray]:
+        """Send one step of an analysis and read its vectors (none where an optional
+        command was rejected); ngspice's messages are added to ``messages``, what is worth
+        showing to ``warnings``."""
+        before = self._current_plot()
+        rc, out, err = self._command(step.command)
+        lines = out + err
+        messages += lines
+        if step.is_analysis:
+            warnings += self._analysis_warnings(step, rc, lines, before, label)
+        elif rc != 0 or _fatal(err):
+            if step.optional:
+                return {}
+            raise SimulatorError(f"command {step.command!r} rejected: "
+                                 f"{summarise_failure(err)}", place=label)
+        return self._read(step, label)
+
+    def _analysis_warnings(self, step: Step, rc: int, lines: list[str], before: str,
+                           label: str) -> list[str]:
+        """What an analysis step's messages ``lines`` warn of; SimulatorError when it failed
+        (an error message, a nonzero ``rc``, or no new plot after ``before``)."""
+        found = [_TRANSIENT_OP_WARNING] if any(_TRANSIENT_OP.search(x) for x in lines) else []
+        plot = self._current_plot()
+        if rc != 0 or plot == before or plot == "const" or _fatal(lines):
+            raise SimulatorError(f"{step.command.split()[0]} failed: "
+                                 f"{summarise_failure(lines)}", place=label,
+                                 kind=failure_kind(lines))
+        if any("gmin stepping" in line.lower() for line in lines):
+            found.append("operating point needed gmin stepping")
+        return found
+
+    def _read(self, step: Step, label: str) -> dict[str, np.ndarray]:
+        """The vectors ``step`` reads from the current plot (an optional one may be
+        missing)."""
+        values: dict[str, np.ndarray] = {}
+        if step.read:
+            plot = self._current_plot()
+            for name in step.read:
+                vector = self._vector(plot, name)
+                if vector is None and step.optional:
+                    continue
+                if vector is None:
+                    raise SimulatorError(f"vector {name} not found in plot {plot}",
+                                         place=label)
+                values[name] = vector
+        return values
