@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import sys
 
-from amploop.spice.labels import FIGURE_LABELS
+from amploop.spice.labels import COMMON_MODE_LABELS, FIGURE_LABELS
 from amploop.spice.units import describe_values, engineering
 
 
@@ -54,22 +54,33 @@ _TABLE_FIGURES = ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_
 def corner_table(corners, target=None) -> str:
     """The per-corner table printed by ``measure`` (and by ``tune`` at the end, where a
     corner that misses the ``target`` says which margin and by how much)."""
-    header = ["corner", *(FIGURE_LABELS[k] for k in _TABLE_FIGURES), "out - CM", "note"]
+    common_mode = any(c.measures_common_mode for c in corners)
+    header = ["corner", *(FIGURE_LABELS[k] for k in _TABLE_FIGURES)]
+    if common_mode:  # a fully-differential amplifier's second loop
+        header += [COMMON_MODE_LABELS[k] for k in _COMMON_MODE_FIGURES]
+    header += ["out - CM", "note"]
     rows = []
     for c in corners:
         m = c.margins
         op = c.operating_point
-        rows.append([
+        row = [
             c.corner.name,
             _figure(m and m.dc_loop_gain_db, ".1f"),
             engineering(m and m.unity_gain_hz, "Hz"),
             _figure(m and m.phase_margin_deg, ".2f"),
             _figure(m and m.gain_margin_db, ".2f"),
             engineering(m and m.phase_crossover_hz, "Hz"),
-            engineering(op and op.output_shift_v, "V"),
-            _corner_note(c, target),
-        ])
+        ]
+        if common_mode:
+            cm = c.common_mode
+            row += [engineering(cm and cm.unity_gain_hz, "Hz"),
+                    _figure(cm and cm.phase_margin_deg, ".2f"),
+                    _figure(cm and cm.gain_margin_db, ".2f")]
+        rows.append(row + [engineering(op and op.output_shift_v, "V"), _corner_note(c, target)])
     return _table(rows, header)
+
+
+_COMMON_MODE_FIGURES = ("unity_gain_hz", "phase_margin_deg", "gain_margin_db")
 
 
 _SUSPECT_LINES = 5  # suspect corners named one by one; the rest are counted

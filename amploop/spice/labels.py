@@ -8,7 +8,7 @@ wraps (the terminal's table and the report's both wrap there).
 
 from __future__ import annotations
 
-__all__ = ["FIGURE_LABELS", "JOURNAL_KEY", "JOURNAL_KEYS", "PHASE_MARGIN_CORNER",
+__all__ = ["COMMON_MODE", "COMMON_MODE_LABELS", "FIGURE_LABELS", "JOURNAL_KEY", "JOURNAL_KEYS", "PHASE_MARGIN_CORNER",
            "ROLE_LABELS", "UNITY_GAIN_CORNER", "WORST_PHASE_MARGIN_CORNER"]
 
 #: The compensation roles as people read them: ``Cc = 292.8 fF, Rc = 20 kΩ``.
@@ -23,6 +23,18 @@ FIGURE_LABELS = {
     "phase_crossover_hz": "phase\ncrossover",
     "overshoot_pct": "step overshoot\n(%)",
     "settling_time_s": "settling\ntime",
+}
+
+#: results.json: a fully-differential corner's table of its common-mode loop's figures
+#: (the same keys as the differential loop's, which stay at the corner's top level).
+COMMON_MODE = "common_mode"
+
+#: Column headings of the common-mode loop's figures, by their key in that table.
+COMMON_MODE_LABELS = {
+    "dc_loop_gain_db": "CM DC loop\ngain (dB)",
+    "unity_gain_hz": "CM unity-gain\nfrequency",
+    "phase_margin_deg": "CM phase\nmargin (°)",
+    "gain_margin_db": "CM gain\nmargin (dB)",
 }
 
 #: results.json: the journal key of an analysis (a corner's loop gain, a step check),

@@ -21,7 +21,7 @@ from amploop.spice.units import describe_values, engineering
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.mapsolve import round_on_maps, solve_on_maps
 from amploop.strategy.samples import initial_samples, samples_around
-from amploop.strategy.worst import missed_target
+from amploop.strategy.worst import missed_target, worst_text
 
 __all__ = ["device_json", "device_operating_points", "model_card", "tune_device_by_map"]
 
@@ -191,8 +191,7 @@ def tune_device_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int 
     if missed is not None:
         return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
-                   f"worst-corner phase margin {worst.phase_margin_deg:.2f}° (corner "
-                   f"{worst.phase_margin_corner}) at {values_text}", extra)
+                   f"{worst_text(worst, target)} at {values_text}", extra)
 
 
 def _starting_size(evaluator: Evaluator, in_effect: dict[str, float],

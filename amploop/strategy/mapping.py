@@ -17,9 +17,9 @@ from amploop.spec.model import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
-from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.mapsolve import CommonModeLoop, MapSolution, round_on_maps, solve_on_maps
 from amploop.strategy.samples import initial_samples, samples_around
-from amploop.strategy.worst import missed_target
+from amploop.strategy.worst import missed_target, worst_text
 
 __all__ = ["tune_by_map"]
 
@@ -34,13 +34,29 @@ def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
     return dict(point) if has_rc else {"cc": point["cc"]}
 
 
-def _maps(evaluator: Evaluator, results: list[PointResult]) -> dict[str, CompensationMap]:
+def _maps(evaluator: Evaluator, results: list[PointResult], loop: str = "loop_gain"
+          ) -> dict[str, CompensationMap]:
+    """Each corner's map of its ``loop`` (the attribute of its results: the main loop's
+    ``loop_gain``, or the ``common_mode_loop_gain``) from the three samples ``results``."""
     maps = {}
     for index, corner in enumerate(evaluator.corners):
         samples = [(p.values["cc"], p.values.get("rc", 0.0)) for p in results]
-        responses = [p.corners[index].loop_gain for p in results]
+        responses = [getattr(p.corners[index], loop) for p in results]
         maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
     return maps
+
+
+def _common_mode(evaluator: Evaluator, results: list[PointResult], target: Target
+                 ) -> CommonModeLoop | None:
+    """The common-mode loop on its maps with its targets (a tenth of the tolerance above
+    the phase margin, as for the main loop); None when it is not measured. With both
+    halves' Cc (and Rc) set together it is bilinear in the branch impedance too."""
+    if results[0].corners[0].common_mode_loop_gain is None:
+        return None
+    aim = target.common_mode_phase_margin_deg
+    return CommonModeLoop(_maps(evaluator, results, "common_mode_loop_gain"),
+                          None if aim is None else aim + 0.1 * target.tolerance_deg,
+                          target.common_mode_gain_margin_db)
 
 
 def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) -> Outcome:
@@ -92,10 +108,13 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         if failed is not None:
             return not_simulated(failed, in_effect)
         maps = _maps(evaluator, characterised)
-        optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        common_mode = _common_mode(evaluator, characterised, target)
+        optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db,
+                                common_mode=common_mode)
         # 4 significant digits, what a designer writes into the netlist and what is
         # verified, chosen on the maps so that rounding keeps every constraint met
-        solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db)
+        solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db,
+                                 common_mode=common_mode)
         point = knob_values({"cc": solution.cc, "rc": solution.rc}, has_rc)
         verified = evaluator.simulate([point], kind="verify",
                                       note=f"round {round_number}")[0]
@@ -128,6 +147,5 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     if missed is not None:
         return Outcome("failed", verified.values, verified, missed, extra)
     return Outcome("converged", verified.values, verified,
-                   f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                   f"(corner {worst.phase_margin_corner}) at " + describe_values(verified.values),
+                   f"{worst_text(worst, target)} at " + describe_values(verified.values),
                    extra)

@@ -22,7 +22,7 @@ import numpy as np
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.margins import grid_margins, loop_margins
 
-__all__ = ["MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
+__all__ = ["CommonModeLoop", "MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
            "rounded_neighbours", "solve_on_maps"]
 
 
@@ -47,6 +47,9 @@ class MapSolution:
         crossover.
     phase_margin_corner
         The corner with the smallest predicted phase margin.
+    common_mode_phase_margin_deg
+        The predicted worst-corner phase margin of the common-mode loop, degrees; None
+        without one.
     """
 
     cc: float
@@ -56,6 +59,40 @@ class MapSolution:
     unity_gain_hz: float
     gain_margin_db: float | None
     phase_margin_corner: str
+    common_mode_phase_margin_deg: float | None = None
+
+
+@dataclass(frozen=True)
+class CommonModeLoop:
+    """A fully-differential amplifier's common-mode loop on the maps, and what it must reach.
+
+    Attributes
+    ----------
+    maps
+        One compensation map of the common-mode loop gain per corner (by name).
+    aim_pm
+        Its worst-corner phase margin to reach, degrees; None: not constrained.
+    gm_min
+        Its worst-corner gain margin to reach, dB; None: not constrained.
+    """
+
+    maps: dict[str, CompensationMap]
+    aim_pm: float | None = None
+    gm_min: float | None = None
+
+    def grid(self, cc: np.ndarray, rc: np.ndarray, every: int = 1):
+        """Its worst-corner (PM, GM) on the ``cc`` × ``rc`` grid (F, Ω)."""
+        pm_w, _, gm_w, _ = _worst_on_grid(self.maps, cc, rc, every)
+        return pm_w, gm_w
+
+    def shortfall(self, pm_w, gm_w):
+        """How far (degrees or dB, 0 where met) the grid figures ``pm_w``, ``gm_w`` miss."""
+        short = np.zeros_like(pm_w)
+        if self.aim_pm is not None:
+            short = np.maximum(short, self.aim_pm - pm_w)
+        if self.gm_min is not None:
+            short = np.maximum(short, np.where(np.isfinite(gm_w), self.gm_min - gm_w, 0.0))
+        return short
 
 
 def cc_grid(low: float, high: float, n: int) -> np.ndarray:
@@ -111,8 +148,11 @@ def _score(pm_w, ugf_w, gm_w, aim_pm: float, gm_min: float | None):
     return feasible, shortfall
 
 
-def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min):
+def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, cm_short=None):
     feasible, shortfall = _score(pm_w, ugf_w, gm_w, aim_pm, gm_min)
+    if cm_short is not None:  # the common-mode loop's constraints
+        feasible = feasible & (cm_short <= 0)
+        shortfall = np.maximum(shortfall, cm_short)
     if feasible.any():
         score = np.where(feasible, ugf_w, -np.inf)
         return np.unravel_index(np.argmax(score), score.shape), True
@@ -160,6 +200,7 @@ def solve_on_maps(
     points: int = 31,
     zooms: int = 4,
     rc_of: dict | None = None,
+    common_mode: CommonModeLoop | None = None,
 ) -> MapSolution:
     """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
 
@@ -180,6 +221,9 @@ def solve_on_maps(
     rc_of
         For a device standing in for Rc: corner name -> function from the device's size to
         that corner's channel resistance (Ω); ``rc_bounds`` are then size bounds.
+    common_mode
+        A fully-differential amplifier's common-mode loop and its targets, held as
+        constraints too (the objective stays the main loop's unity-gain frequency).
 
     Returns
     -------
@@ -187,10 +231,14 @@ def solve_on_maps(
         ``feasible`` False means no grid point met the constraints; the point returned then
         has the least shortfall (the best worst-corner margin reachable).
     """
+    def cm_short(cc, rc, every=1):
+        return None if common_mode is None else common_mode.shortfall(
+            *common_mode.grid(cc, rc, every))
+
     cc = cc_grid(*cc_bounds, points)
     rc = rc_grid(*rc_bounds, points)
     (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, every=2, rc_of=rc_of)[:3],
-                                   aim_pm, gm_min)
+                                   aim_pm, gm_min, cm_short(cc, rc, 2))
     best_cc, best_rc = float(cc[i]), float(rc[j])
     for _ in range(zooms):
         cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
@@ -200,11 +248,17 @@ def solve_on_maps(
         rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 9) if rc_hi > rc_lo
                                        else [rc_lo], [best_rc]]))
         (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, rc_of=rc_of)[:3],
-                                       aim_pm, gm_min)
+                                       aim_pm, gm_min, cm_short(cc, rc))
         best_cc, best_rc = float(cc[i]), float(rc[j])
     pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
-                       unity_gain_hz=ugf, gain_margin_db=gm, phase_margin_corner=limiting)
+                       unity_gain_hz=ugf, gain_margin_db=gm, phase_margin_corner=limiting,
+                       common_mode_phase_margin_deg=_cm_pm(common_mode, best_cc, best_rc))
+
+
+def _cm_pm(common_mode: CommonModeLoop | None, cc: float, rc: float) -> float | None:
+    """The common-mode loop's predicted worst-corner phase margin at (``cc``, ``rc``)."""
+    return None if common_mode is None else predicted_worst(common_mode.maps, cc, rc)[0]
 
 
 def rounded_neighbours(value: float, bounds: tuple[float, float], digits: int = 4,
@@ -239,7 +293,8 @@ def rounded_neighbours(value: float, bounds: tuple[float, float], digits: int = 
 def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
                   cc_bounds: tuple[float, float], rc_bounds: tuple[float, float],
                   aim_pm: float, gm_min: float | None = None, *, digits: int = 4,
-                  rc_of: dict | None = None) -> MapSolution:
+                  rc_of: dict | None = None,
+                  common_mode: CommonModeLoop | None = None) -> MapSolution:
     """The point with ``digits`` significant digits next to ``solution`` that keeps its
     constraints met on the maps.
 
@@ -264,7 +319,7 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
         Worst-corner gain margin to reach, dB (None: no constraint).
     digits
         Significant digits of the values.
-    rc_of
+    rc_of, common_mode
         As for :func:`solve_on_maps`.
 
     Returns
@@ -279,7 +334,14 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
     pm = np.array([[f[0] for f in row] for row in figures])
     ugf = np.array([[f[1] for f in row] for row in figures])
     gm = np.array([[np.inf if f[2] is None else f[2] for f in row] for row in figures])
-    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min)
+    cm_short = None
+    if common_mode is not None:
+        cm = [[predicted_worst(common_mode.maps, cc, rc) for rc in rc_values] for cc in cc_values]
+        cm_short = common_mode.shortfall(
+            np.array([[f[0] for f in row] for row in cm]),
+            np.array([[np.inf if f[2] is None else f[2] for f in row] for row in cm]))
+    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min, cm_short)
     best_pm, best_ugf, best_gm, limiting = figures[i][j]
     return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,
-                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, phase_margin_corner=limiting)
+                   unity_gain_hz=best_ugf, gain_margin_db=best_gm, phase_margin_corner=limiting,
+                   common_mode_phase_margin_deg=_cm_pm(common_mode, cc_values[i], rc_values[j]))

@@ -17,7 +17,7 @@ from scipy.optimize import minimize
 from amploop.spec.model import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, bounds_of
-from amploop.strategy.worst import meets_target, missed_target
+from amploop.strategy.worst import meets_target, missed_target, worst_text
 
 __all__ = ["tune_by_optimizer"]
 
@@ -74,7 +74,16 @@ def tune_by_optimizer(evaluator: Evaluator, target: Target, *, max_evaluations: 
             return 10.0
         return worst.gain_margin_db - target.gain_margin_db
 
+    def cm_pm_constraint(x):  # a fully-differential amplifier's common-mode loop
+        worst = evaluate(x).worst
+        if worst is None:
+            return -90.0
+        if worst.common_mode is None or target.common_mode_phase_margin_deg is None:
+            return 10.0
+        return worst.common_mode.phase_margin_deg - target.common_mode_phase_margin_deg
+
     constraints = [{"type": "ineq", "fun": pm_constraint}, {"type": "ineq", "fun": gm_constraint},
+                   {"type": "ineq", "fun": cm_pm_constraint},
                    {"type": "ineq", "fun": lambda x: x[0] - math.log(cc_lo)},
                    {"type": "ineq", "fun": lambda x: math.log(cc_hi) - x[0]}]
     x0 = [math.log(min(max(in_effect["cc"], cc_lo), cc_hi))]
@@ -93,5 +102,4 @@ def tune_by_optimizer(evaluator: Evaluator, target: Target, *, max_evaluations: 
                        + describe_values(best.values) + f", {missed}")
     best = max(feasible, key=lambda p: p.worst.unity_gain_hz)
     return Outcome("converged", best.values, best,
-                   f"worst-corner phase margin {best.worst.phase_margin_deg:.2f}° at "
-                   + describe_values(best.values))
+                   f"{worst_text(best.worst, target)} at " + describe_values(best.values))

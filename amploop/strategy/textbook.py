@@ -37,7 +37,7 @@ from amploop.strategy.common import (
     gm_quantity,
     not_simulated,
 )
-from amploop.strategy.worst import meets_target, missed_target
+from amploop.strategy.worst import meets_target, missed_target, worst_text
 
 __all__ = ["tune_by_textbook"]
 
@@ -221,8 +221,7 @@ def _ending(current: PointResult, target: Target) -> Outcome:
     missed = missed_target(current.corners, target)
     if missed is None:
         return Outcome("converged", current.values, current,
-                       f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
-                       f"(corner {worst.phase_margin_corner}) at " + describe_values(current.values))
+                       f"{worst_text(worst, target)} at " + describe_values(current.values))
     return Outcome("failed", current.values, current,
                    "the textbook procedure ends at " + describe_values(current.values)
                    + f": {missed}")
