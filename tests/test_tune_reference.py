@@ -15,7 +15,7 @@ from pathlib import Path
 import control
 import numpy as np
 import pytest
-from nodal import Macromodel, exact_loop_gain
+from nodal import Macromodel, dense_margins, exact_loop_gain
 
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.twostage import (
@@ -100,27 +100,8 @@ def _exact_grid(model: Macromodel, cc: np.ndarray, rc: np.ndarray) -> np.ndarray
 
 
 def _dense_margins(t: np.ndarray):
-    """(PM deg, UGF Hz, GM dB) per loop gain by dense sampling and linear interpolation."""
-    mag = np.log(np.abs(t))
-    phase = np.degrees(np.unwrap(np.angle(t), axis=-1))
-    x = np.log10(_F)
-    pm = np.full(t.shape[:-1], np.nan)
-    ugf = np.full(t.shape[:-1], np.nan)
-    gm = np.full(t.shape[:-1], np.inf)
-    for idx in np.ndindex(t.shape[:-1]):
-        m, p = mag[idx], phase[idx]
-        cross = np.nonzero(np.sign(m[:-1]) != np.sign(m[1:]))[0]
-        margins = []
-        for k in cross:
-            a = m[k] / (m[k] - m[k + 1])
-            margins.append((180 + p[k] + a * (p[k + 1] - p[k]), 10 ** (x[k] + a * (x[k + 1] - x[k]))))
-        if margins:
-            pm[idx], ugf[idx] = min(margins)
-        pc = np.nonzero((p[:-1] > -180) & (p[1:] <= -180))[0]
-        for k in pc:
-            a = (p[k] + 180) / (p[k] - p[k + 1])
-            gm[idx] = min(gm[idx], -20 / np.log(10) * (m[k] + a * (m[k + 1] - m[k])))
-    return pm, ugf, gm
+    """(PM deg, UGF Hz, GM dB) per loop gain on ``_F`` (:func:`nodal.dense_margins`)."""
+    return dense_margins(_F, t)
 
 
 def exhaustive_optimum() -> tuple[float, float, float]:

@@ -129,13 +129,8 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     worst = verified.worst
     extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
     if not solution.feasible:
-        return Outcome(
-            "infeasible", verified.values, verified,
-            f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
-            f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
-            f"(corner {worst.phase_margin_corner}) at " + describe_values(verified.values),
-            extra,
-        )
+        return Outcome("infeasible", verified.values, verified,
+                       _unreachable(worst, target) + describe_values(verified.values), extra)
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
         return Outcome(
             "failed", verified.values, verified,
@@ -149,3 +144,19 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     return Outcome("converged", verified.values, verified,
                    f"{worst_text(worst, target)} at " + describe_values(verified.values),
                    extra)
+
+
+def _unreachable(worst, target: Target) -> str:
+    """What no point within the bounds reaches, and the best that was reached (the start of
+    an ``infeasible`` message, to be followed by the values): the common-mode loop's
+    target when that is what the best point misses, else the main loop's."""
+    cm = worst.common_mode
+    cm_target = target.common_mode_phase_margin_deg
+    if cm is not None and cm_target is not None and cm.phase_margin_deg < cm_target \
+            and worst.phase_margin_deg >= target.phase_margin_deg:
+        return (f"no Cc, Rc within the bounds meets the common-mode target {cm_target:g}° at "
+                f"every corner: the best reachable worst-corner common-mode phase margin is "
+                f"{cm.phase_margin_deg:.2f}° (corner {cm.phase_margin_corner}) at ")
+    return (f"no Cc, Rc within the bounds meets {target.phase_margin_deg:g}° at every corner: "
+            f"the best reachable worst-corner phase margin is {worst.phase_margin_deg:.2f}° "
+            f"(corner {worst.phase_margin_corner}) at ")

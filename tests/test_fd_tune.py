@@ -1,0 +1,106 @@
+"""Tuning a fully-differential amplifier where the common-mode loop is the one that limits.
+
+Reference: the exact nodal model of tests/nodal_fd.py (both loop gains as Bode return
+ratios, by its own nodal analysis). The tuned point must meet both targets on that exact
+model, and its worst-corner differential bandwidth must be within 1 % of what an
+exhaustive grid over the same bounds finds on the exact model.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from nodal import dense_margins
+from nodal_fd import CM_LIMITED, common_mode_loop_gain, differential_loop_gain
+from test_fd_measure import fd_job
+
+from amploop.spec.job import load_job
+from amploop.strategy.tune import tune
+
+TARGET_PM, CM_TARGET_PM, TOLERANCE = 60.0, 45.0, 1.0
+CC_BOUNDS, RC_BOUNDS = (0.2e-12, 5e-12), (0.0, 5e3)
+#: Two corners of the invented model: the load of each output (farads).
+CORNERS = {"light": CM_LIMITED.with_(cl=5e-12), "heavy": CM_LIMITED.with_(cl=15e-12)}
+_F = np.logspace(0, 10, 801)  # 80 points per decade
+
+
+def _job(tmp_path) -> dict:
+    data = fd_job(tmp_path, CM_LIMITED)
+    data["feedback"]["load"] = "{cl}"
+    data["compensation"] = {"cc": {"param": "cc", "min": repr(CC_BOUNDS[0]),
+                                   "max": repr(CC_BOUNDS[1])},
+                            "rc": {"param": "rc", "min": "0", "max": repr(RC_BOUNDS[1])}}
+    data["target"] = {"phase_margin": TARGET_PM, "common_mode_phase_margin": CM_TARGET_PM,
+                      "tolerance": TOLERANCE}
+    data["corners"] = [{"name": name, "params": {"cl": model.cl}}
+                       for name, model in CORNERS.items()]
+    return data
+
+
+def _exact(model, cc: float, rc: float) -> tuple:
+    """(differential PM, UGF, CM PM) of ``model`` at (``cc``, ``rc``) on the exact model."""
+    m = model.with_(cc=cc, rc=rc)
+    pm, ugf, _ = dense_margins(_F, differential_loop_gain(m, _F)[None, :])
+    cm_pm, _, _ = dense_margins(_F, common_mode_loop_gain(m, _F)[None, :])
+    return float(pm[0]), float(ugf[0]), float(cm_pm[0])
+
+
+def exhaustive_optimum() -> tuple[float, float, float]:
+    """Max worst-corner differential UGF subject to both phase-margin targets, on grids
+    over the bounds that zoom in twice."""
+    cc = np.geomspace(*CC_BOUNDS, 14)
+    rc = np.concatenate([[0.0], np.geomspace(20.0, RC_BOUNDS[1], 13)])
+    best = None
+    for _ in range(3):
+        score = np.full((cc.size, rc.size), -np.inf)
+        for i, c in enumerate(cc):
+            for j, r in enumerate(rc):
+                figures = [_exact(model, c, r) for model in CORNERS.values()]
+                if all(pm >= TARGET_PM and cm >= CM_TARGET_PM for pm, _, cm in figures):
+                    score[i, j] = min(ugf for _, ugf, _ in figures)
+        i, j = np.unravel_index(np.argmax(score), score.shape)
+        best = (float(score[i, j]), float(cc[i]), float(rc[j]))
+        cc = np.geomspace(cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)], 7)
+        rc = np.linspace(rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)], 7)
+    return best
+
+
+@pytest.fixture(scope="module")
+def tuned(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("fd_tune")
+    job = load_job(_job(folder), base=folder)
+    return tune(job, out=folder / "out", workers=2, time_domain=False)
+
+
+def test_the_tuned_point_meets_both_targets_on_the_exact_model(tuned):
+    assert tuned.status == "converged", tuned.outcome.message
+    values = tuned.outcome.values
+    for corner in tuned.corners:
+        pm, _ugf, cm_pm = _exact(CORNERS[corner.corner.name], values["cc"], values["rc"])
+        assert pm >= TARGET_PM - 0.05 and cm_pm >= CM_TARGET_PM - 0.05
+        # and amploop's verified figures are the exact model's
+        assert corner.margins.phase_margin_deg == pytest.approx(pm, abs=0.05)
+        assert corner.common_mode.phase_margin_deg == pytest.approx(cm_pm, abs=0.05)
+    worst = tuned.outcome.final.worst
+    # the common-mode loop limits: it sits on its target, the differential loop above
+    assert CM_TARGET_PM <= worst.common_mode.phase_margin_deg <= CM_TARGET_PM + TOLERANCE
+    assert worst.phase_margin_deg > TARGET_PM + TOLERANCE
+    assert "common-mode" in tuned.outcome.message and "the limiting loop" in tuned.outcome.message
+
+
+def test_the_tuned_bandwidth_is_that_of_an_exhaustive_search(tuned):
+    best_ugf, best_cc, best_rc = exhaustive_optimum()
+    ours = tuned.outcome.final.worst.unity_gain_hz
+    assert ours == pytest.approx(best_ugf, rel=0.01), (ours, best_ugf, best_cc, best_rc)
+
+
+def test_at_most_ten_ac_analyses_per_corner_per_loop(tuned):
+    assert tuned.ac_run + tuned.ac_reused <= 10 * 2 * len(CORNERS)
+
+
+def test_an_unreachable_common_mode_target_is_infeasible_and_names_the_loop(tmp_path):
+    data = _job(tmp_path)
+    data["target"]["common_mode_phase_margin"] = 89.0
+    result = tune(load_job(data, base=tmp_path), workers=2, time_domain=False)
+    assert result.status == "infeasible", result.outcome.message
+    assert "common-mode" in result.outcome.message
