@@ -17,7 +17,8 @@ from amploop.spice.labels import JOURNAL_KEY
 #: records with a ``name``, ``device.corners`` too).
 SCHEMA = 2
 
-__all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_loop_gain"]
+__all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_common_mode", "assess_loop_gain",
+           "loops_entry"]
 
 
 @dataclass(frozen=True)
@@ -193,10 +194,21 @@ class MeasureResult:
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
             "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
             "probe": self.job.analysis.probe,
+            **loops_entry(self.job),
             "job_file": str(self.job.path),
             "seconds": self.seconds,
             "warnings": list(self.warnings),
         }
+
+
+def loops_entry(job: Job) -> dict:
+    """results.json's ``loops`` of a fully-differential ``job``: ``["differential"]``, with
+    ``"common_mode"`` when that loop is measured; nothing for a single-ended job (whose
+    results stay as they were)."""
+    if not job.amplifier.fully_differential:
+        return {}
+    return {"loops": ["differential"] + (["common_mode"] if job.amplifier.common_mode_break
+                                         else [])}
 
 
 def _figures(margins: Margins | None) -> dict:

@@ -17,7 +17,7 @@ from pathlib import Path
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
 from amploop.corners.measure import JOURNAL_FILE
 from amploop.corners.outputs import OutFolder, remove_stale
-from amploop.corners.results import SCHEMA, CornerResult
+from amploop.corners.results import SCHEMA, CornerResult, loops_entry
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
 from amploop.errors import JobError
 from amploop.sim.journal import Journal, file_digests
@@ -130,6 +130,9 @@ class TuneResult:
                 "phase_margin_deg": target.phase_margin_deg,
                 "tolerance_deg": target.tolerance_deg,
                 "gain_margin_db": target.gain_margin_db,
+                **({"common_mode_phase_margin_deg": target.common_mode_phase_margin_deg,
+                    "common_mode_gain_margin_db": target.common_mode_gain_margin_db}
+                   if self.job.amplifier.fully_differential else {}),
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
@@ -137,6 +140,7 @@ class TuneResult:
             "ac_analyses": {"run": self.ac_run, "reused": self.ac_reused},
             "transient_analyses": {"run": self.transient_run, "reused": self.transient_reused},
             "probe": self.job.analysis.probe,
+            **loops_entry(self.job),
             "job_file": str(self.job.path),
             "values_in_netlist": dict(self.values_in_netlist),
             "bounds": {role: [k.minimum, k.maximum] for role, k in self.job.compensation.items()},
