@@ -12,6 +12,7 @@ import numpy as np
 
 from amploop.analysis.timedomain import StepMetrics, step_metrics, suggested_stop_s
 from amploop.bench.amplifier import Amplifier
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N
 from amploop.bench.testbench import build_step_testbench
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
@@ -176,9 +177,12 @@ def _with_linearity(amplifier: Amplifier, check: StepCheck, reads: dict, vt: flo
 
 def check_from_output(name: str, key: str, step_v: float, step_at_s: float, stop_s: float,
                       reads, band: float) -> StepCheck:
-    """Figures of a finished step analysis (also used when redrawing from the journal)."""
+    """Figures of a finished step analysis (also used when redrawing from the journal); a
+    fully-differential amplifier's output is the difference of its two outputs."""
     time_s = np.real(reads[0]["time"])
-    output_v = np.real(reads[0]["v(tb_out)"])
+    output_v = np.real(reads[0][f"v({NODE_AMP})"])
+    if f"v({NODE_AMP_N})" in reads[0]:
+        output_v = output_v - np.real(reads[0][f"v({NODE_AMP_N})"])
     metrics = step_metrics(time_s, output_v, step_at_s, band)
     return StepCheck(name, key, step_v, step_at_s, stop_s, metrics, None, time_s, output_v)
 
