@@ -209,3 +209,26 @@ def test_a_common_mode_target_without_a_break_is_refused(tmp_path, capsys):
     data["target"] = {"phase_margin": 60, "common_mode_phase_margin": 45}
     line = _bad(tmp_path, capsys, data)
     assert "[target].common_mode_phase_margin" in line and "needs the loop's break" in line
+
+
+def test_both_outputs_are_checked_against_the_common_mode(tmp_path):
+    """The CMFB holds the output common mode at vcm: with vcm 0.5 V away from the input
+    common mode both outputs sit 0.5 V off it, more than 10 % of the 0.5 V span of the
+    voltage sources, and the corner is suspect, naming both outputs."""
+    data = fd_job(tmp_path, DEFAULT)
+    data["bias"]["vcm"] = {"volts": "0.5"}
+    corner = measure(load_job(data, base=tmp_path), workers=1, time_domain=False).corners[0]
+    assert corner.status == "suspect", corner.problem
+    op = corner.operating_point
+    assert op.output_v == pytest.approx(0.5, abs=5e-3)  # the CM loop gain: ~460
+    assert op.output_n_v == pytest.approx(0.5, abs=5e-3)
+    assert "the first output sits at" in corner.suspect_reason
+    assert "the second output sits at" in corner.suspect_reason
+
+
+def test_a_second_run_reuses_both_loops_from_the_journal(tmp_path):
+    job = load_job(fd_job(tmp_path, DEFAULT), base=tmp_path)
+    first = measure(job, out=tmp_path / "out", workers=1, time_domain=False)
+    again = measure(job, out=tmp_path / "out", workers=1, time_domain=False)
+    assert first.ac_run > 0 and again.ac_run == 0 and again.ac_reused == first.ac_run
+    assert again.corners[0].common_mode == first.corners[0].common_mode
