@@ -96,6 +96,17 @@ def test_measure_command_with_cluster_option(cluster, local_demo, tmp_path):
     assert dask == local
 
 
+def test_a_fully_differential_tuning_on_the_cluster_matches_the_local_run(cluster, tmp_path):
+    """The invented fully-differential demo, both loops, tuned on Dask and locally."""
+    job = load_job(Path(__file__).parent.parent / "netlists" / "fd_demo" / "job.toml")
+    with WorkerPool(2) as pool:
+        local = tune(job, out=tmp_path / "local", pool=pool, time_domain=False)
+    with ClusterPool(cluster.scheduler_address) as pool:
+        dask = tune(job, out=tmp_path / "dask", pool=pool, time_domain=False)
+    assert local.corners[0].common_mode is not None
+    same_tuning(dask, local)
+
+
 def test_time_limit_is_enforced_inside_the_task(cluster):
     with ClusterPool(cluster.scheduler_address) as pool:
         started = time.monotonic()
