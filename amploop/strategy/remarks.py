@@ -17,7 +17,7 @@ from amploop.spec.model import Knob
 from amploop.spice.units import engineering
 from amploop.strategy.common import Evaluator, gm_quantity
 
-__all__ = ["NEAR_BOUND", "bound_remark", "lead_zero_remark", "second_stage_gm"]
+__all__ = ["NEAR_BOUND", "bound_remark", "lead_zero_remark", "mismatch_remark", "second_stage_gm"]
 
 #: A value within this share of a bound counts as near it (19.9 kΩ against 20 kΩ: 0.5 %).
 NEAR_BOUND = 0.02
@@ -124,6 +124,19 @@ def lead_zero_remark(values: dict[str, float], corners: tuple[CornerResult, ...]
             f"{c.corner.name}{more}: the pole-zero doublet it makes settles with a slow tail "
             f"of time constant about {engineering(1 / (2 * math.pi * zero_hz), 's')}; "
             "a smaller Rc (with more Cc) moves the zero up")
+
+
+def mismatch_remark(job, extra: dict) -> str | None:
+    """A remark when a fully-differential ``job``'s maps needed more than one round
+    (``extra``: the map strategy's record, with its ``rounds``): the halves are then likely
+    mismatched, so the loop gain is not bilinear in one branch impedance; None otherwise."""
+    rounds = extra.get("rounds", 1)
+    if not job.amplifier.fully_differential or rounds <= 1:
+        return None
+    return (f"the maps of this fully-differential amplifier disagreed with the simulation "
+            f"and were characterised again around the point ({rounds} rounds): with "
+            "mismatched halves the loop gain is a ratio of quadratics in the branch "
+            "impedance, not bilinear; the reported margins are the simulated ones")
 
 
 def second_stage_gm(evaluator: Evaluator) -> dict[str, float] | None:

@@ -29,7 +29,12 @@ from amploop.strategy.common import Evaluator as _Evaluator
 from amploop.strategy.common import HistoryEntry, bounds_of
 from amploop.strategy.devicemap import device_json
 from amploop.strategy.finalfiles import compensated_netlist, remove_compensated, write_final_files
-from amploop.strategy.remarks import bound_remark, lead_zero_remark, second_stage_gm
+from amploop.strategy.remarks import (
+    bound_remark,
+    lead_zero_remark,
+    mismatch_remark,
+    second_stage_gm,
+)
 from amploop.strategy.samples import initial_samples
 
 __all__ = ["TuneResult", "tune"]
@@ -320,11 +325,12 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
     job = evaluator.amplifier.job
     outcome = replace(outcome, message=outcome.message
                       + bound_remark(outcome.values, job.compensation))
+    remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),) if r)
     if "rc" not in job.compensation:
-        return outcome, ()
+        return outcome, remarks
     gm2 = second_stage_gm(evaluator)
     lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
-    return outcome, (lead,) if lead else ()
+    return outcome, remarks + ((lead,) if lead else ())
 
 
 
