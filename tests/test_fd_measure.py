@@ -232,3 +232,21 @@ def test_a_second_run_reuses_both_loops_from_the_journal(tmp_path):
     again = measure(job, out=tmp_path / "out", workers=1, time_domain=False)
     assert first.ac_run > 0 and again.ac_run == 0 and again.ac_reused == first.ac_run
     assert again.corners[0].common_mode == first.corners[0].common_mode
+
+
+def test_the_outputs_are_checked_against_the_common_mode_reference_when_named(tmp_path):
+    """The same circuit with [amplifier].common_mode_reference = "vcm": the outputs sit at
+    vcm, which is where they belong, and the corner is ok."""
+    data = fd_job(tmp_path, DEFAULT)
+    data["bias"]["vcm"] = {"volts": "0.5"}
+    data["amplifier"]["common_mode_reference"] = "vcm"
+    corner = measure(load_job(data, base=tmp_path), workers=1, time_domain=False).corners[0]
+    assert corner.status == "ok", corner.problem
+    assert corner.operating_point.common_mode_v == pytest.approx(0.5)
+
+
+def test_a_common_mode_reference_without_a_voltage_source_is_refused(tmp_path, capsys):
+    data = fd_job(tmp_path, DEFAULT)
+    data["amplifier"]["common_mode_reference"] = "outn"
+    line = _bad(tmp_path, capsys, data)
+    assert "[amplifier].common_mode_reference" in line and "voltage source" in line

@@ -227,8 +227,10 @@ class OperatingPointProbe:
                                        if s.kind == "volts"))
         devices = tuple((role, getattr(job.amplifier, role)) for role in _ROLES
                         if getattr(job.amplifier, role))
-        if job.amplifier.fully_differential:  # both inputs float; the signal source holds it
-            return cls(output=f"v({NODE_AMP})", common_mode="v(tb_sig)", supplies=supplies,
+        if job.amplifier.fully_differential:  # the CMFB reference, or the signal source
+            reference = job.amplifier.common_mode_reference
+            common_mode = f"v({port_node(reference)})" if reference else "v(tb_sig)"
+            return cls(output=f"v({NODE_AMP})", common_mode=common_mode, supplies=supplies,
                        devices=devices, limits=job.operating_point,
                        output_n=f"v({NODE_AMP_N})")
         return cls(output=f"v({NODE_AMP})", common_mode="v(tb_inp)", supplies=supplies,

@@ -43,7 +43,7 @@ _TOP_KEYS = {
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
-    "second_stage_device", "out_n", "common_mode_break",
+    "second_stage_device", "out_n", "common_mode_break", "common_mode_reference",
 }
 
 
@@ -129,6 +129,8 @@ def _build_job(path: Path, data: dict) -> Job:
         out_n=r.string(amp_data, "out_n", "[amplifier]", required=False),
         common_mode_break=r.string(amp_data, "common_mode_break", "[amplifier]",
                                    required=False),
+        common_mode_reference=r.string(amp_data, "common_mode_reference", "[amplifier]",
+                                       required=False),
     )
 
     bias = read_bias(r, r.table(data, "bias", "[bias]"))
@@ -141,6 +143,7 @@ def _build_job(path: Path, data: dict) -> Job:
     corners = read_corners(r, data, defaults)
 
     _check_differential(r, amplifier, target, compensation, analysis)
+    _check_reference(r, amplifier, bias)
     job = Job(
         path=path,
         name=name,
@@ -188,6 +191,23 @@ def _check_differential(r: Reader, amplifier: Amplifier, target, compensation,
             raise r.fail(f"[compensation].{role}.element", "a list of elements sets the two "
                          "halves of a fully-differential amplifier", hint="give out_n, or "
                          "one element")
+
+
+def _check_reference(r: Reader, amplifier: Amplifier, bias) -> None:
+    """``common_mode_reference`` names a port of a fully-differential amplifier that
+    ``[bias]`` drives with a voltage source."""
+    port = amplifier.common_mode_reference
+    if port is None:
+        return
+    place = "[amplifier].common_mode_reference"
+    if amplifier.out_n is None:
+        raise r.fail(place, "only a fully-differential amplifier has an output common-mode "
+                     "reference", hint="give its second output as out_n")
+    sources = {s.port.lower(): s for s in bias.sources}
+    source = sources.get(port.lower())
+    if source is None or source.kind != "volts":
+        raise r.fail(place, f"{port!r} is not a port that [bias] drives with a voltage source",
+                     hint=f'add {port} = {{ volts = "..." }} to [bias]')
 
 
 def _existing_file(r: Reader, job_path: Path, data: dict, key: str, place: str, *,

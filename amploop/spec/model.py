@@ -76,6 +76,11 @@ class Amplifier:
         A 0 V voltage source inside the subckt on the common-mode feedback path, first
         node on the driving side; amploop replaces it by its probe. None: the common-mode
         loop is not measured.
+    common_mode_reference
+        The port of a fully-differential amplifier that sets its output common mode (the
+        CMFB's reference, biased by a voltage source in ``[bias]``): both outputs are
+        checked against its voltage at the operating point. None: against the input common
+        mode.
     """
 
     netlist: Path
@@ -89,6 +94,7 @@ class Amplifier:
     second_stage_device: str | None = None
     out_n: str | None = None
     common_mode_break: str | None = None
+    common_mode_reference: str | None = None
 
     @property
     def fully_differential(self) -> bool:
