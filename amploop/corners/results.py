@@ -221,8 +221,8 @@ def _figures(margins: Margins | None) -> dict:
 
 
 def assess_common_mode(response: FrequencyResponse) -> tuple[Margins, str | None]:
-    """Margins of a measured common-mode loop gain, and what makes them unusable (None:
-    nothing). A loop gain that is negative at DC with |T| below 1 is what a break source
+    """Margins of ``response``, a measured common-mode loop gain, and what makes them
+    unusable (None: nothing). A loop gain that is negative at DC with |T| below 1 is what a break source
     written the wrong way round gives (about −6 dB): that is said."""
     from amploop.spice.units import engineering
 

@@ -81,7 +81,8 @@ class CommonModeLoop:
     gm_min: float | None = None
 
     def grid(self, cc: np.ndarray, rc: np.ndarray, every: int = 1):
-        """Its worst-corner (PM, GM) on the ``cc`` × ``rc`` grid (F, Ω)."""
+        """Its worst-corner (PM, GM) on the ``cc`` × ``rc`` grid (F, Ω), at every ``every``-th
+        frequency."""
         pm_w, _, gm_w, _ = _worst_on_grid(self.maps, cc, rc, every)
         return pm_w, gm_w
 

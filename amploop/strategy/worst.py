@@ -79,8 +79,8 @@ def _worst_of(named: list) -> WorstCase:
 
 def limiting_loop(worst: WorstCase, target: Target | None) -> str:
     """Which loop of ``worst`` limits: ``"common_mode"`` when its phase margin has less slack
-    over its target than the main loop's over the main target (less margin, without
-    targets), else ``"main"``."""
+    over its ``target`` than the main loop's over the main target (less margin, without
+    targets: ``target`` None), else ``"main"``."""
     cm = worst.common_mode
     if cm is None:
         return "main"
@@ -94,7 +94,8 @@ def limiting_loop(worst: WorstCase, target: Target | None) -> str:
 
 def worst_text(worst: WorstCase, target: Target | None = None) -> str:
     """``worst`` in words: ``worst-corner phase margin 61.88° (corner X)``, and for a
-    fully-differential amplifier the common-mode loop's, the limiting loop named."""
+    fully-differential amplifier the common-mode loop's, the limiting loop named (by
+    :func:`limiting_loop` against ``target``)."""
     text = (f"worst-corner phase margin {worst.phase_margin_deg:.2f}° "
             f"(corner {worst.phase_margin_corner})")
     cm = worst.common_mode
