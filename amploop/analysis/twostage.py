@@ -26,41 +26,52 @@ __all__ = [
 ]
 
 
-def feedback_factor(kind: str, z_in: float, z_fb: float) -> float:
-    """β of the inverting configuration, ignoring the amplifier's input capacitance.
+def feedback_factor(kind: str, z_in: float, z_fb: float, c_input: float = 0.0) -> float:
+    """β of the configuration, ignoring the amplifier's own input capacitance.
 
-    Resistive: β = Rin/(Rin + Rfb). Capacitive: β = Cfb/(Cin + Cfb).
+    Resistive: β = Rin/(Rin + Rfb) (a capacitance at the inverting input is left out: it
+    makes β fall with frequency). Capacitive: β = Cfb/(Cin + Cfb + Ci), the capacitive
+    divider with Ci from the inverting input to ground (common practice). Unity: β = 1.
 
     Parameters
     ----------
     kind
-        ``"resistive"`` or ``"capacitive"``.
+        ``"resistive"``, ``"capacitive"`` or ``"unity"``.
     z_in
         Z1 from the signal source to the inverting input: Rin, ohms, or Cin, farads.
     z_fb
         Z2 from the output to the inverting input: Rfb, ohms, or Cfb, farads.
+    c_input
+        Ci, the capacitance from the inverting input to ground, farads.
     """
+    if kind == "unity":
+        return 1.0
     if kind == "resistive":
         return z_in / (z_in + z_fb)
-    return z_fb / (z_in + z_fb)
+    return z_fb / (z_in + z_fb + c_input)
 
 
-def effective_load(kind: str, cl: float, z_in: float, z_fb: float) -> float:
-    """The capacitance the output drives: CL plus, for a capacitive loop, Cin in series with
-    Cfb.
+def effective_load(kind: str, cl: float, z_in: float, z_fb: float,
+                   c_input: float = 0.0) -> float:
+    """The capacitance the output drives: CL plus, for a capacitive loop, Cin + Ci in series
+    with Cfb; for a unity configuration CL + Ci (the inverting input is the output).
 
     Parameters
     ----------
     kind
-        ``"resistive"`` or ``"capacitive"``.
+        ``"resistive"``, ``"capacitive"`` or ``"unity"``.
     cl
         The load capacitance CL, farads.
     z_in, z_fb
         Z1 and Z2 of the feedback network: ohms (resistive) or farads (capacitive; Cin
         and Cfb).
+    c_input
+        Ci, the capacitance from the inverting input to ground, farads.
     """
-    if kind == "capacitive" and z_in + z_fb > 0:
-        return cl + z_in * z_fb / (z_in + z_fb)
+    if kind == "unity":
+        return cl + c_input
+    if kind == "capacitive" and z_in + z_fb + c_input > 0:
+        return cl + (z_in + c_input) * z_fb / (z_in + z_fb + c_input)
     return cl
 
 

@@ -378,34 +378,44 @@ def closed_loop_deck(
     instance += [f"{text(k, '[compensation]')}={v}" for k, v in instance_params.items()]
     lines.append(" ".join(instance))
     common_mode = _quote(text(job.bias.common_mode, "[bias].common_mode"))
+    feedback = job.feedback_for(corner)
     sides = [("", "tb_sig", "tb_inn", NODE_FEEDBACK, NODE_AMP, signal)]
     if job.amplifier.out_n is None:
-        lines.append(f"Vcm tb_inp 0 dc {common_mode}")
+        # a follower (unity configuration) takes its signal at the non-inverting input
+        follower = feedback.kind == "unity"
+        lines.append(f"Vcm tb_inp 0 dc {common_mode}" + (f" {signal}" if follower else ""))
+        if follower:
+            sides = [("", "tb_sig", "tb_inn", NODE_FEEDBACK, NODE_AMP, "ac 0")]
     else:  # the same network on the second side, from tb_outn back to the other input
         sides.append(("n", "tb_sign", "tb_inp", NODE_FEEDBACK_N, NODE_AMP_N, signal_n))
     for suffix, sig, inverting, fb_node, out_node, waveform in sides:
         lines.append(f"Vsig{suffix} {sig} 0 dc {common_mode} {waveform}")
-        lines.extend(_feedback_lines(job, text, suffix, sig, inverting, fb_node, out_node))
+        lines.extend(_feedback_lines(feedback, text, suffix, sig, inverting, fb_node,
+                                     out_node))
     lines.extend(loop_elements)
     lines.append(".end")
     return "\n".join(lines) + "\n", notes
 
 
-def _feedback_lines(job, text, suffix: str, sig: str, inverting: str, fb_node: str,
+def _feedback_lines(fb, text, suffix: str, sig: str, inverting: str, fb_node: str,
                     out_node: str) -> list[str]:
-    """The feedback network of one side: Z1 from ``sig`` to ``inverting``, Z2 from
-    ``fb_node`` to ``inverting`` (with the DC path across a capacitor), the load at
-    ``out_node``; element names end in ``suffix``."""
-    fb = job.feedback
+    """The feedback network ``fb`` (a configuration) of one side: Z1 from ``sig`` to
+    ``inverting``, Z2 from ``fb_node`` to ``inverting`` (with the DC path across a
+    capacitor; a 0 V source for a unity configuration), the input load at ``inverting``,
+    the load at ``out_node``; element names end in ``suffix``."""
 
     def value(key: str) -> str:
-        return _quote(text(getattr(fb, key), f"[feedback].{key}"))
+        return _quote(text(getattr(fb, key), f"{fb.place}.{key}"))
 
     if fb.kind == "resistive":
         lines = [f"Rin{suffix} {sig} {inverting} {value('input')}",
                  f"Rfb{suffix} {fb_node} {inverting} {value('feedback')}"]
-    else:
+    elif fb.kind == "capacitive":
         lines = [f"Cin{suffix} {sig} {inverting} {value('input')}",
                  f"Cfb{suffix} {fb_node} {inverting} {value('feedback')}",
                  f"Rdc{suffix} {fb_node} {inverting} {value('dc_path')}"]
+    else:  # unity: the output tied to the inverting input
+        lines = [f"Vfb{suffix} {fb_node} {inverting} dc 0"]
+    if fb.input_load.strip() not in ("0", "0.0"):
+        lines.append(f"Cinl{suffix} {inverting} 0 {value('input_load')}")
     return lines + [f"Cload{suffix} {out_node} 0 {value('load')}"]

@@ -20,7 +20,6 @@ from amploop.corners.outputs import (
     OutFolder,
     loop_gain_csv,
     remove_stale,
-    safe_filename,
     write_into,
 )
 from amploop.corners.portable_decks import DECKS, NO_COPIES, PortableIncludes, copy_includes
@@ -35,6 +34,7 @@ from amploop.sim.journal import Journal, file_digests
 from amploop.sim.pool import WorkerPool, default_workers
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner, Job
+from amploop.spec.names import safe_filename
 
 __all__ = ["CornerWork", "corner_files", "measure"]
 

@@ -12,7 +12,6 @@ import fcntl
 import json
 import math
 import os
-import re
 import stat
 from contextlib import contextmanager
 from pathlib import Path
@@ -309,11 +308,3 @@ def loop_gain_csv(response: FrequencyResponse) -> str:
             + (row * len(columns)) % tuple(columns.ravel().tolist()))
 
 
-_UNSAFE = re.compile(r"[^A-Za-z0-9._+-]")
-
-
-def safe_filename(name: str) -> str:
-    """A file-name-safe form of ``name`` (a corner or job name): no separators, dots-only or
-    controls; at most 120 characters."""
-    cleaned = _UNSAFE.sub("_", name).strip("._") or "unnamed"
-    return cleaned[:120]

@@ -93,8 +93,11 @@ class CornerResult:
         figures = _figures(self.margins)
         common_mode = {"common_mode": _figures(self.common_mode)} \
             if self.measures_common_mode else {}
+        configuration = {} if self.corner.configuration is None else {
+            "configuration": self.corner.configuration}
         return {
             "name": self.corner.name,
+            **configuration,
             "lib": self.corner.lib,
             "temp": self.corner.temp,
             "params": dict(self.corner.params),

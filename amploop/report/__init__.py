@@ -16,7 +16,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 from matplotlib.backends.backend_pdf import PdfPages
 
-from amploop.corners.outputs import OutFolder, is_folder, safe_filename
+from amploop.corners.outputs import OutFolder, is_folder
 from amploop.errors import JobError, OutputError
 from amploop.report import selection, style
 from amploop.report.corner import corner_page
@@ -26,6 +26,7 @@ from amploop.report.mapview import map_page
 from amploop.report.overview import overview_page
 from amploop.report.steps import time_domain_page
 from amploop.report.summary import summary_page_count, summary_pages
+from amploop.spec.names import safe_filename
 
 __all__ = ["PNG_CORNER_PAGES", "ReportOutcome", "build_report"]
 

@@ -13,7 +13,8 @@ from amploop.spec.reader import Reader, key_path
 from amploop.spec.sections import read_params, read_temperature
 from amploop.spice.expressions import PARAM_NAME, evaluate, referenced_params
 
-__all__ = ["MAX_CORNERS", "check_corner_libs", "check_corner_params", "read_corners"]
+__all__ = ["MAX_CORNERS", "check_corner_libs", "check_corner_params", "read_corners",
+           "with_configurations"]
 
 _CORNER_KEYS = {"name", "lib", "temp", "params"}
 
@@ -86,6 +87,18 @@ def read_corners(r: Reader, data: dict, defaults: dict[str, float]) -> tuple[Cor
     return tuple(corners)
 
 
+def with_configurations(corners: tuple[Corner, ...], configurations) -> tuple[Corner, ...]:
+    """Every corner of ``corners`` in every one of ``configurations`` (``[[feedback]]``
+    entries), configuration by configuration, each named ``<corner>@<configuration>``;
+    ``corners`` as they are without configurations."""
+    from dataclasses import replace
+
+    if not configurations:
+        return corners
+    return tuple(replace(c, name=f"{c.name}@{f.name}", configuration=f.name)
+                 for f in configurations for c in corners)
+
+
 def _grid_list(r: Reader, grid: dict, key: str, default: list) -> list:
     values = grid.get(key, default)
     if not isinstance(values, list) or not values:
@@ -141,11 +154,12 @@ def check_corner_libs(r: Reader, job: Job) -> None:
 def check_corner_params(r: Reader, job: Job) -> None:
     """Every parameter an expression of ``job`` uses is set by every corner; passive
     values not negative (failures raised through ``r``)."""
-    expressions = [("[bias].common_mode", job.bias.common_mode, False)]
-    expressions += [(f"[bias].{key_path(s.port)}", s.value, False) for s in job.bias.sources]
-    for key in ("input", "feedback", "load", "dc_path"):
-        expressions.append((f"[feedback].{key}", getattr(job.feedback, key), True))
+    common = [("[bias].common_mode", job.bias.common_mode, False)]
+    common += [(f"[bias].{key_path(s.port)}", s.value, False) for s in job.bias.sources]
     for corner in job.corners:
+        feedback = job.feedback_for(corner)
+        expressions = common + [(f"{feedback.place}.{key}", getattr(feedback, key), True)
+                                for key in ("input", "feedback", "load", "dc_path", "input_load")]
         for place, expression, passive in expressions:
             missing = referenced_params(expression) - set(corner.params)
             if missing:

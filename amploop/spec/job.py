@@ -14,7 +14,12 @@ import tomllib
 from pathlib import Path
 
 from amploop.errors import JobError, one_line
-from amploop.spec.corners import check_corner_libs, check_corner_params, read_corners
+from amploop.spec.corners import (
+    check_corner_libs,
+    check_corner_params,
+    read_corners,
+    with_configurations,
+)
 from amploop.spec.model import (
     Amplifier,
     Job,
@@ -25,6 +30,7 @@ from amploop.spec.sections import (
     read_analysis,
     read_bias,
     read_compensation,
+    read_configurations,
     read_feedback,
     read_limits,
     read_params,
@@ -134,15 +140,21 @@ def _build_job(path: Path, data: dict) -> Job:
     )
 
     bias = read_bias(r, r.table(data, "bias", "[bias]"))
-    feedback = read_feedback(r, r.table(data, "feedback", "[feedback]"))
+    configurations = ()
+    if isinstance(data.get("feedback"), list):  # [[feedback]]: several configurations
+        configurations = read_configurations(r, data["feedback"])
+        feedback = configurations[0]
+    else:
+        feedback = read_feedback(r, r.table(data, "feedback", "[feedback]"))
     compensation = read_compensation(r, r.table(data, "compensation", "[compensation]"))
     analysis = read_analysis(r, r.table(data, "analysis", "[analysis]", required=False))
     target = read_target(r, r.table(data, "target", "[target]", required=False))
     transient = read_transient(r, r.table(data, "transient", "[transient]", required=False))
     defaults = read_params(r, data.get("params", {}), "[params]")
-    corners = read_corners(r, data, defaults)
+    corners = with_configurations(read_corners(r, data, defaults), configurations)
 
-    _check_differential(r, amplifier, target, compensation, analysis)
+    _check_differential(r, amplifier, target, compensation, analysis,
+                        configurations or (feedback,))
     _check_reference(r, amplifier, bias)
     job = Job(
         path=path,
@@ -158,6 +170,7 @@ def _build_job(path: Path, data: dict) -> Job:
         operating_point=read_limits(r, r.table(data, "operating_point", "[operating_point]",
                                                required=False)),
         raw=data,
+        configurations=configurations,
     )
     check_corner_libs(r, job)
     check_corner_params(r, job)
@@ -166,13 +179,17 @@ def _build_job(path: Path, data: dict) -> Job:
 
 
 def _check_differential(r: Reader, amplifier: Amplifier, target, compensation,
-                        analysis) -> None:
+                        analysis, configurations=()) -> None:
     """The keys of a fully-differential job agree: two distinct outputs, a common-mode
     break only with them, common-mode targets only with a break, element pairs only for a
     fully-differential amplifier."""
     if amplifier.out_n is not None and amplifier.out_n.lower() == amplifier.out.lower():
         raise r.fail("[amplifier].out_n", f"is the same port as out ({amplifier.out!r}); "
                      "a fully-differential amplifier has two outputs")
+    if amplifier.out_n is not None and any(c.kind == "unity" for c in configurations):
+        raise r.fail("[[feedback]]", "a unity configuration of a fully-differential "
+                     "amplifier is not supported yet", hint="give it as capacitive with "
+                     "input_load, or measure it single-ended")
     if amplifier.out_n is not None and analysis.probe != "double-injection":
         raise r.fail("[analysis].probe", f"a fully-differential amplifier is measured by "
                      f"double injection only, not {analysis.probe!r}")

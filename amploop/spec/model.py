@@ -46,7 +46,7 @@ class OperatingPointLimits:
 ProbeKind = Literal["double-injection", "lc"]
 
 
-FeedbackKind = Literal["resistive", "capacitive"]
+FeedbackKind = Literal["resistive", "capacitive", "unity"]
 
 
 @dataclass(frozen=True)
@@ -140,17 +140,21 @@ class Bias:
 
 @dataclass(frozen=True)
 class Feedback:
-    """``[feedback]``: the network around the amplifier (values are SPICE expressions).
+    """``[feedback]``, or one ``[[feedback]]`` configuration: the network around the
+    amplifier (values are SPICE expressions).
 
     ``input`` (Z1) runs from the AC-grounded signal source to the inverting input,
     ``feedback`` (Z2) from the output to the inverting input; ``load`` is a capacitor from
-    the output to ground; ``dc_path`` (capacitive loops only) a resistor across Z2.
+    the output to ground; ``dc_path`` (capacitive loops only) a resistor across Z2;
+    ``input_load`` a capacitor from the inverting input to ground. A ``"unity"``
+    configuration ties the output to the inverting input (no Z1, no Z2): a follower, with
+    its input and output capacitances given by ``input_load`` and ``load``.
 
     Attributes
     ----------
     kind
-        ``"resistive"`` (Z1 and Z2 are resistors, ohms) or ``"capacitive"`` (capacitors,
-        farads).
+        ``"resistive"`` (Z1 and Z2 are resistors, ohms), ``"capacitive"`` (capacitors,
+        farads) or ``"unity"`` (the output tied to the inverting input).
     input
         Z1, ohms or farads.
     feedback
@@ -159,6 +163,11 @@ class Feedback:
         The load capacitance, farads (``"0"`` when not given).
     dc_path
         The resistor across Z2 of a capacitive loop, ohms (default ``"1G"``).
+    input_load
+        A capacitor from the inverting input to ground, farads (``"0"``: none).
+    name
+        The configuration's name in a ``[[feedback]]`` array; None for a single
+        ``[feedback]`` table.
     """
 
     kind: FeedbackKind
@@ -166,6 +175,14 @@ class Feedback:
     feedback: str
     load: str
     dc_path: str = "1G"
+    input_load: str = "0"
+    name: str | None = None
+
+    @property
+    def place(self) -> str:
+        """Where it is in the job file, for messages: ``[feedback]`` or
+        ``[[feedback]] "name"``."""
+        return "[feedback]" if self.name is None else f'[[feedback]] "{self.name}"'
 
 
 @dataclass(frozen=True)
@@ -245,15 +262,20 @@ class Corner:
         The temperature, degrees Celsius.
     params
         Lower-case parameter name -> value (SI), the ``[params]`` defaults included.
+    configuration
+        The ``[[feedback]]`` configuration it runs in (its name then ends in
+        ``@configuration``); None with a single ``[feedback]`` table.
     """
 
     name: str
     lib: str | None = None
     temp: float = 27.0
     params: dict[str, float] = field(default_factory=dict)
+    configuration: str | None = None
 
     def __hash__(self) -> int:
-        return hash((self.name, self.lib, self.temp, tuple(sorted(self.params.items()))))
+        return hash((self.name, self.lib, self.temp, tuple(sorted(self.params.items())),
+                     self.configuration))
 
 
 @dataclass(frozen=True)
@@ -314,14 +336,16 @@ class Job:
     name
         The job's name (default: the job file's name without its suffix).
     amplifier, bias, feedback
-        The ``[amplifier]``, ``[bias]`` and ``[feedback]`` tables.
+        The ``[amplifier]``, ``[bias]`` and ``[feedback]`` tables (``feedback``: the first
+        configuration of a ``[[feedback]]`` array).
     compensation
         Role (``"cc"``, and ``"rc"`` when given) -> where the netlist keeps it.
     analysis
         The ``[analysis]`` table (defaults when it is left out).
     corners
         Every corner, listed ones first, then the ``[corner_grid]`` product; one
-        ``nominal`` corner when there are none.
+        ``nominal`` corner when there are none. With a ``[[feedback]]`` array, every
+        corner in every configuration, configuration by configuration.
     target
         The ``[target]`` table; None when left out (enough for measure, not for tune).
     transient
@@ -331,6 +355,9 @@ class Job:
         when it is left out).
     raw
         The TOML data as read.
+    configurations
+        The ``[[feedback]]`` configurations by name, in the job file's order; empty with a
+        single ``[feedback]`` table.
     """
 
     path: Path
@@ -345,6 +372,19 @@ class Job:
     transient: Transient = field(default_factory=Transient)
     operating_point: OperatingPointLimits = field(default_factory=OperatingPointLimits)
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
+    configurations: tuple[Feedback, ...] = ()
+
+    @property
+    def feedbacks(self) -> tuple[Feedback, ...]:
+        """Every feedback configuration: the ``[[feedback]]`` array, or the one table."""
+        return self.configurations or (self.feedback,)
+
+    def feedback_for(self, corner: Corner) -> Feedback:
+        """The feedback configuration ``corner`` runs in."""
+        for feedback in self.configurations:
+            if feedback.name == corner.configuration:
+                return feedback
+        return self.feedback
 
     @property
     def folder(self) -> Path:

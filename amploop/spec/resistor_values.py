@@ -79,15 +79,22 @@ def check_feedback_resistors(job) -> None:
         Naming the job file, the key and, for a value set through corner parameters, the
         corner.
     """
-    keys = ("input", "feedback") if job.feedback.kind == "resistive" else ("dc_path",)
+    for feedback in job.feedbacks:
+        _check_resistors(job, feedback)
+
+
+def _check_resistors(job, feedback) -> None:
+    """:func:`check_feedback_resistors` for one configuration ``feedback`` of ``job``."""
+    keys = {"resistive": ("input", "feedback"), "capacitive": ("dc_path",)}.get(feedback.kind, ())
+    corners = [c for c in job.corners if job.feedback_for(c) is feedback]
     for key in keys:
-        text = getattr(job.feedback, key)
-        place = f"[feedback].{key}"
+        text = getattr(feedback, key)
+        place = f"{feedback.place}.{key}"
         problem = _milli_problem(text)
         if problem:
             raise JobError(problem, file=job.path, place=place)
         varies = "{" in text or "'" in text  # an expression: may differ per corner
-        for corner in job.corners if varies else job.corners[:1]:
+        for corner in corners if varies else corners[:1]:
             try:
                 value = evaluate(text, {k: repr(v) for k, v in corner.params.items()})
             except ValueError:

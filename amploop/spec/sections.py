@@ -26,6 +26,7 @@ __all__ = [
     "read_analysis",
     "read_bias",
     "read_compensation",
+    "read_configurations",
     "read_feedback",
     "read_limits",
     "read_params",
@@ -54,23 +55,57 @@ def read_bias(r: Reader, data: dict) -> Bias:
     return Bias(common_mode=common_mode, sources=tuple(sources))
 
 
-def read_feedback(r: Reader, data: dict) -> Feedback:
-    """``[feedback]`` of the job table ``data``, read with ``r``: the kind and the
-    input, feedback, load and DC-path elements."""
-    r.known(data, _FEEDBACK_KEYS, "[feedback]")
-    kind = r.string(data, "kind", "[feedback]")
-    if kind not in ("resistive", "capacitive"):
-        raise r.fail("[feedback].kind", f"expected 'resistive' or 'capacitive', got {kind!r}"
-                     + did_you_mean(kind, ["resistive", "capacitive"]))
-    if kind == "resistive" and "dc_path" in data:
-        raise r.fail("[feedback].dc_path", "only a capacitive loop takes a dc_path resistor")
+def read_feedback(r: Reader, data: dict, place: str = "[feedback]",
+                  name: str | None = None) -> Feedback:
+    """A feedback table ``data`` at ``place`` (``[feedback]``, or an entry of the
+    ``[[feedback]]`` array named ``name``), read with ``r``: the kind and the input,
+    feedback, load, DC-path and input-load elements."""
+    r.known(data, _FEEDBACK_KEYS | ({"name"} if name is not None else set()), place)
+    kind = r.string(data, "kind", place)
+    kinds = ["resistive", "capacitive", "unity"]
+    if kind not in kinds:
+        raise r.fail(f"{place}.kind", f"expected 'resistive', 'capacitive' or 'unity', got "
+                     f"{kind!r}" + did_you_mean(kind, kinds))
+    if kind != "capacitive" and "dc_path" in data:
+        raise r.fail(f"{place}.dc_path", "only a capacitive loop takes a dc_path resistor")
+    for key in ("input", "feedback") if kind == "unity" else ():
+        if key in data:
+            raise r.fail(f"{place}.{key}", "a unity configuration ties the output to the "
+                         "inverting input: it has no input or feedback element",
+                         hint="give the capacitance on the inverting input as input_load")
+    unity = kind == "unity"
     return Feedback(
         kind=kind,
-        input=r.expression(data, "input", "[feedback]", nonnegative=True),
-        feedback=r.expression(data, "feedback", "[feedback]", nonnegative=True),
-        load=r.expression(data, "load", "[feedback]", default="0", nonnegative=True),
-        dc_path=r.expression(data, "dc_path", "[feedback]", default="1G", nonnegative=True),
+        input="0" if unity else r.expression(data, "input", place, nonnegative=True),
+        feedback="0" if unity else r.expression(data, "feedback", place, nonnegative=True),
+        load=r.expression(data, "load", place, default="0", nonnegative=True),
+        dc_path=r.expression(data, "dc_path", place, default="1G", nonnegative=True),
+        input_load=r.expression(data, "input_load", place, default="0", nonnegative=True),
+        name=name,
     )
+
+
+def read_configurations(r: Reader, data: object) -> tuple[Feedback, ...]:
+    """The ``[[feedback]]`` array ``data`` read with ``r``: one named configuration per
+    entry, the names distinct also as file names (:func:`~amploop.spec.names.safe_filename`)."""
+    from amploop.spec.names import safe_filename
+
+    if not isinstance(data, list) or not data or not all(isinstance(d, dict) for d in data):
+        raise r.fail("[[feedback]]", "expected one or more [[feedback]] tables")
+    configurations, stems = [], {}
+    for i, entry in enumerate(data):
+        place = f"[[feedback]][{i}]"
+        name = r.string(entry, "name", place)
+        if "@" in name:
+            raise r.fail(f"{place}.name", f"{name!r} holds '@', which joins a corner's name "
+                         "to its configuration's")
+        stem = safe_filename(name).lower()
+        if stem in stems:
+            raise r.fail(f"{place}.name", f"{name!r} and {stems[stem]!r} are the same name in "
+                         f"file names ({safe_filename(name)!r})", hint="rename one of them")
+        stems[stem] = name
+        configurations.append(read_feedback(r, entry, f'[[feedback]] "{name}"', name))
+    return tuple(configurations)
 
 
 def read_compensation(r: Reader, data: dict) -> dict[str, Knob]:
@@ -242,7 +277,7 @@ def read_limits(reader, data: dict) -> OperatingPointLimits:
     return OperatingPointLimits(min_dc_loop_gain_db=gain, max_output_shift=share)
 
 
-_FEEDBACK_KEYS = {"kind", "input", "feedback", "load", "dc_path"}
+_FEEDBACK_KEYS = {"kind", "input", "feedback", "load", "dc_path", "input_load"}
 
 
 _KNOB_KEYS = {"param", "element", "device", "size", "min", "max"}

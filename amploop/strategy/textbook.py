@@ -157,16 +157,18 @@ class _Clipped:
 
 
 def _starting_ccs(evaluator: Evaluator, gms: dict) -> list[float]:
-    """Each corner's starting Cc, farads: β·gm1·CL,eff/gm2 with the feedback network's
-    values at that corner and the gm read from the simulator there."""
-    fb = evaluator.amplifier.job.feedback
+    """Each corner's starting Cc, farads: β·gm1·CL,eff/gm2 with its configuration's
+    feedback network at that corner and the gm read from the simulator there."""
+    job = evaluator.amplifier.job
     starts = []
     for corner in evaluator.corners:
+        fb = job.feedback_for(corner)
         z_in = _corner_value(fb.input, corner.params)
         z_fb = _corner_value(fb.feedback, corner.params)
         cl = _corner_value(fb.load, corner.params)
-        beta = feedback_factor(fb.kind, z_in, z_fb)
-        cl_eff = effective_load(fb.kind, cl, z_in, z_fb)
+        c_input = _corner_value(fb.input_load, corner.params)
+        beta = feedback_factor(fb.kind, z_in, z_fb, c_input)
+        cl_eff = effective_load(fb.kind, cl, z_in, z_fb, c_input)
         starts.append(starting_cc(beta, gms[corner.name]["gm1"], cl_eff, gms[corner.name]["gm2"]))
     return starts
 
