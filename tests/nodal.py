@@ -34,10 +34,11 @@ class Macromodel:
     cc: float = 1e-12
     rc: float = 0.0
     cl: float = 2e-12
-    kind: str = "resistive"  # or "capacitive"
+    kind: str = "resistive"  # or "capacitive", or "unity" (out tied to inn: no z_in, z_fb)
     z_in: float = 10e3       # resistive: ohms; capacitive: farads
     z_fb: float = 10e3
     r_dc: float = 1e9        # capacitive only: resistor across the feedback capacitor
+    c_in: float = 0.0        # capacitor from inn to ground (the job's input_load), farads
 
     def with_(self, **changes) -> Macromodel:
         return replace(self, **changes)
@@ -60,9 +61,11 @@ Cc nz out {{cc}}
 
 def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
     """det Y(s) of the closed loop for every complex frequency in ``s`` (vectorised)."""
-    # nodes: 0 inn, 1 n1, 2 nz, 3 out; the input source and common mode are AC ground.
+    # nodes: 0 inn, 1 n1, 2 nz, 3 out; the input source and common mode are AC ground. In
+    # the unity configuration inn is the output node itself (node 0 then unused, held at 0).
     s = np.asarray(s, dtype=complex)
     y = np.zeros(s.shape + (4, 4), dtype=complex)
+    inn = 3 if m.kind == "unity" else 0
 
     def admittance(a, b, g):
         for i, j, sign in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
@@ -72,9 +75,12 @@ def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
     if m.kind == "resistive":
         admittance(0, None, 1 / m.z_in)
         admittance(3, 0, 1 / m.z_fb)
-    else:
+    elif m.kind == "capacitive":
         admittance(0, None, s * m.z_in)
         admittance(3, 0, s * m.z_fb + 1 / m.r_dc)
+    else:
+        y[..., 0, 0] = 1.0
+    admittance(inn, None, s * m.c_in)
     admittance(1, None, 1 / m.r1 + s * m.c1)
     admittance(3, None, 1 / m.r2 + s * (m.c2 + m.cl))
     # the Rc-Cc branch; with Rc = 0 the capacitor joins n1 directly (node nz unused, held at 0).
@@ -88,7 +94,7 @@ def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
         admittance(1, 3, s * m.cc)
         y[..., 2, 2] = 1.0
     # G1 n1 0 inp inn gm1: gm1·(v_inp − v_inn) leaves n1, with v_inp = 0
-    y[..., 1, 0] += -gm1
+    y[..., 1, inn] += -gm1
     # G2 out 0 n1 0 gm2: gm2·v_n1 leaves out
     y[..., 3, 1] += m.gm2
     return np.linalg.det(y)
