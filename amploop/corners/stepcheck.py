@@ -13,7 +13,7 @@ import numpy as np
 from amploop.analysis.timedomain import StepMetrics, step_metrics, suggested_stop_s
 from amploop.bench.amplifier import Amplifier
 from amploop.bench.nodes import NODE_AMP, NODE_AMP_N
-from amploop.bench.testbench import build_step_testbench
+from amploop.bench.stepbench import build_step_testbench
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner
