@@ -20,7 +20,8 @@ from amploop.cli import main
 from amploop.cli.terminal import corner_table, values_line
 from amploop.corners.measure import measure
 from amploop.spec.job import load_job
-from amploop.spec.model import Knob, Target
+from amploop.spec.limits import Target
+from amploop.spec.model import Knob
 from amploop.strategy.remarks import bound_remark
 from amploop.strategy.tune import tune
 from amploop.strategy.worst import corner_shortfall, missed_target

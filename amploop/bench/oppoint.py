@@ -28,7 +28,7 @@ import numpy as np
 
 from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, port_node
 from amploop.bench.requests import Step
-from amploop.spec.model import OperatingPointLimits
+from amploop.spec.limits import OperatingPointLimits
 from amploop.spice.units import engineering
 
 if TYPE_CHECKING:

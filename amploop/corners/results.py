@@ -10,7 +10,8 @@ from pathlib import Path
 from amploop.analysis.loopgain import FrequencyResponse
 from amploop.analysis.margins import Margins, loop_margins
 from amploop.bench.oppoint import OperatingPoint, corner_status
-from amploop.spec.model import Corner, Job, OperatingPointLimits
+from amploop.spec.limits import OperatingPointLimits
+from amploop.spec.model import Corner, Job
 from amploop.spice.labels import JOURNAL_KEY
 
 #: The version of results.json's layout (2: each per-corner fact once, in a list of corner

@@ -8,9 +8,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
+from amploop.spec.limits import Analysis, OperatingPointLimits, Target, Transient
+
 __all__ = [
     "Amplifier",
-    "Analysis",
     "Bias",
     "BiasSource",
     "Corner",
@@ -18,32 +19,7 @@ __all__ = [
     "FeedbackKind",
     "Job",
     "Knob",
-    "OperatingPointLimits",
-    "ProbeKind",
-    "Target",
-    "Transient",
 ]
-
-
-@dataclass(frozen=True)
-class OperatingPointLimits:
-    """``[operating_point]``: when a measured corner counts as suspect.
-
-    Attributes
-    ----------
-    min_dc_loop_gain_db
-        The lowest DC loop gain a usable corner has, dB (default 20).
-    max_output_shift
-        How far the DC output may sit from the common mode, as a share of the supply span
-        (the highest minus the lowest of the voltage sources on the ports and ground);
-        default 0.1.
-    """
-
-    min_dc_loop_gain_db: float = 20.0
-    max_output_shift: float = 0.1
-
-
-ProbeKind = Literal["double-injection", "lc"]
 
 
 FeedbackKind = Literal["resistive", "capacitive", "unity"]
@@ -217,38 +193,6 @@ class Knob:
 
 
 @dataclass(frozen=True)
-class Analysis:
-    """``[analysis]``: the AC sweep, the probe and the per-analysis time limit.
-
-    Attributes
-    ----------
-    start_hz, stop_hz
-        The first and last frequency of the AC sweep, Hz.
-    points_per_decade
-        Points per decade of the sweep.
-    probe
-        The loop-gain probe: ``"double-injection"`` or ``"lc"``.
-    time_limit_s
-        Seconds one analysis may take before it counts as hung.
-    """
-
-    start_hz: float = 1.0
-    stop_hz: float = 10e9
-    points_per_decade: int = 40
-    probe: ProbeKind = "double-injection"
-    time_limit_s: float = 120.0
-
-    def ac_command(self) -> str:
-        """The ngspice ``ac dec`` command of this sweep."""
-        from amploop.spice.units import spice_number
-
-        return (
-            f"ac dec {self.points_per_decade} {spice_number(self.start_hz)} "
-            f"{spice_number(self.stop_hz)}"
-        )
-
-
-@dataclass(frozen=True)
 class Corner:
     """One corner: a model section, a temperature (°C) and SPICE parameter values (SI).
 
@@ -276,53 +220,6 @@ class Corner:
     def __hash__(self) -> int:
         return hash((self.name, self.lib, self.temp, tuple(sorted(self.params.items())),
                      self.configuration))
-
-
-@dataclass(frozen=True)
-class Target:
-    """``[target]``: phase margin to reach (degrees), how far above it may land, minimum GM.
-
-    Attributes
-    ----------
-    phase_margin_deg
-        The phase margin the worst corner must reach, degrees.
-    tolerance_deg
-        How far above it the worst corner may land where the bounds allow, degrees.
-    gain_margin_db
-        The minimum gain margin at every corner, dB; None for no minimum.
-    common_mode_phase_margin_deg, common_mode_gain_margin_db
-        The same minimums for the common-mode feedback loop of a fully-differential
-        amplifier, degrees and dB; None: that loop is measured, not targeted.
-    """
-
-    phase_margin_deg: float
-    tolerance_deg: float = 1.0
-    gain_margin_db: float | None = None
-    common_mode_phase_margin_deg: float | None = None
-    common_mode_gain_margin_db: float | None = None
-
-
-@dataclass(frozen=True)
-class Transient:
-    """``[transient]``: the closed-loop small-step check of the report.
-
-    Attributes
-    ----------
-    step_v
-        Input step at the signal source, volts (small, so the loop stays linear).
-    band
-        Settling band relative to the output step (0.001 = 0.1 %).
-    stop_s
-        Length of the run, seconds; None: 40/(2π·f_u) of the slowest corner.
-    resistance_share
-        With a MOSFET standing in for Rc: warn when its channel resistance moves by more
-        than this share during the step.
-    """
-
-    step_v: float = 5e-3
-    band: float = 1e-3
-    stop_s: float | None = None
-    resistance_share: float = 0.1
 
 
 @dataclass(frozen=True)

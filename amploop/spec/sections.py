@@ -7,16 +7,8 @@ from __future__ import annotations
 from typing import Any
 
 from amploop.errors import did_you_mean
-from amploop.spec.model import (
-    Analysis,
-    Bias,
-    BiasSource,
-    Feedback,
-    Knob,
-    OperatingPointLimits,
-    Target,
-    Transient,
-)
+from amploop.spec.limits import Analysis, OperatingPointLimits, Target, Transient
+from amploop.spec.model import Bias, BiasSource, Feedback, Knob
 from amploop.spec.reader import Reader, key_path
 from amploop.spec.resistor_values import check_rc_text
 from amploop.spice.expressions import PARAM_NAME

@@ -16,7 +16,7 @@ import math
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.triode import in_triode, resistance_at_size, square_law_resistance
 from amploop.errors import TuningError
-from amploop.spec.model import Target
+from amploop.spec.limits import Target
 from amploop.spice.units import describe_values, engineering
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.mapsolve import round_on_maps, solve_on_maps

@@ -13,7 +13,7 @@
 from __future__ import annotations
 
 from amploop.analysis.compmap import CompensationMap
-from amploop.spec.model import Target
+from amploop.spec.limits import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map

@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy.optimize import minimize
 
-from amploop.spec.model import Target
+from amploop.spec.limits import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, bounds_of
 from amploop.strategy.worst import meets_target, missed_target, worst_text

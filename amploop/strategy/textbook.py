@@ -27,7 +27,7 @@ from amploop.analysis.twostage import (
     where_phase_is,
 )
 from amploop.errors import TuningError
-from amploop.spec.model import Target
+from amploop.spec.limits import Target
 from amploop.spice.units import describe_values, parse_value
 from amploop.strategy.common import (
     Evaluator,

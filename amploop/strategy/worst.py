@@ -7,7 +7,7 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 from amploop.corners.results import CornerResult
-from amploop.spec.model import Target
+from amploop.spec.limits import Target
 from amploop.spice.labels import COMMON_MODE, PHASE_MARGIN_CORNER, UNITY_GAIN_CORNER
 
 __all__ = ["WorstCase", "corner_shortfall", "limiting_loop", "meets_target", "missed_target", "worst_case", "worst_text"]
