@@ -144,7 +144,7 @@ def test_corner_pages_show_both_loops_margins_as_the_exact_model_has_them(fd_out
         assert any(line.endswith("final values: differential loop")
                    for line in lines[:heading])
         dm_pm, cm_pm = [float(m) for m in re.findall(r"(?:^| )phase margin (\d+\.\d\d)°$",
-                                                      "\n".join(lines), re.M)]
+                                                      "\n".join(lines), re.MULTILINE)]
         assert dm_pm == pytest.approx(corner["phase_margin_deg"], abs=0.005)
         exact = CORNERS[corner["name"]].with_(cc=values["cc"], rc=values["rc"])
         reference, _, _ = dense_margins(f, common_mode_loop_gain(exact, f)[None, :])
