@@ -32,7 +32,7 @@ from amploop.bench.probe import (
 from amploop.bench.requests import Step
 from amploop.spec.model import Job
 
-__all__ = ["COMMON_MODE_VECTOR", "LoopReadout", "loop_readout"]
+__all__ = ["COMMON_MODE_VECTOR", "LoopReadout", "loop_readout", "readout_for"]
 
 #: The vector a hand-runnable deck sets to the common-mode loop gain.
 COMMON_MODE_VECTOR = "cm_loop_gain"
@@ -112,5 +112,16 @@ def loop_readout(job: Job, probe: Probe | None = None) -> LoopReadout:
     amplifier."""
     if not job.amplifier.fully_differential:
         return LoopReadout(probe or make_probe(job.analysis.probe))
-    common_mode = COMMON_MODE_PROBE if job.amplifier.common_mode_break else None
+    return readout_for(job.analysis.probe, ["differential"] + (
+        ["common_mode"] if job.amplifier.common_mode_break else []))
+
+
+def readout_for(probe_name: str, loops: list[str] | None = None) -> LoopReadout:
+    """The readout of a run from what its results.json says: ``probe_name`` (its
+    ``probe``) on the single output when ``loops`` is None (a single-ended amplifier), else
+    the differential injection, with the common-mode probe when ``"common_mode"`` is in
+    ``loops``; the same readout :func:`loop_readout` gave the run."""
+    if loops is None:
+        return LoopReadout(make_probe(probe_name))
+    common_mode = COMMON_MODE_PROBE if "common_mode" in loops else None
     return LoopReadout(DifferentialInjection(a_n=NODE_AMP_N, b_n=NODE_FEEDBACK_N), common_mode)

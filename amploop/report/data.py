@@ -18,15 +18,16 @@ import numpy as np
 
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.loopgain import FrequencyResponse
-from amploop.bench.nodes import NODE_AMP, NODE_FEEDBACK
-from amploop.bench.probe import make_probe
+from amploop.bench.loops import readout_for
 from amploop.corners.results import SCHEMA
 from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JobError, JournalError, OutputError
 from amploop.sim.journal import Journal
-from amploop.spice.labels import JOURNAL_KEY, JOURNAL_KEYS, PHASE_MARGIN_CORNER
+from amploop.spec.model import Target
+from amploop.spice.labels import COMMON_MODE, JOURNAL_KEY, JOURNAL_KEYS, PHASE_MARGIN_CORNER
 from amploop.spice.units import describe_values
 from amploop.strategy.kinds import kind_label
+from amploop.strategy.worst import WorstCase, limiting_loop
 
 __all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data"]
 
@@ -86,6 +87,11 @@ class LazyFigures(Mapping):
             self._held.popitem(last=False)
         return value
 
+    def get(self, name, default=None):
+        """The figure of ``name``, ``default`` when it has none (an error computing it is
+        raised, not taken for a missing figure)."""
+        return self[name] if name in self._known else default
+
     def __iter__(self):
         return iter(self._names)
 
@@ -100,7 +106,8 @@ class LazyFigures(Mapping):
 class ReportData:
     """The figures of one out folder, ready to draw.
 
-    The per-corner figures (``curves``, ``finals``, ``steps``, ``maps``) are read from
+    The per-corner figures (``curves``, ``finals``, ``steps``, ``maps`` and a
+    fully-differential amplifier's ``cm_finals``, ``cm_maps``) are read from
     the journal when a page asks for them (:class:`LazyFigures`); :meth:`close` closes
     the journal.
 
@@ -121,6 +128,9 @@ class ReportData:
     maps
         Corner name -> its compensation map from the last three map samples of the
         history (empty without them).
+    cm_finals, cm_maps
+        The same of the common-mode loop of a fully-differential amplifier (empty when
+        that loop is not measured).
     analyses_read
         How many analyses were read from the journal.
     journal
@@ -135,6 +145,8 @@ class ReportData:
     finals: Mapping[str, FrequencyResponse] = field(default_factory=dict)
     steps: Mapping[str, StepCheck] = field(default_factory=dict)
     maps: Mapping[str, CompensationMap] = field(default_factory=dict)
+    cm_finals: Mapping[str, FrequencyResponse] = field(default_factory=dict)
+    cm_maps: Mapping[str, CompensationMap] = field(default_factory=dict)
     analyses_read: int = 0
     journal: Journal | None = field(default=None, repr=False)
     _by_name: dict = field(default_factory=dict, init=False, repr=False)
@@ -144,14 +156,50 @@ class ReportData:
         return self.results.get("command", "measure")
 
     @property
+    def common_mode(self) -> bool:
+        """Whether the run measured a fully-differential amplifier's common-mode loop."""
+        return COMMON_MODE in (self.results.get("loops") or ())
+
+    @property
+    def limiting_loop(self) -> str | None:
+        """Which loop limits a fully-differential amplifier whose common-mode loop was
+        measured: ``"common_mode"`` when its phase margin has less slack over its target
+        than the differential loop's over the main target (the smaller phase margin,
+        without targets), else ``"differential"``; None for one loop, or when no corner
+        measured."""
+        worst = self._worst()
+        if worst is None or worst.common_mode is None:
+            return None
+        target = self.results.get("target")
+        limits = limiting_loop(worst, Target(**target) if target else None)
+        return "common_mode" if limits == "common_mode" else "differential"
+
+    @property
     def limiting_corner(self) -> str | None:
         """The corner with the smallest phase margin (results.json's
-        ``worst.phase_margin_corner`` after tune), None when no corner measured."""
-        named = (self.results.get("worst") or {}).get(PHASE_MARGIN_CORNER)
-        if named:
-            return named
-        ok = [c for c in self.results["corners"] if c.get("phase_margin_deg") is not None]
-        return min(ok, key=lambda c: c["phase_margin_deg"])["name"] if ok else None
+        ``worst.phase_margin_corner`` after tune) of the limiting loop, None when no corner
+        measured."""
+        worst = self._worst()
+        if worst is None:
+            return None
+        if self.limiting_loop == "common_mode":
+            return worst.common_mode.phase_margin_corner
+        return worst.phase_margin_corner
+
+    def _worst(self) -> WorstCase | None:
+        """results.json's ``worst`` (else the worst phase margin over the corners that
+        measured: a measure run, a point where a corner failed); None when none measured."""
+        block = self.results.get("worst")
+        if block and block.get(PHASE_MARGIN_CORNER):
+            cm = block.get(COMMON_MODE)
+            return WorstCase(**{**block, COMMON_MODE: cm and WorstCase(**cm)})
+        corners = self.results["corners"]
+        main = _smallest_margin(corners)
+        if main is None:
+            return None
+        cm = _smallest_margin([{**(c.get(COMMON_MODE) or {}), "name": c["name"]}
+                               for c in corners]) if self.common_mode else None
+        return WorstCase(**main, common_mode=cm and WorstCase(**cm))
 
     def corner(self, name: str) -> dict:
         """The entry of corner ``name`` in results.json."""
@@ -178,8 +226,16 @@ class ReportData:
         self.close()
 
 
-def _values_label(values: dict, device: tuple[str, str] | None = None) -> str:
-    return describe_values(values, device)
+def _smallest_margin(corners: list[dict]) -> dict | None:
+    """The figures of the corner with the smallest phase margin among ``corners``, as
+    WorstCase's arguments (the report reads only the corner and the phase margin)."""
+    ok = [c for c in corners if c.get("phase_margin_deg") is not None]
+    if not ok:
+        return None
+    c = min(ok, key=lambda c: c["phase_margin_deg"])
+    return {"phase_margin_deg": c["phase_margin_deg"], "unity_gain_hz": c.get("unity_gain_hz"),
+            "gain_margin_db": c.get("gain_margin_db"), PHASE_MARGIN_CORNER: c["name"],
+            "unity_gain_corner": c["name"]}
 
 
 def load_report_data(out: str | Path) -> ReportData:
@@ -223,6 +279,10 @@ def load_report_data(out: str | Path) -> ReportData:
                             figures.load_map, keep=1)
     data.finals = LazyFigures([n for n in names if figures.final_key(n)],
                               lambda name: figures.loop_gain(figures.final_key(name)))
+    if data.common_mode:
+        data.cm_maps = LazyFigures(list(data.maps), figures.load_cm_map, keep=1)
+        data.cm_finals = LazyFigures(list(data.finals),
+                                     lambda name: figures.cm_loop_gain(figures.final_key(name)))
     data.curves = LazyFigures(names, figures.load_curves)
     data.steps = LazyFigures([n for n in names if figures.has_step(n)], figures.load_step)
     return data
@@ -235,7 +295,8 @@ class _Figures:
     def __init__(self, data: ReportData) -> None:
         results = data.results
         self.data = data
-        self.probe = make_probe(results.get("probe", "double-injection"))
+        self.readout = readout_for(results.get("probe", "double-injection"),
+                                   results.get("loops"))
         self.device = results.get("device")
         self.device_key = (self.device["name"], self.device["size"]) if self.device else None
         history = [h for h in results.get("history", []) if h.get(JOURNAL_KEYS)]
@@ -261,8 +322,13 @@ class _Figures:
         return output.reads
 
     def loop_gain(self, key: str) -> FrequencyResponse:
-        """The loop gain of the journal's analysis ``key``."""
-        return self.probe.loop_gain(self.reads(key), NODE_AMP, NODE_FEEDBACK)
+        """The loop gain of the journal's analysis ``key`` (a fully-differential
+        amplifier's differential loop gain)."""
+        return self.readout.loop_gain(self.reads(key))
+
+    def cm_loop_gain(self, key: str) -> FrequencyResponse:
+        """The common-mode loop gain of the journal's analysis ``key``."""
+        return self.readout.common_mode_loop_gain(self.reads(key))
 
     def final_key(self, name: str) -> str | None:
         """The journal key of corner ``name``'s loop gain at the final values (None when the
@@ -287,6 +353,13 @@ class _Figures:
         return CompensationMap.from_loop_gains(
             self.map_points(name), [self.loop_gain(h[JOURNAL_KEYS][name]) for h in self.samples])
 
+    def load_cm_map(self, name: str) -> CompensationMap:
+        """Corner ``name``'s compensation map of its common-mode loop from its three
+        samples."""
+        return CompensationMap.from_loop_gains(
+            self.map_points(name),
+            [self.cm_loop_gain(h[JOURNAL_KEYS][name]) for h in self.samples])
+
     def load_curves(self, name: str) -> list[Curve]:
         """Corner ``name``'s loop gains for its page: the netlist's values (predicted from
         the map), every step of the tuning, the final values."""
@@ -295,7 +368,7 @@ class _Figures:
             response = data.maps[name].loop_gain(self.start["cc"], self.start.get("rc", 0.0))
             if np.all(np.isfinite(response.values)):
                 curves.append(Curve(f"netlist values (from the map): "
-                                    f"{_values_label(self.start, self.device_key)}", "start",
+                                    f"{describe_values(self.start, self.device_key)}", "start",
                                     response))
         for entry in self.story:
             key = entry[JOURNAL_KEYS].get(name)
@@ -303,11 +376,11 @@ class _Figures:
                 continue
             words = kind_label(entry["kind"])
             curves.append(Curve(f"{entry['step']}. {words}: "
-                                f"{_values_label(entry['values'], self.device_key)}",
+                                f"{describe_values(entry['values'], self.device_key)}",
                                 "step", self.loop_gain(key)))
         if name in data.finals:
             label = "final" if data.command == "tune" else "as in the netlist"
-            curves.append(Curve(f"{label}: {_values_label(self.final_values, self.device_key)}",
+            curves.append(Curve(f"{label}: {describe_values(self.final_values, self.device_key)}",
                                 "final", data.finals[name]))
         return curves
 

@@ -1,9 +1,13 @@
 """The compensation-map page: the worst phase margin over all corners across the
-(Cc, Rc) plane, the region that meets the target, the chosen point."""
+(Cc, Rc) plane, the region that meets the target (and, for a fully-differential amplifier,
+the region where its common-mode loop meets its own), the chosen point."""
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
+from matplotlib.patches import Patch
 
 from amploop.analysis.margins import grid_margins
 from amploop.report import style
@@ -27,12 +31,12 @@ def _map_margins(cmap, cc: np.ndarray, rc: np.ndarray, pick=slice(None)):
     return tuple(np.concatenate(column) for column in zip(*parts))
 
 
-def _worst_grid(data: ReportData, cc: np.ndarray, rc: np.ndarray, every: int = 2):
-    """The smallest phase and gain margins over the corners' maps in ``data``, on the
+def _worst_grid(maps: Mapping, cc: np.ndarray, rc: np.ndarray, every: int = 2):
+    """The smallest phase and gain margins over the corners' maps ``maps``, on the
     grid ``cc`` × ``rc`` at every ``every``-th frequency, one corner at a time."""
     pm_w = np.full((cc.size, rc.size), np.inf)
     gm_w = np.full((cc.size, rc.size), np.inf)
-    for cmap in data.maps.values():
+    for cmap in maps.values():
         pm, _, gm = _map_margins(cmap, cc, rc, slice(None, None, every))
         pm_w = np.fmin(pm_w, np.where(np.isnan(pm), -np.inf, pm))
         gm_w = np.fmin(gm_w, gm)
@@ -46,7 +50,9 @@ def map_page(data: ReportData):
     cmap = data.maps.get(name) if name else None
     device = data.results.get("device") if cmap is not None else None
     fig = new_page()
-    _heading(fig, name, device)
+    hatched = bool(data.cm_maps) and (data.results.get("target") or {}).get(
+        "common_mode_phase_margin_deg") is not None
+    _heading(fig, name, device, data.limiting_loop if hatched else None)
     ax = fig.add_axes((0.08, 0.1, 0.62, 0.78))
     if cmap is None:
         ax.text(0.5, 0.5, "no compensation map in this out folder", ha="center",
@@ -56,8 +62,9 @@ def map_page(data: ReportData):
     cc = cc_grid(cc_lo, cc_hi, 60)
     rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
     pm, ugf, _ = _map_margins(cmap, cc, rc)
+    regions = []
     if rc.size > 1:
-        _shade_feasible(ax, data, name, cc, rc)
+        regions = _shade_feasible(ax, data, name, cc, rc)
         _margin_contours(ax, cc, rc, pm, ugf)
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(style.farads)
@@ -68,21 +75,36 @@ def map_page(data: ReportData):
     if rc.size > 1:
         pad = 0.03 * (rc[-1] - rc[0])
         ax.set_ylim(rc[0] - pad, rc[-1] + pad)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
-    fig.text(0.72, 0.55, "solid lines: phase margin of this corner\n"
-             "dashed lines: its unity-gain frequency\n"
-             + ("green: this corner meets the target" if device else
-                "green: every corner meets the target"), fontsize=8.5, color=style.MUTED,
-             va="top")
+    handles, labels = ax.get_legend_handles_labels()
+    ax.legend(handles + regions, labels + [h.get_label() for h in regions], loc="upper left",
+              bbox_to_anchor=(1.02, 1.0))
+    who = "this corner meets" if device else "every corner meets"
+    if regions[1:]:  # the common-mode loop's region is drawn too
+        words = (f"solid lines: differential phase margin of this corner\n"
+                 f"dashed lines: its unity-gain frequency\n"
+                 f"green: {who} the differential target\n"
+                 f"hatched: {who} the common-mode target\n"
+                 f"feasible: green and hatched")
+    else:
+        words = ("solid lines: phase margin of this corner\ndashed lines: its unity-gain "
+                 f"frequency\ngreen: {who} the target")
+    fig.text(0.72, 0.55, words, fontsize=8.5, color=style.MUTED, va="top")
     return fig
 
 
-def _heading(fig, name: str | None, device: dict | None) -> None:
+def _heading(fig, name: str | None, device: dict | None, loop: str | None = None) -> None:
     """The page's title and the line under it: what the map is, or, where a device stands
-    in for Rc, what its vertical axis is."""
-    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name})", fontsize=13,
-             weight="bold")
-    if device is None:
+    in for Rc, what its vertical axis is; the ``loop`` that limits, when there are two
+    and the common-mode one is hatched."""
+    limits = {None: "", "differential": "; the differential loop limits",
+              "common_mode": "; the common-mode loop limits"}[loop]
+    fig.text(0.06, 0.95, f"Compensation map of the limiting corner ({name}){limits}",
+             fontsize=13, weight="bold")
+    if device is None and loop is not None:
+        line = ("Every point from three analyses of the corner (each loop gain is bilinear "
+                "in Rc + 1/sCc); green: all corners' differential loops meet the target; "
+                "hatched: their common-mode loops do.")
+    elif device is None:
         line = ("Every point computed from three analyses of the corner (the loop gain is "
                 "bilinear in the branch impedance Rc + 1/sCc); shaded: all corners meet the "
                 "target.")
@@ -109,27 +131,55 @@ def _plane(data: ReportData, name: str, cmap):
     return cc_bounds, rc_bounds, chosen_rc
 
 
-def _shade_feasible(ax, data: ReportData, name: str, cc: np.ndarray, rc: np.ndarray) -> None:
+def _shade_feasible(ax, data: ReportData, name: str, cc: np.ndarray,
+                    rc: np.ndarray) -> list[Patch]:
     """Shade where every corner meets the target (where a device stands in for Rc, where
-    corner ``name`` does); nothing without a target."""
+    corner ``name`` does); nothing without a target. For a fully-differential amplifier
+    with a common-mode target, hatch where its common-mode loop meets that (the feasible
+    region is where both are), its edge drawn; returns the legend's patches of the two
+    regions then (none for one loop)."""
     r = data.results
     target = r.get("target", {})
     if not target:
-        return
+        return []
     # each corner costs a grid evaluation: above the count where every corner gets a page,
     # the region is found on a grid of half the steps, at every fourth frequency (as the
     # map strategy's first look)
     few = len(data.maps) <= EVERY_CORNER_UP_TO
     shade_cc, shade_rc = (cc, rc) if few else (cc[::2], rc[::2])
     every = 2 if few else 4
-    corners = data if r.get("device") is None else \
-        ReportData(data.out, r, [name], maps={name: data.maps[name]})
-    pm_w, gm_w = _worst_grid(corners, shade_cc, shade_rc, every)
+
+    def worst(maps: Mapping):
+        return _worst_grid(maps if r.get("device") is None else {name: maps[name]},
+                           shade_cc, shade_rc, every)
+
+    pm_w, gm_w = worst(data.maps)
     ok = pm_w >= target["phase_margin_deg"]
     if target.get("gain_margin_db") is not None:
         ok &= gm_w >= target["gain_margin_db"]
     ax.contourf(shade_cc, shade_rc, ok.T.astype(float), levels=[0.5, 1.5],
                 colors=[style.FEASIBLE])
+    cm_pm = target.get("common_mode_phase_margin_deg")
+    if not data.cm_maps or cm_pm is None:
+        return []
+    # the common-mode region from its slack (degrees, or dB where its gain margin is the
+    # tighter), so that its edge is the smooth curve where the slack is nought
+    cm_gm = target.get("common_mode_gain_margin_db")
+    pm_w, gm_w = worst(data.cm_maps)
+    slack = pm_w - cm_pm if cm_gm is None else np.fmin(pm_w - cm_pm, gm_w - cm_gm)
+    slack = np.clip(np.nan_to_num(slack, nan=-1e3), -1e3, 1e3).T
+    if slack.max() >= 0:
+        fill = ax.contourf(shade_cc, shade_rc, slack, levels=[0.0, 1e3], colors="none",
+                           hatches=["//"])
+        fill.set_edgecolor(style.COMMON_MODE)
+        fill.set_linewidth(0)
+    if slack.min() < 0 <= slack.max():
+        ax.contour(shade_cc, shade_rc, slack, levels=[0.0], colors=[style.COMMON_MODE],
+                   linewidths=1.3)
+    cm_words = f"≥ {cm_pm:g}°" + (f", ≥ {cm_gm:g} dB" if cm_gm is not None else "")
+    return [Patch(facecolor=style.FEASIBLE, label="differential loop meets its target"),
+            Patch(facecolor="none", edgecolor=style.COMMON_MODE, hatch="//",
+                  label=f"common-mode loop meets its target ({cm_words})")]
 
 
 def _margin_contours(ax, cc: np.ndarray, rc: np.ndarray, pm: np.ndarray,

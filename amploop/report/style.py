@@ -11,6 +11,10 @@ from matplotlib.ticker import EngFormatter
 
 #: the chosen values (final curves, the chosen point)
 FINAL = "#00607a"
+#: a fully-differential amplifier's common-mode feedback loop (its curve, its target)
+COMMON_MODE = "#3b5fd9"
+#: and its line style, apart from the differential loop's solid lines
+COMMON_MODE_LINE = (0, (6, 2, 1.5, 2))
 #: the netlist's own values, before tuning
 START = "#8a8a8a"
 #: intermediate steps of the tuning, light to dark in order

@@ -1,6 +1,7 @@
 """The summary pages: the job, the target, the chosen values and one table row per
-corner (DC loop gain, unity-gain frequency, margins, step figures, status), the limiting
-corner marked; notes on corners that are not ok."""
+corner (DC loop gain, unity-gain frequency, margins, the common-mode loop's of a
+fully-differential amplifier, step figures, status), the limiting corner marked (and the
+loop that limits); notes on corners that are not ok."""
 
 from __future__ import annotations
 
@@ -10,24 +11,35 @@ from amploop.bench.oppoint import status_label, warning_advice
 from amploop.report import style
 from amploop.report.data import ReportData
 from amploop.report.pages import footer, new_page, shown_value, values_text
-from amploop.spice.labels import FIGURE_LABELS
+from amploop.spice.labels import COMMON_MODE, COMMON_MODE_LABELS, FIGURE_LABELS
 from amploop.spice.units import engineering
 
 #: Table rows on the first summary page, and on each page after it.
 ROWS_FIRST, ROWS_MORE = 18, 34
 
 
+#: The mark of the limiting corner, and of a fully-differential amplifier's by its loop.
+_MARKS = {None: " ◀ limiting", "differential": " ◀ limiting (diff.)",
+          "common_mode": " ◀ limiting (CM)"}
+#: The common-mode loop's columns, after the differential loop's margins.
+_CM_COLUMNS = (("unity_gain_hz", "", "Hz"), ("phase_margin_deg", ".2f", ""),
+               ("gain_margin_db", ".1f", ""))
+
+
 def _corner_rows(data: ReportData) -> list[list[str]]:
     limiting = data.limiting_corner
+    mark = _MARKS[data.limiting_loop]
     rows = []
     for c in data.results["corners"]:
-        mark = " ◀ limiting" if c["name"] == limiting else ""
+        cm = c.get(COMMON_MODE) or {}
         rows.append([
-            c["name"] + mark,
+            c["name"] + (mark if c["name"] == limiting else ""),
             shown_value(c.get("dc_loop_gain_db"), ".1f"),
             shown_value(c.get("unity_gain_hz"), "", "Hz"),
             shown_value(c.get("phase_margin_deg"), ".2f"),
             shown_value(c.get("gain_margin_db"), ".1f"),
+            *([shown_value(cm.get(k), spec, unit) for k, spec, unit in _CM_COLUMNS]
+              if data.common_mode else []),
             shown_value(c.get("overshoot_pct"), ".2f"),
             shown_value(c.get("settling_time_s"), "", "s"),
             status_label(c.get("status", "error"), c.get("warnings", ())),
@@ -35,20 +47,30 @@ def _corner_rows(data: ReportData) -> list[list[str]]:
     return rows
 
 
-_HEADER = ["corner", *(FIGURE_LABELS[k] for k in ("dc_loop_gain_db", "unity_gain_hz",
-           "phase_margin_deg", "gain_margin_db", "overshoot_pct", "settling_time_s")), "status"]
+def _header(common_mode: bool) -> list[str]:
+    """The table's column headings, with the common-mode loop's when ``common_mode``."""
+    return ["corner", *(FIGURE_LABELS[k] for k in ("dc_loop_gain_db", "unity_gain_hz",
+            "phase_margin_deg", "gain_margin_db")),
+            *((COMMON_MODE_LABELS[k] for k, _, _ in _CM_COLUMNS) if common_mode else ()),
+            *(FIGURE_LABELS[k] for k in ("overshoot_pct", "settling_time_s")), "status"]
 
 
-def _table(ax, rows: list[list[str]], limiting_rows: set[int]) -> None:
+def _table(ax, rows: list[list[str]], limiting_rows: set[int], common_mode: bool) -> None:
     ax.axis("off")
-    table = ax.table(cellText=rows, colLabels=_HEADER, loc="upper center", cellLoc="right",
-                     colLoc="right", colWidths=[0.26, 0.1, 0.1, 0.1, 0.1, 0.1, 0.1, 0.07])
+    header = _header(common_mode)
+    if common_mode:  # eleven columns: narrower, the headings over three lines
+        widths = [0.23] + [0.075] * 9 + [0.07]
+        header = [textwrap.fill(h.replace("\n", " "), 10) for h in header]
+    else:
+        widths = [0.26, 0.1, 0.1, 0.1, 0.1, 0.1, 0.1, 0.07]
+    table = ax.table(cellText=rows, colLabels=header, loc="upper center",
+                     cellLoc="right", colLoc="right", colWidths=widths)
     table.auto_set_font_size(False)
     table.set_fontsize(8)
     table.scale(1, 1.25)
     for (row, col), cell in table.get_celld().items():
         if row == 0:
-            cell.set_height(cell.get_height() * 1.9)
+            cell.set_height(cell.get_height() * (2.6 if common_mode else 1.9))
         cell.set_edgecolor("#cccccc")
         cell.set_linewidth(0.4)
         if col == 0:
@@ -101,7 +123,7 @@ def summary_pages(data: ReportData, date: str):
         t = r["target"]
         gm = f", gain margin ≥ {t['gain_margin_db']:g} dB" if t.get("gain_margin_db") is not None else ""
         lines.append(f"Target: worst-corner phase margin ≥ {t['phase_margin_deg']:g}° "
-                     f"(within +{t['tolerance_deg']:g}°){gm}")
+                     f"(within +{t['tolerance_deg']:g}°){gm}" + _common_mode_target(t))
         lines.append(f"Chosen: {values_text(r['values'], r)}")
         if r.get("message"):
             lines.append(r["message"])
@@ -125,7 +147,7 @@ def summary_pages(data: ReportData, date: str):
             y -= 0.028
     first = rows[:ROWS_FIRST]
     ax = fig.add_axes((0.05, 0.12, 0.9, y - 0.14))
-    _table(ax, first, {i for i in limiting if i < ROWS_FIRST})
+    _table(ax, first, {i for i in limiting if i < ROWS_FIRST}, data.common_mode)
     if len(rows) > ROWS_FIRST:
         fig.text(0.05, 0.1, f"… table continues: {len(rows) - ROWS_FIRST} more corners on the "
                  "next page(s)", fontsize=8, color=style.MUTED)
@@ -137,9 +159,19 @@ def summary_pages(data: ReportData, date: str):
                  f"{len(rows)}", fontsize=13, weight="bold")
         ax = fig.add_axes((0.05, 0.1, 0.9, 0.8))
         chunk = rows[start:start + ROWS_MORE]
-        _table(ax, chunk, {i - start for i in limiting if start <= i < start + ROWS_MORE})
+        _table(ax, chunk, {i - start for i in limiting if start <= i < start + ROWS_MORE},
+               data.common_mode)
         footer(fig)
         yield fig
+
+
+def _common_mode_target(target: dict) -> str:
+    """The common-mode loop's part of the Target line (empty when it has no target)."""
+    cm_pm = target.get("common_mode_phase_margin_deg")
+    cm_gm = target.get("common_mode_gain_margin_db")
+    parts = ([f"phase margin ≥ {cm_pm:g}°"] if cm_pm is not None else []) + (
+        [f"gain margin ≥ {cm_gm:g} dB"] if cm_gm is not None else [])
+    return f"; common-mode loop: worst-corner {', '.join(parts)}" if parts else ""
 
 
 def _status_notes(corners: list[dict]) -> list[str]:
