@@ -39,6 +39,7 @@ class Macromodel:
     z_fb: float = 10e3
     r_dc: float = 1e9        # capacitive only: resistor across the feedback capacitor
     c_in: float = 0.0        # capacitor from inn to ground (the job's input_load), farads
+    r_sw: float = 0.0        # capacitive only: a switch's resistance in series with each capacitor
 
     def with_(self, **changes) -> Macromodel:
         return replace(self, **changes)
@@ -75,9 +76,9 @@ def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
     if m.kind == "resistive":
         admittance(0, None, 1 / m.z_in)
         admittance(3, 0, 1 / m.z_fb)
-    elif m.kind == "capacitive":
-        admittance(0, None, s * m.z_in)
-        admittance(3, 0, s * m.z_fb + 1 / m.r_dc)
+    elif m.kind == "capacitive":  # each capacitor through its switch: sC/(1 + sRC)
+        admittance(0, None, s * m.z_in / (1 + s * m.r_sw * m.z_in))
+        admittance(3, 0, s * m.z_fb / (1 + s * m.r_sw * m.z_fb) + 1 / m.r_dc)
     else:
         y[..., 0, 0] = 1.0
     admittance(inn, None, s * m.c_in)

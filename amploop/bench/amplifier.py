@@ -14,6 +14,7 @@ from pathlib import Path
 from amploop.bench.cmbreak import CommonModeBreak, locate_common_mode_break
 from amploop.bench.knobsites import Device, KnobSite, closest_names, device_site, locate_knob
 from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_CM_DRIVE, NODE_CM_DRIVEN, port_node
+from amploop.bench.usertb import UserDeck, read_user_deck
 from amploop.errors import NetlistError
 from amploop.spec.model import Job
 from amploop.spice.deckfiles import files_read
@@ -54,6 +55,9 @@ class Amplifier:
     common_mode_break
         The 0 V source on the common-mode feedback path of a fully-differential amplifier
         that the probe replaces; None when the job names none.
+    user_deck
+        The user's own testbench (``[testbench]``), read and checked; None when amploop
+        writes its own.
     """
 
     job: Job
@@ -64,6 +68,7 @@ class Amplifier:
     device: Device | None = None
     warnings: tuple[str, ...] = ()
     common_mode_break: CommonModeBreak | None = None
+    user_deck: UserDeck | None = None
 
     @property
     def fully_differential(self) -> bool:
@@ -266,11 +271,14 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
     sections = tuple(dict.fromkeys(c.lib for c in job.corners if c.lib is not None))
     reads = files_read(netlist, includes=job.amplifier.includes, models=job.amplifier.models,
                        sections=sections, inlined=inlined)
-    if reads.commands and not allow_control:
-        path, line, what = reads.commands[0]
+    user_deck = read_user_deck(job) if job.testbench is not None else None
+    commands = list(reads.commands) + list(user_deck.commands if user_deck else ())
+    if commands and not allow_control:
+        path, line, what = commands[0]
         raise NetlistError(
             f"holds {what}", file=path, place=line,
-            hint="remove it, or pass --allow-control if you wrote it and trust it",
+            hint="remove it (amploop runs its own analyses), or pass --allow-control if you "
+            "wrote it and trust it",
         )
     subckt = netlist.subckt(job.amplifier.subckt)
     _check_ports(job, subckt)
@@ -287,9 +295,11 @@ def prepare_amplifier(job: Job, *, allow_control: bool = False) -> Amplifier:
         device, warning = device_site(job, subckt, rc_site, {**global_exprs, **params})
         if warning:
             warnings.append(warning)
+    files = tuple(dict.fromkeys(reads.files + (user_deck.reads if user_deck else ())))
     return Amplifier(job=job, netlist=netlist, subckt=subckt, sites=sites,
-                     reads=reads.files, device=device, warnings=tuple(warnings),
-                     common_mode_break=locate_common_mode_break(job, subckt))
+                     reads=files, device=device, warnings=tuple(warnings),
+                     common_mode_break=locate_common_mode_break(job, subckt),
+                     user_deck=user_deck)
 
 
 def _check_named_devices(job: Job, subckt: Subckt) -> None:
@@ -316,6 +326,7 @@ def _check_ports(job: Job, subckt: Subckt) -> None:
     if job.amplifier.out_n is not None:
         named["[amplifier].out_n"] = job.amplifier.out_n
     named.update({f"[bias].{s.port}": s.port for s in job.bias.sources})
+    own_testbench = job.testbench is not None  # the user's deck connects the ports
     used: dict[str, str] = {}
     for place, port in named.items():
         if subckt.port_index(port) is None:
@@ -328,7 +339,7 @@ def _check_ports(job: Job, subckt: Subckt) -> None:
             raise NetlistError(f"port {port!r} is connected twice (also in {used[port.lower()]})",
                                file=job.path, place=place)
         used[port.lower()] = place
-    for port in subckt.ports:
+    for port in () if own_testbench else subckt.ports:
         if port.lower() not in used:
             raise NetlistError(
                 f"port {port!r} of subckt {subckt.name} is not connected",

@@ -20,7 +20,7 @@ from amploop.spice.rewrite import add_subckt_ports
 from amploop.spice.source import Statement
 from amploop.spice.units import parse_value
 
-__all__ = ["CommonModeBreak", "locate_common_mode_break"]
+__all__ = ["CommonModeBreak", "dc_value", "locate_common_mode_break"]
 
 _GROUND = {"0", "gnd"}
 
@@ -89,7 +89,7 @@ def locate_common_mode_break(job: Job, subckt: Subckt) -> CommonModeBreak | None
         raise NetlistError(f"{statement.tokens[0]} ({where}) is not a voltage source; the "
                            "break is a 0 V voltage source on the common-mode feedback path",
                            file=job.path, place=place)
-    value = _dc_value(statement.tokens[3:])
+    value = dc_value(statement.tokens[3:])
     if value != 0.0:
         shown = " ".join(statement.tokens[3:]) or "no value"
         raise NetlistError(f"{statement.tokens[0]} ({where}) is not a 0 V source ({shown}); "
@@ -111,9 +111,9 @@ def locate_common_mode_break(job: Job, subckt: Subckt) -> CommonModeBreak | None
     return CommonModeBreak(statement=statement, drive=drive, driven=driven)
 
 
-def _dc_value(tokens: tuple[str, ...]) -> float | None:
-    """The DC value of a voltage source's value tokens (``0``, ``dc 0``, ``dc=0`` or none:
-    0); None for anything else (an AC value, a waveform, an expression)."""
+def dc_value(tokens: tuple[str, ...]) -> float | None:
+    """The DC value of ``tokens``, a voltage source's value tokens (``0``, ``dc 0``,
+    ``dc=0`` or none: 0); None for anything else (an AC value, a waveform, an expression)."""
     words = [t.lower() for t in tokens]
     if words and words[0].startswith("dc="):
         words = ["dc", words[0][3:]] + words[1:]

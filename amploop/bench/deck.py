@@ -94,6 +94,15 @@ def closed_loop_deck(
     lines.append(f"* ---- user netlist {root} (compensation values set by amploop)")
     lines.append(netlist_text)
     lines.append("* ---- end of user netlist")
+    if amplifier.user_deck is not None:  # the user's own testbench, probe at its break
+        own = {amplifier.netlist.root, *job.amplifier.includes}
+        own |= {job.amplifier.models} if job.amplifier.models else set()
+        deck, more = amplifier.user_deck.render(instance_params, own, corner.params)
+        where = text(str(amplifier.user_deck.netlist.root), "[testbench].netlist")
+        lines += [f"* ---- user testbench {where}", deck, "* ---- end of user testbench"]
+        lines.extend(loop_elements)
+        lines.append(".end")
+        return "\n".join(lines) + "\n", notes + more
 
     lines.append("* ---- testbench")
     subckt = amplifier.subckt

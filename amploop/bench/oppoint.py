@@ -211,11 +211,11 @@ class OperatingPointProbe:
     """
 
     output: str
-    common_mode: str
+    common_mode: str | None
     supplies: tuple[str, ...]
     devices: tuple[tuple[str, str], ...]
     limits: OperatingPointLimits
-    inverting_input: str = "v(tb_inn)"
+    inverting_input: str | None = "v(tb_inn)"
     output_n: str | None = None
 
     @classmethod
@@ -227,6 +227,9 @@ class OperatingPointProbe:
                                        if s.kind == "volts"))
         devices = tuple((role, getattr(job.amplifier, role)) for role in _ROLES
                         if getattr(job.amplifier, role))
+        if job.testbench is not None:  # the user's deck: no common mode known to amploop
+            return cls(output=f"v({NODE_AMP})", common_mode=None, supplies=(),
+                       devices=devices, limits=job.operating_point, inverting_input=None)
         if job.amplifier.fully_differential:  # the CMFB reference, or the signal source
             reference = job.amplifier.common_mode_reference
             common_mode = f"v({port_node(reference)})" if reference else "v(tb_sig)"
@@ -240,7 +243,8 @@ class OperatingPointProbe:
         """The command that reads the operating point after the AC runs (optional: a
         model without ``vdsat`` leaves that device's region unknown, never the loop gain
         unread)."""
-        reads = [self.output, self.common_mode, self.inverting_input, *self.supplies]
+        reads = [v for v in (self.output, self.common_mode, self.inverting_input) if v]
+        reads += self.supplies
         if self.output_n is not None:
             reads.append(self.output_n)
         for _, name in self.devices:
@@ -253,8 +257,8 @@ class OperatingPointProbe:
         if not values:
             return None
 
-        def value(name: str) -> float | None:
-            vector = values.get(name)
+        def value(name: str | None) -> float | None:
+            vector = values.get(name) if name else None
             return None if vector is None or vector.size == 0 else float(np.real(vector[0]))
 
         supplies = [v for v in (value(n) for n in self.supplies) if v is not None]
@@ -322,6 +326,10 @@ def corner_status(response: FrequencyResponse, margins: Margins, op: OperatingPo
                  f"{response.magnitude_db[-1]:.1f} dB)")
         if broken:
             return "error", start + cause
+        if float(np.max(response.magnitude_db)) < 0:
+            return "error", start + ("; it stays below 0 dB at every frequency, as where "
+                                     "nothing loops back through the break: is the break on "
+                                     "the feedback loop, and the feedback network connected?")
         return "error", start + "; widen [analysis].start/stop or check the feedback network"
     if broken:
         return "suspect", "these margins do not describe the amplifier" + cause

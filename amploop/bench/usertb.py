@@ -22,10 +22,11 @@ from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_FEEDBACK, NODE_FEEDBA
 from amploop.errors import NetlistError
 from amploop.spec.model import Job
 from amploop.spice.deckfiles import files_read
-from amploop.spice.lexer import is_assignment, split_params_prefix
+from amploop.spice.lexer import is_assignment, split_params_prefix, tokenize
 from amploop.spice.netlist import Netlist, read_netlist
-from amploop.spice.rewrite import render_file, replace_instance_param
-from amploop.spice.source import Statement, include_target
+from amploop.spice.rewrite import render_file, replace_instance_param, replace_param
+from amploop.spice.source import Statement, assignments, include_target
+from amploop.spice.units import spice_number
 
 __all__ = ["UserDeck", "read_user_deck"]
 
@@ -57,7 +58,8 @@ class UserDeck:
     reads: tuple[Path, ...]
     commands: tuple = ()
 
-    def render(self, instance_params: dict[str, str], own_files: set[Path]) -> tuple[str, list]:
+    def render(self, instance_params: dict[str, str], own_files: set[Path],
+               corner_params: dict[str, float]) -> tuple[str, list]:
         """The deck's text for a testbench, and notes on what was left out.
 
         Parameters
@@ -67,6 +69,9 @@ class UserDeck:
         own_files
             Files the testbench includes itself (absolute, resolved): the deck's own
             includes of them are left out.
+        corner_params
+            The corner's parameters (SI): where the deck's own ``.param`` lines set one of
+            them, the corner's value is written there (it would win otherwise).
         """
         root = self.netlist.root
         edits: dict[tuple[Path, int], str] = {}
@@ -86,10 +91,19 @@ class UserDeck:
         for name, value in instance_params.items():
             text = replace_instance_param(instance, name, value)
             instance = Statement(instance.file, instance.index, instance.line,
-                                 tuple(text.split()), None, None)
+                                 tuple(tokenize(text)), None, None)
         edits[(self.instance.file, self.instance.index)] = text
         notes = []
         for statement in self.netlist.files[root].statements:
+            if statement.keyword == ".param" and statement.subckt is None:
+                text = " ".join(statement.tokens)
+                for name, value in corner_params.items():
+                    if any(k.lower() == name for k, _ in assignments(statement.tokens[1:])):
+                        text = replace_param(Statement(statement.file, statement.index,
+                                                       statement.line, tuple(tokenize(text)),
+                                                       None, None), name, spice_number(value))
+                if text != " ".join(statement.tokens):
+                    edits[(statement.file, statement.index)] = text
             target = include_target(statement)
             dropped = (target is not None and target[0] in own_files) or \
                 statement.keyword == ".temp"
@@ -103,8 +117,13 @@ class UserDeck:
 
 
 def read_user_deck(job: Job) -> UserDeck:
-    """The ``[testbench]`` deck of ``job``, with its break sources and its instance of the
-    amplifier's subckt found and checked.
+    """The ``[testbench]`` deck of ``job`` (a loaded job with one), with its break sources
+    and its instance of the amplifier's subckt found and checked.
+
+    Parameters
+    ----------
+    job
+        A loaded job with a ``[testbench]`` table.
 
     Raises
     ------

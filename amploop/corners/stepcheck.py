@@ -129,8 +129,11 @@ def run_step_checks(amplifier: Amplifier, corners: tuple[Corner, ...], values: d
     Returns
     -------
     dict
-        Corner name -> :class:`StepCheck`, failed analyses included.
+        Corner name -> :class:`StepCheck`, failed analyses included; empty with the user's
+        own ``[testbench]`` (amploop does not know where its input is).
     """
+    if amplifier.user_deck is not None:
+        return {}
     spec = amplifier.job.transient
     benches = {c.name: build_step_testbench(amplifier, c, values, step_v=spec.step_v,
                                             stop_s=stop_s) for c in corners}

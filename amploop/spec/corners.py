@@ -159,7 +159,8 @@ def check_corner_params(r: Reader, job: Job) -> None:
     for corner in job.corners:
         feedback = job.feedback_for(corner)
         expressions = common + [(f"{feedback.place}.{key}", getattr(feedback, key), True)
-                                for key in ("input", "feedback", "load", "dc_path", "input_load")]
+                                for key in ("input", "feedback", "load", "dc_path", "input_load")
+                                if feedback is not None]
         for place, expression, passive in expressions:
             missing = referenced_params(expression) - set(corner.params)
             if missing:

@@ -22,7 +22,9 @@ from amploop.spec.corners import (
 )
 from amploop.spec.model import (
     Amplifier,
+    Bias,
     Job,
+    UserTestbench,
 )
 from amploop.spec.reader import Reader, deepest_nesting, place_of
 from amploop.spec.resistor_values import check_feedback_resistors
@@ -45,7 +47,7 @@ __all__ = ["load_job"]
 
 _TOP_KEYS = {
     "name", "amplifier", "bias", "feedback", "compensation", "analysis", "corners",
-    "corner_grid", "target", "params", "transient", "operating_point",
+    "corner_grid", "target", "params", "transient", "operating_point", "testbench",
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
@@ -139,13 +141,25 @@ def _build_job(path: Path, data: dict) -> Job:
                                        required=False),
     )
 
-    bias = read_bias(r, r.table(data, "bias", "[bias]"))
+    testbench = None
     configurations = ()
-    if isinstance(data.get("feedback"), list):  # [[feedback]]: several configurations
-        configurations = read_configurations(r, data["feedback"])
-        feedback = configurations[0]
+    if "testbench" in data:  # the user's own closed-loop deck
+        testbench = read_user_testbench(r, path, r.table(data, "testbench", "[testbench]"),
+                                        outputs=1 if amplifier.out_n is None else 2)
+        for table in ("feedback", "bias"):
+            if table in data:
+                raise r.fail(f"[{table}]", f"give [{table}] or [testbench], not both: the "
+                             "testbench's own deck sets " + ("the loop around the amplifier"
+                                                             if table == "feedback" else
+                                                             "the amplifier's bias"))
+        bias, feedback = Bias(common_mode="0", sources=()), None
     else:
-        feedback = read_feedback(r, r.table(data, "feedback", "[feedback]"))
+        bias = read_bias(r, r.table(data, "bias", "[bias]"))
+        if isinstance(data.get("feedback"), list):  # [[feedback]]: several configurations
+            configurations = read_configurations(r, data["feedback"])
+            feedback = configurations[0]
+        else:
+            feedback = read_feedback(r, r.table(data, "feedback", "[feedback]"))
     compensation = read_compensation(r, r.table(data, "compensation", "[compensation]"))
     analysis = read_analysis(r, r.table(data, "analysis", "[analysis]", required=False))
     target = read_target(r, r.table(data, "target", "[target]", required=False))
@@ -154,7 +168,7 @@ def _build_job(path: Path, data: dict) -> Job:
     corners = with_configurations(read_corners(r, data, defaults), configurations)
 
     _check_differential(r, amplifier, target, compensation, analysis,
-                        configurations or (feedback,))
+                        configurations or ((feedback,) if feedback else ()))
     _check_reference(r, amplifier, bias)
     job = Job(
         path=path,
@@ -171,6 +185,7 @@ def _build_job(path: Path, data: dict) -> Job:
                                                required=False)),
         raw=data,
         configurations=configurations,
+        testbench=testbench,
     )
     check_corner_libs(r, job)
     check_corner_params(r, job)
@@ -208,6 +223,32 @@ def _check_differential(r: Reader, amplifier: Amplifier, target, compensation,
             raise r.fail(f"[compensation].{role}.element", "a list of elements sets the two "
                          "halves of a fully-differential amplifier", hint="give out_n, or "
                          "one element")
+
+
+def read_user_testbench(r: Reader, job_path: Path, data: dict, *, outputs: int
+                        ) -> UserTestbench:
+    """The ``[testbench]`` table ``data`` of the job file at ``job_path``, read with ``r``:
+    the deck (a file next to the job's), its break source (a list of ``outputs`` of them
+    for a fully-differential amplifier), and the optional ``beta`` and ``load``."""
+    r.known(data, {"netlist", "break", "beta", "load"}, "[testbench]")
+    netlist = _existing_file(r, job_path, data, "netlist", "[testbench]")
+    breaks = data.get("break")
+    if isinstance(breaks, str):
+        breaks = [breaks]
+    if not isinstance(breaks, list) or not all(isinstance(b, str) and b.strip() for b in breaks):
+        raise r.fail("[testbench].break", "expected the name of the 0 V source where the loop "
+                     "is broken" + (", or a list of two" if outputs == 2 else ""))
+    if len(breaks) != outputs:
+        raise r.fail("[testbench].break", f"a {'fully-differential' if outputs == 2 else 'single-ended'} "
+                     f"amplifier's loop is broken at {outputs} source{'s' if outputs == 2 else ''}, "
+                     f"one per output; got {len(breaks)}")
+    beta = None if "beta" not in data else r.number(data["beta"], "[testbench].beta")
+    if beta is not None and not 0 < beta <= 1:
+        raise r.fail("[testbench].beta", f"expected a feedback factor between 0 and 1, got {beta:g}")
+    load = None if "load" not in data else r.number(data["load"], "[testbench].load",
+                                                    nonnegative=True)
+    return UserTestbench(netlist=netlist, breaks=tuple(b.strip() for b in breaks), beta=beta,
+                         load_f=load)
 
 
 def _check_reference(r: Reader, amplifier: Amplifier, bias) -> None:

@@ -162,6 +162,30 @@ class Feedback:
 
 
 @dataclass(frozen=True)
+class UserTestbench:
+    """``[testbench]``: the designer's own closed-loop deck, with the loop's break marked.
+
+    Attributes
+    ----------
+    netlist
+        The deck (absolute path); it instantiates the amplifier's subckt itself.
+    breaks
+        The 0 V voltage source in it where the loop is broken, first node on the
+        amplifier's side; two for a fully-differential amplifier (one per output, ``out``'s
+        first).
+    beta
+        The feedback factor for the textbook strategy's start; None when not given.
+    load_f
+        The capacitance the output drives, farads, for the same; None when not given.
+    """
+
+    netlist: Path
+    breaks: tuple[str, ...]
+    beta: float | None = None
+    load_f: float | None = None
+
+
+@dataclass(frozen=True)
 class Knob:
     """One ``[compensation]`` entry: a role (``cc`` or ``rc``) and where the netlist keeps it.
 
@@ -255,13 +279,16 @@ class Job:
     configurations
         The ``[[feedback]]`` configurations by name, in the job file's order; empty with a
         single ``[feedback]`` table.
+    testbench
+        The user's own ``[testbench]``; None when amploop builds its own (``feedback`` is
+        then None, ``bias`` empty).
     """
 
     path: Path
     name: str
     amplifier: Amplifier
     bias: Bias
-    feedback: Feedback
+    feedback: Feedback | None
     compensation: dict[str, Knob]
     analysis: Analysis
     corners: tuple[Corner, ...]
@@ -270,14 +297,16 @@ class Job:
     operating_point: OperatingPointLimits = field(default_factory=OperatingPointLimits)
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
     configurations: tuple[Feedback, ...] = ()
+    testbench: UserTestbench | None = None
 
     @property
     def feedbacks(self) -> tuple[Feedback, ...]:
-        """Every feedback configuration: the ``[[feedback]]`` array, or the one table."""
-        return self.configurations or (self.feedback,)
+        """Every feedback configuration: the ``[[feedback]]`` array, or the one table (none
+        with the user's own ``[testbench]``)."""
+        return self.configurations or ((self.feedback,) if self.feedback else ())
 
-    def feedback_for(self, corner: Corner) -> Feedback:
-        """The feedback configuration ``corner`` runs in."""
+    def feedback_for(self, corner: Corner) -> Feedback | None:
+        """The feedback configuration ``corner`` runs in (None with a ``[testbench]``)."""
         for feedback in self.configurations:
             if feedback.name == corner.configuration:
                 return feedback

@@ -150,6 +150,7 @@ def render_file(
     edits: dict[tuple[Path, int], str],
     *,
     top_level: bool,
+    keep_elements: bool = False,
 ) -> tuple[str, list[str]]:
     """Text of one netlist file for the testbench, with edits applied.
 
@@ -165,6 +166,9 @@ def render_file(
         True for the user's netlist file itself: its top-level element lines and analysis
         commands are left out (as comments), since the testbench supplies its own, and
         the text stops at its ``.end``.
+    keep_elements
+        With ``top_level``: keep the top-level elements (and ``.ic``/``.nodeset``) and leave
+        out only the run commands: the user's own testbench deck.
 
     Returns
     -------
@@ -178,7 +182,7 @@ def render_file(
     """
     inline = _units_to_inline(netlist, edits)
     return _render(netlist, Path(path), None, edits, top_level=top_level, inline=inline,
-                   active=frozenset({(Path(path), None)}))
+                   active=frozenset({(Path(path), None)}), keep_elements=keep_elements)
 
 
 def _units_to_inline(netlist: Netlist, edits: dict[tuple[Path, int], str]) -> set:
@@ -222,6 +226,7 @@ def _render(
     top_level: bool,
     inline: set,
     active: frozenset,
+    keep_elements: bool = False,
 ) -> tuple[str, list[str]]:
     """:func:`render_file` of one file, or of one ``.lib`` section of it (``section``)."""
     source = netlist.files[path]
@@ -269,12 +274,12 @@ def _render(
                        for raw in logical.raw)
             continue
         if top_level and statement.subckt is None and statement.section is None and (
-                keyword in ANALYSIS_COMMANDS or not keyword.startswith(".")):
+                (keyword in ANALYSIS_COMMANDS and not (keep_elements and keyword in _KEPT))
+                or (not keyword.startswith(".") and not keep_elements)):
             out.extend(f"* amploop left out: {raw}" for raw in logical.raw)
-            notes.append(
-                f"{path}:{statement.line}: {statement.tokens[0]} is outside the subckt; "
-                "left out of the testbench"
-            )
+            why = ("is a run command; amploop runs its own analyses" if keep_elements
+                   else "is outside the subckt; left out of the testbench")
+            notes.append(f"{path}:{statement.line}: {statement.tokens[0]} {why}")
             continue
         out.extend(logical.raw)
     return "\n".join(out), notes
@@ -303,6 +308,9 @@ def _deck_path(statement: Statement, path: Path) -> str:
     return deck_text(str(path), what=f"the file {statement.tokens[1]!r} resolves to a path that",
                      file=statement.file, place=statement.line, error=NetlistError)
 
+
+#: What a user's own testbench keeps of the run commands: its initial guesses.
+_KEPT = frozenset({".ic", ".nodeset"})
 
 # Dot-commands that belong to a simulation run, not to a circuit library. At the top level
 # of the user's netlist they are left out of the generated testbench (as comments).

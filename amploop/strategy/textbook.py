@@ -128,7 +128,8 @@ def tune_by_textbook(evaluator: Evaluator, target: Target, *, lead_share_deg: fl
 
 
 def _check_applies(evaluator: Evaluator) -> None:
-    """Refuse a job the procedure cannot run on (no gm to read, or a device for Rc)."""
+    """Refuse a job the procedure cannot run on (no gm to read, a user's testbench without
+    its beta and load, or a device for Rc)."""
     job = evaluator.amplifier.job
     if not job.amplifier.input_device or not job.amplifier.second_stage_device:
         raise TuningError(
@@ -136,6 +137,12 @@ def _check_applies(evaluator: Evaluator) -> None:
             "(an input-pair transistor and the second-stage driver) to read their gm",
             file=job.path, place="[amplifier]",
         )
+    given = job.testbench
+    if given is not None and (given.beta is None or given.load_f is None):
+        raise TuningError("with your own testbench the textbook strategy needs its feedback "
+                          "factor and the output's load: give [testbench] beta and load "
+                          "(amploop does not read them off the deck)", file=job.path,
+                          place="[testbench]")
     if evaluator.amplifier.device is not None:
         raise TuningError("the textbook strategy sets a resistance, not a device size: use the "
                           "map strategy for a MOSFET standing in for Rc",
@@ -163,6 +170,11 @@ def _starting_ccs(evaluator: Evaluator, gms: dict) -> list[float]:
     starts = []
     for corner in evaluator.corners:
         fb = job.feedback_for(corner)
+        if fb is None:  # the user's own testbench: its beta and load as the job gives them
+            given = job.testbench
+            starts.append(starting_cc(given.beta, gms[corner.name]["gm1"], given.load_f,
+                                      gms[corner.name]["gm2"]))
+            continue
         z_in = _corner_value(fb.input, corner.params)
         z_fb = _corner_value(fb.feedback, corner.params)
         cl = _corner_value(fb.load, corner.params)
