@@ -23,14 +23,14 @@ import numpy as np
 
 from amploop.analysis.compmap import CompensationMap
 from amploop.corners.outputs import OutFolder, clean_json, is_folder
-from amploop.errors import JobError
+from amploop.errors import JobError, OutputError
 from amploop.report.data import load_report_data
 from amploop.spice.labels import (FIGURE_LABELS, PHASE_MARGIN_CORNER, ROLE_LABELS,
                                   WORST_PHASE_MARGIN_CORNER)
 from amploop.spice.units import SCALE_SUFFIXES
 from amploop.strategy.kinds import kind_label
 
-__all__ = ["EXPLORE_FILE", "ExploreOutcome", "build_explore", "explore_page"]
+__all__ = ["EXPLORE_FILE", "ExploreOutcome", "build_explore", "explore_page", "remove_explore"]
 
 #: The page's name in the out folder.
 EXPLORE_FILE = "explore.html"
@@ -231,3 +231,23 @@ def build_explore(out: str | Path) -> ExploreOutcome:
         path = folder.write_text(EXPLORE_FILE, text)
     return ExploreOutcome(path, len(text.encode("utf-8")), len(maps),
                           time.perf_counter() - started)
+
+
+def remove_explore(out: str | Path) -> bool:
+    """Remove an earlier run's ``explore.html`` from ``out`` (a run that leaves no maps, so
+    that no page of other results looks current); whether there was one.
+
+    Parameters
+    ----------
+    out
+        The out folder.
+    """
+    path = Path(out) / EXPLORE_FILE
+    try:
+        path.unlink()
+    except FileNotFoundError:
+        return False
+    except OSError as exc:
+        raise OutputError(f"cannot remove the earlier run's {EXPLORE_FILE}: {exc.strerror}",
+                          file=out) from None
+    return True
