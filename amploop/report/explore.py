@@ -25,8 +25,12 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.corners.outputs import OutFolder, clean_json, is_folder
 from amploop.errors import JobError, OutputError
 from amploop.report.data import load_report_data
-from amploop.spice.labels import (FIGURE_LABELS, PHASE_MARGIN_CORNER, ROLE_LABELS,
-                                  WORST_PHASE_MARGIN_CORNER)
+from amploop.spice.labels import (
+    FIGURE_LABELS,
+    PHASE_MARGIN_CORNER,
+    ROLE_LABELS,
+    WORST_PHASE_MARGIN_CORNER,
+)
 from amploop.spice.units import SCALE_SUFFIXES
 from amploop.strategy.kinds import kind_label
 
