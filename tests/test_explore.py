@@ -300,3 +300,25 @@ def test_explore_rebuilds_the_page_and_refuses_a_folder_without_maps(demo, tmp_p
     capsys.readouterr()
     assert main(["explore", str(measured)]) == 2
     assert "needs a tune with the map strategy" in capsys.readouterr().err
+
+
+def test_a_mosfet_for_rc_is_predicted_by_the_square_law_and_says_so(browser, tmp_path):
+    out = tmp_path / "triode"
+    assert main(["tune", str(DEMO / "job_triode.toml"), "--out", str(out), "--quiet"]) == 0
+    with load_report_data(out) as data:
+        maps = {name: data.maps[name] for name in data.maps}
+        results = data.results
+    size_ref = [h for h in results["history"] if h["kind"] == "characterise"][-1]["values"]["rc"]
+    size = 0.8 * results["values"]["rc"]
+    open_page(browser, out / "explore.html", f"#cc=0.3p&size={size!r}")
+    assert "square law" in browser.find_element("id", "state").text
+    shown = table(browser)
+    for name, cmap in maps.items():  # reference: R ∝ 1/W (analysis.triode) on the Python map
+        r = cmap.samples[0][1] * size_ref / size
+        assert shown[name]["phase_margin_deg"] == pytest.approx(
+            python_prediction(cmap, 0.3e-12, r)["phase_margin_deg"], abs=0.01)
+    open_page(browser, out / "explore.html")
+    shown = table(browser)
+    for corner in results["corners"]:  # an estimate: near the verified simulation, not equal
+        assert shown[corner["name"]]["phase_margin_deg"] == pytest.approx(
+            corner["phase_margin_deg"], abs=0.5)
