@@ -130,6 +130,13 @@ def _parser() -> argparse.ArgumentParser:
         "journal, without simulating.")
     report.add_argument("out", metavar="OUTDIR", help="an out folder of measure or tune")
     report.add_argument("--no-png", action="store_true", help="write the PDF only")
+    explore = commands.add_parser(
+        "explore", parents=[debug],
+        help="rebuild explore.html of an out folder: margins at any Cc, Rc (no simulation)",
+        description="Write explore.html, a page that predicts every corner's loop gain and "
+        "margins at any Cc and Rc from the compensation maps of a tune with the map "
+        "strategy, from the out folder's results.json and journal.")
+    explore.add_argument("out", metavar="OUTDIR", help="an out folder of tune --strategy map")
     return parser
 
 
@@ -141,6 +148,25 @@ def _write_report(out, args, *, quiet: bool, pngs: bool = True) -> None:
                                all_corner_pages=args.all_corner_pages, progress=progress)
     if not quiet:
         print(f"report: {outcome.pdf} ({outcome.pages} pages, {outcome.seconds:.1f} s)")
+
+
+def _write_explore(out, *, quiet: bool, strict: bool) -> None:
+    """Write explore.html; after a tune (``strict`` False) a folder the page cannot show
+    gets a warning, not a failure."""
+    from amploop.report.explore import build_explore, remove_explore
+
+    try:
+        outcome = build_explore(out)
+    except JobError as error:
+        if strict:
+            raise
+        remove_explore(out)
+        if not quiet:
+            print(f"amploop: warning: no explore.html: {error}", file=sys.stderr)
+        return
+    if not quiet:
+        print(f"what-if page: {outcome.path} ({outcome.corners} corners, "
+              f"{outcome.size_bytes / 1e6:.1f} MB)")
 
 
 def _run_report(args) -> ExitCode:
@@ -192,6 +218,9 @@ def _run_measure(args) -> ExitCode:
         print_corner_errors(failed, len(result.corners))
         if not args.no_report and any(c.margins is not None for c in result.corners):
             _write_report(result.out, args, quiet=args.quiet or args.json)
+        from amploop.report.explore import remove_explore
+
+        remove_explore(result.out)  # a measure leaves no maps: an earlier tune's page goes
 
     with _cluster_pool(args) as pool, corner_progress(args.quiet) as progress:
         result = measure(job, out=args.out, overrides=overrides, workers=args.workers,
@@ -253,6 +282,12 @@ def _run_tune(args) -> ExitCode:
                 print(f"no compensated netlist written: the run is {result.status}")
         if not args.no_report and result.outcome.final is not None:
             _write_report(result.out, args, quiet=args.quiet or args.json)
+        if args.strategy == "map" and result.outcome.final is not None:
+            _write_explore(result.out, quiet=args.quiet or args.json, strict=False)
+        else:  # no maps: a page of an earlier run's would look current
+            from amploop.report.explore import remove_explore
+
+            remove_explore(result.out)
         if not args.quiet:
             for warning in data.get("warnings", []):
                 print(f"amploop: warning: {warning}", file=sys.stderr)
@@ -303,6 +338,9 @@ def main(argv: list[str] | None = None) -> int:
             return int(_run_tune(args))
         if args.command == "report":
             return int(_run_report(args))
+        if args.command == "explore":
+            _write_explore(args.out, quiet=False, strict=True)
+            return int(ExitCode.OK)
         parser.error(f"unknown command {args.command}")
     except AmploopError as error:
         print(f"amploop: error: {error}", file=sys.stderr)
