@@ -10,8 +10,10 @@ transient simulation, in two steps:
    +j2πf and their mirror images at −j2πf with the conjugate values, taking support
    points in conjugate pairs, so that the fit is the response of a real system. Its poles
    are the finite eigenvalues of the barycentric form's arrowhead pencil, its residues
-   N(p)/D'(p) (same paper, §2); poles whose step contribution |r/p| is below ``1e-9`` of
-   max|H| (the fit's spurious "Froissart doublets") are dropped.
+   N(p)/D'(p) (same paper, §2). Poles whose step contribution |r/p| is below 1000 times
+   the fit's own largest error (at least 1e-9, at most 1e-5 of max|H|) are dropped: the
+   data cannot tell them from its noise, and the fit puts such "Froissart doublets" (same
+   paper, §6) anywhere, the right half-plane included.
 2. The step response of H(s) = d + Σ r_k/(s − p_k), analytically (partial fractions of
    H(s)/s; e.g. K. Ogata, "Modern Control Engineering", ch. 5):
 
@@ -34,14 +36,16 @@ run), the mean over the window's last 5 %. Pure functions on arrays; no simulato
 from __future__ import annotations
 
 from dataclasses import dataclass
+from itertools import pairwise
 
 import numpy as np
 import scipy.linalg
 
 __all__ = ["PoleResidueModel", "aaa_fit", "settling_time", "settling_times"]
 
-#: Step contributions |r/p| below this fraction of max|H| are fit artefacts, dropped.
-SPURIOUS = 1e-9
+#: Step contributions |r/p| below NOISE_FACTOR times the fit's error (relative to max|H|,
+#: clipped to [SPURIOUS_MIN, SPURIOUS_MAX]) are fit artefacts, dropped.
+NOISE_FACTOR, SPURIOUS_MIN, SPURIOUS_MAX = 1000.0, 1e-9, 1e-5
 #: Time samples per period (or per time constant) of the fastest term still above the band.
 SAMPLES_PER_PERIOD = 24
 
@@ -140,12 +144,14 @@ def aaa_fit(frequency_hz: np.ndarray, values: np.ndarray, tol: float = 1e-9,
             break
     support = support[:best[1]]
     weights = best[2]
-    return _poles_residues(z_all[support], h_all[support], weights, w_ref, scale)
+    spurious = min(max(NOISE_FACTOR * best[0], SPURIOUS_MIN), SPURIOUS_MAX) * scale
+    return _poles_residues(z_all[support], h_all[support], weights, w_ref, spurious)
 
 
-def _poles_residues(zs, hs, weights, w_ref, scale) -> PoleResidueModel:
+def _poles_residues(zs, hs, weights, w_ref, spurious) -> PoleResidueModel:
     """Poles, residues and direct term of the barycentric form Σ w f/(z−z_j) / Σ w/(z−z_j),
-    in s = w_ref·z, spurious terms dropped and far poles folded into the direct term."""
+    in s = w_ref·z; terms with |r/p| ≤ ``spurious`` dropped, far poles folded into the
+    direct term."""
     m = zs.size
     e = np.zeros((m + 1, m + 1), dtype=complex)
     e[0, 1:] = weights
@@ -160,7 +166,7 @@ def _poles_residues(zs, hs, weights, w_ref, scale) -> PoleResidueModel:
     diff = poles[:, None] - zs[None, :]
     residues = np.sum(weights * hs / diff, axis=1) / -np.sum(weights / diff**2, axis=1)
     contribution = np.abs(residues / poles)
-    keep = contribution > SPURIOUS * scale
+    keep = contribution > spurious
     far = keep & (np.abs(poles) > 100.0)    # beyond 100× the top frequency: a constant there
     d = d - np.sum(residues[far] / poles[far])
     keep &= ~far
@@ -182,7 +188,7 @@ def _time_grid(c: np.ndarray, p: np.ndarray, threshold: float, t_end: float) -> 
     step_k = step_k / SAMPLES_PER_PERIOD
     edges = np.unique(np.concatenate([[0.0], np.minimum(t_k, t_end), [t_end]]))
     pieces = []
-    for a, b_ in zip(edges[:-1], edges[1:]):
+    for a, b_ in pairwise(edges):
         live = t_k > a
         dt = min(step_k[live].min(initial=np.inf), t_end / 4000)
         pieces.append(np.linspace(a, b_, max(int(np.ceil((b_ - a) / dt)), 1) + 1)[:-1])

@@ -116,7 +116,12 @@ class LoopReadout:
                              ) -> FrequencyResponse:
         """The closed-loop response from the signal source to the output (V/V; the
         differential output per volt of differential input for a fully-differential
-        amplifier) from ``reads``, the vectors read after each step.
+        amplifier).
+
+        Parameters
+        ----------
+        reads
+            The vectors read after each step, one dict per step.
 
         Raises
         ------
