@@ -60,45 +60,100 @@ Cc nz out {{cc}}
 """
 
 
-def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
-    """det Y(s) of the closed loop for every complex frequency in ``s`` (vectorised)."""
-    # nodes: 0 inn, 1 n1, 2 nz, 3 out; the input source and common mode are AC ground. In
-    # the unity configuration inn is the output node itself (node 0 then unused, held at 0).
-    s = np.asarray(s, dtype=complex)
-    y = np.zeros(s.shape + (4, 4), dtype=complex)
+#: The closed loop's nodes: inn, n1, nz, out, and the two switch nodes of a capacitive
+#: loop with switches (between the switch and Cin, between Cfb and its switch).
+NODES = 6
+
+
+def nodal_matrices(m: Macromodel, gm1: float | None = None):
+    """(G, C) with the closed loop's nodal admittance matrix Y(s) = G + s·C (6×6, SI).
+
+    Nodes: 0 inn, 1 n1, 2 nz, 3 out, 4 and 5 the switch nodes (held at 0 when unused); the
+    input source and the common mode are AC ground. In the unity configuration inn is the
+    output node itself (node 0 then unused). ``gm1`` replaces the model's first-stage
+    transconductance (0 for Bode's Δ⁰).
+    """
+    gm1 = m.gm1 if gm1 is None else gm1
+    g = np.zeros((NODES, NODES))
+    c = np.zeros((NODES, NODES))
     inn = 3 if m.kind == "unity" else 0
 
-    def admittance(a, b, g):
+    def admittance(y, a, b, value):
         for i, j, sign in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
             if i is not None and j is not None:
-                y[..., i, j] += sign * g
+                y[i, j] += sign * value
 
+    switched = m.kind == "capacitive" and m.r_sw > 0
     if m.kind == "resistive":
-        admittance(0, None, 1 / m.z_in)
-        admittance(3, 0, 1 / m.z_fb)
-    elif m.kind == "capacitive":  # each capacitor through its switch: sC/(1 + sRC)
-        admittance(0, None, s * m.z_in / (1 + s * m.r_sw * m.z_in))
-        admittance(3, 0, s * m.z_fb / (1 + s * m.r_sw * m.z_fb) + 1 / m.r_dc)
+        admittance(g, 0, None, 1 / m.z_in)
+        admittance(g, 3, 0, 1 / m.z_fb)
+    elif switched:  # signal (AC ground) -Rsw- 4 -Cin- inn;  out -Cfb- 5 -Rsw- inn
+        admittance(g, 4, None, 1 / m.r_sw)
+        admittance(c, 4, 0, m.z_in)
+        admittance(c, 3, 5, m.z_fb)
+        admittance(g, 5, 0, 1 / m.r_sw)
+        admittance(g, 3, 0, 1 / m.r_dc)
+    elif m.kind == "capacitive":
+        admittance(c, 0, None, m.z_in)
+        admittance(c, 3, 0, m.z_fb)
+        admittance(g, 3, 0, 1 / m.r_dc)
     else:
-        y[..., 0, 0] = 1.0
-    admittance(inn, None, s * m.c_in)
-    admittance(1, None, 1 / m.r1 + s * m.c1)
-    admittance(3, None, 1 / m.r2 + s * (m.c2 + m.cl))
+        g[0, 0] = 1.0
+    if not switched:
+        g[4, 4] = g[5, 5] = 1.0
+    admittance(c, inn, None, m.c_in)
+    admittance(g, 1, None, 1 / m.r1)
+    admittance(c, 1, None, m.c1)
+    admittance(g, 3, None, 1 / m.r2)
+    admittance(c, 3, None, m.c2 + m.cl)
     # the Rc-Cc branch; with Rc = 0 the capacitor joins n1 directly (node nz unused, held at 0).
     # ngspice itself turns a 0 Ω resistor into 1 mΩ, so tests that compare against ngspice
     # at Rc = 0 pass rc=1e-3 here.
     if m.rc > 0:
         # ngspice replaces a resistance below 1 mΩ by 1 mΩ (its @r[resistance] reads 1e-3)
-        admittance(1, 2, 1 / max(m.rc, 1e-3))
-        admittance(2, 3, s * m.cc)
+        admittance(g, 1, 2, 1 / max(m.rc, 1e-3))
+        admittance(c, 2, 3, m.cc)
     else:
-        admittance(1, 3, s * m.cc)
-        y[..., 2, 2] = 1.0
+        admittance(c, 1, 3, m.cc)
+        g[2, 2] = 1.0
     # G1 n1 0 inp inn gm1: gm1·(v_inp − v_inn) leaves n1, with v_inp = 0
-    y[..., 1, inn] += -gm1
+    g[1, inn] += -gm1
     # G2 out 0 n1 0 gm2: gm2·v_n1 leaves out
-    y[..., 3, 1] += m.gm2
-    return np.linalg.det(y)
+    g[3, 1] += m.gm2
+    return g, c
+
+
+def signal_injection(m: Macromodel) -> tuple[np.ndarray, np.ndarray]:
+    """(b_g, b_c): the current into the nodes per volt of the signal source, b_g + s·b_c
+    (its Norton equivalent through Z1 into inn, or through the switch into node 4; Z1 to
+    ground is already in G, C). Resistive and capacitive loops only."""
+    if m.kind == "unity":
+        raise ValueError("a unity configuration takes its signal at the non-inverting input")
+    b_g, b_c = np.zeros(NODES), np.zeros(NODES)
+    if m.kind == "resistive":
+        b_g[0] = 1 / m.z_in
+    elif m.r_sw > 0:
+        b_g[4] = 1 / m.r_sw
+    else:
+        b_c[0] = m.z_in
+    return b_g, b_c
+
+
+def _determinant(m: Macromodel, s: np.ndarray, gm1: float) -> np.ndarray:
+    """det Y(s) of the closed loop for every complex frequency in ``s`` (vectorised)."""
+    g, c = nodal_matrices(m, gm1)
+    s = np.asarray(s, dtype=complex)[..., None, None]
+    return np.linalg.det(g + s * c)
+
+
+def exact_closed_loop(m: Macromodel, frequency_hz: np.ndarray) -> np.ndarray:
+    """Closed-loop response v(out)/v(sig) at j2πf (complex, V/V): Y(s)·v = b(s) solved."""
+    s = 2j * np.pi * np.asarray(frequency_hz, dtype=float)
+    g, c = nodal_matrices(m)
+    b_g, b_c = signal_injection(m)
+    y = g + s[:, None, None] * c
+    b = b_g + s[:, None] * b_c
+    return np.linalg.solve(y, b[..., None])[:, 3, 0]
 
 
 def exact_loop_gain(m: Macromodel, frequency_hz: np.ndarray) -> np.ndarray:
@@ -131,3 +186,55 @@ def dense_margins(frequency_hz: np.ndarray, t: np.ndarray):
             a = (p[k] + 180) / (p[k] - p[k + 1])
             gm[idx] = min(gm[idx], -20 / np.log(10) * (m[k] + a * (m[k + 1] - m[k])))
     return pm, ugf, gm
+
+
+def _poly_det(entries: list[list[np.ndarray]]) -> np.ndarray:
+    """Determinant of a square matrix of polynomials (coefficients lowest power first), by
+    Laplace expansion along the first row."""
+    P = np.polynomial.polynomial
+    if len(entries) == 1:
+        return entries[0][0]
+    total = np.zeros(1)
+    for j, entry in enumerate(entries[0]):
+        minor = [row[:j] + row[j + 1:] for row in entries[1:]]
+        total = P.polyadd(total, (-1) ** j * P.polymul(entry, _poly_det(minor)))
+    return total
+
+
+#: The frequency scale of the polynomials, rad/s (keeps their coefficients comparable).
+OMEGA0 = 1e9
+
+
+def exact_closed_loop_rational(m: Macromodel) -> tuple[np.ndarray, np.ndarray]:
+    """(N, D): v(out)/v(sig) = N(ŝ)/D(ŝ) with ŝ = s/OMEGA0, polynomial coefficients lowest
+    power first, by Cramer's rule on Y(s) = G + s·C: D = det Y, N = det Y with the output's
+    column replaced by the injection b(s)."""
+    g, c = nodal_matrices(m)
+    b_g, b_c = signal_injection(m)
+    entries = [[np.array([g[i, j], OMEGA0 * c[i, j]]) for j in range(NODES)]
+               for i in range(NODES)]
+    d = _poly_det(entries)
+    for i in range(NODES):
+        entries[i][3] = np.array([b_g[i], OMEGA0 * b_c[i]])
+    n = _poly_det(entries)
+    trim = np.polynomial.polynomial.polytrim
+    return trim(n, 0), trim(d, 0)
+
+
+def exact_step_terms(m: Macromodel) -> tuple[float, np.ndarray, np.ndarray]:
+    """(H(0), c_k, p_k): the unit step response y(t) = H(0) + Re Σ c_k·exp(p_k·t) of the
+    closed loop (p_k in rad/s), from the partial fractions of N/(ŝ·D): the residue at a
+    simple pole p of D is N(p)/(p·D'(p)), and at 0 it is N(0)/D(0) = H(0)."""
+    P = np.polynomial.polynomial
+    n, d = exact_closed_loop_rational(m)
+    poles = P.polyroots(d)
+    c = P.polyval(poles, n) / (poles * P.polyval(poles, P.polyder(d)))
+    return float(n[0] / d[0]), c, poles * OMEGA0
+
+
+def exact_step(m: Macromodel, time_s: np.ndarray) -> np.ndarray:
+    """The closed loop's unit step response at ``time_s`` (seconds ≥ 0), V/V
+    (:func:`exact_step_terms`)."""
+    h0, c, p = exact_step_terms(m)
+    t = np.asarray(time_s, dtype=float)[..., None]
+    return h0 + np.real(np.sum(c * np.exp(p * t), axis=-1))

@@ -5,11 +5,18 @@ the differential loop, broken at both outputs by :class:`~amploop.bench.probe.Di
 and, when the job names the common-mode break, the common-mode feedback loop, broken there
 by a second double injection that runs after the differential one in the same ngspice
 session (the differential loop stays closed meanwhile: its sources are back at AC 0).
+
+Optionally one more AC run follows the probes' runs: the closed-loop response from the
+signal source to the output. Every injection is switched off (a series source at AC 0 is
+a short, a shunt source at AC 0 an open, so the loop is closed as in the amplifier's
+application) and the signal source ``Vsig`` gets AC 1; the run reads v(tb_out). A
+fully-differential amplifier's two signal sources get ½ and ½ at 180°, as the step deck
+drives them ±½, and the response is v(tb_out) − v(tb_outn).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -34,6 +41,10 @@ from amploop.spec.model import Job
 
 __all__ = ["COMMON_MODE_VECTOR", "LoopReadout", "loop_readout", "readout_for"]
 
+#: The signal sources of the deck (:func:`~amploop.bench.testbench.closed_loop_deck`), as
+#: ngspice names them: the single output's (or the first output's), and the second output's.
+SIGNAL_SOURCE, SIGNAL_SOURCE_N = "vsig", "vsign"
+
 #: The vector a hand-runnable deck sets to the common-mode loop gain.
 COMMON_MODE_VECTOR = "cm_loop_gain"
 
@@ -54,10 +65,14 @@ class LoopReadout:
     common_mode
         The common-mode loop's probe, between ``tb_cma`` and ``tb_cmb``; None when that loop
         is not measured.
+    closed_loop
+        Whether the closed-loop response run follows the probes' runs (off: the steps are
+        exactly those of the probes).
     """
 
     probe: Probe
     common_mode: DoubleInjection | None = None
+    closed_loop: bool = False
 
     def elements(self) -> list[str]:
         """Every probe element line of the deck."""
@@ -72,7 +87,54 @@ class LoopReadout:
         if self.common_mode is not None:
             steps += self.probe.off_steps()
             steps += self.common_mode.steps(ac_command, NODE_CM_DRIVE, NODE_CM_DRIVEN)
+        if self.closed_loop:
+            steps += self._closed_loop_steps(ac_command)
         return steps
+
+    @property
+    def _differential(self) -> bool:
+        return isinstance(self.probe, DifferentialInjection)
+
+    def _closed_loop_steps(self, ac_command: str) -> tuple[Step, ...]:
+        """Injections off, the signal source(s) on, one run of ``ac_command`` reading the
+        output(s)."""
+        last = self.common_mode or self.probe
+        if not hasattr(last, "off_steps"):
+            raise ValueError(f"the {self.probe.name!r} probe cannot close the loop for a "
+                             "closed-loop response")
+        if self._differential:
+            drive = (Step(f"alter {SIGNAL_SOURCE} acmag=0.5"),
+                     Step(f"alter {SIGNAL_SOURCE_N} acmag=0.5"),
+                     Step(f"alter {SIGNAL_SOURCE_N} acphase=180"))
+            outputs = (f"v({NODE_AMP})", f"v({NODE_AMP_N})")
+        else:
+            drive = (Step(f"alter {SIGNAL_SOURCE} acmag=1"),)
+            outputs = (f"v({NODE_AMP})",)
+        return last.off_steps() + drive + (Step(ac_command, ("frequency", *outputs)),)
+
+    def closed_loop_response(self, reads: tuple[dict[str, np.ndarray], ...]
+                             ) -> FrequencyResponse:
+        """The closed-loop response from the signal source to the output (V/V; the
+        differential output per volt of differential input for a fully-differential
+        amplifier).
+
+        Parameters
+        ----------
+        reads
+            The vectors read after each step, one dict per step.
+
+        Raises
+        ------
+        ValueError
+            When the readout was made without ``closed_loop``.
+        """
+        if not self.closed_loop:
+            raise ValueError("this testbench does not run the closed-loop response")
+        run = reads[len(self.steps("ac")) - 1]
+        values = np.asarray(run[f"v({NODE_AMP})"], dtype=complex)
+        if self._differential:
+            values = values - np.asarray(run[f"v({NODE_AMP_N})"], dtype=complex)
+        return FrequencyResponse(np.real(run["frequency"]), values)
 
     @property
     def _common_mode_offset(self) -> int:
@@ -106,14 +168,17 @@ class LoopReadout:
         return (RERUN_VECTOR,) + ((COMMON_MODE_VECTOR,) if self.common_mode else ())
 
 
-def loop_readout(job: Job, probe: Probe | None = None) -> LoopReadout:
+def loop_readout(job: Job, probe: Probe | None = None, closed_loop: bool = False
+                 ) -> LoopReadout:
     """The loops ``job`` measures: its ``[analysis].probe`` (or ``probe``) on the single
     output, or the differential injection and the common-mode probe of a fully-differential
-    amplifier."""
+    amplifier; with ``closed_loop``, followed by the closed-loop response run."""
     if not job.amplifier.fully_differential:
-        return LoopReadout(probe or make_probe(job.analysis.probe))
-    return readout_for(job.analysis.probe, ["differential"] + (
-        ["common_mode"] if job.amplifier.common_mode_break else []))
+        readout = LoopReadout(probe or make_probe(job.analysis.probe))
+    else:
+        readout = readout_for(job.analysis.probe, ["differential"] + (
+            ["common_mode"] if job.amplifier.common_mode_break else []))
+    return replace(readout, closed_loop=True) if closed_loop else readout
 
 
 def readout_for(probe_name: str, loops: list[str] | None = None) -> LoopReadout:

@@ -80,6 +80,10 @@ class Testbench:
         differential loop's for a fully-differential amplifier)."""
         return self.loops.loop_gain(output.reads)
 
+    def closed_loop_response(self, output: AnalysisOutput) -> FrequencyResponse:
+        """The signal source to output response in ``output`` (ValueError without ``closed_loop``)."""
+        return self.loops.closed_loop_response(output.reads)
+
     def common_mode_loop_gain(self, output: AnalysisOutput) -> FrequencyResponse | None:
         """The common-mode loop's gain from ``output``; None when it is not measured."""
         return self.loops.common_mode_loop_gain(output.reads)
@@ -133,6 +137,7 @@ def build_testbench(
     probe: Probe | None = None,
     ac_command: str | None = None,
     label: str | None = None,
+    closed_loop: bool = False,
 ) -> Testbench:
     """Write the closed-loop loop-gain testbench for one corner.
 
@@ -152,13 +157,16 @@ def build_testbench(
         Defaults to the job's sweep.
     label
         Names the analysis in messages and in the journal (default: the corner's name).
+    closed_loop
+        Also run the closed-loop response after the probes' runs
+        (:meth:`Testbench.closed_loop_response`); off, the steps are exactly the probes'.
 
     Returns
     -------
     Testbench
     """
     job = amplifier.job
-    loops = loop_readout(job, probe)
+    loops = loop_readout(job, probe, closed_loop)
     ac_command = ac_command or job.analysis.ac_command()
     full_values = amplifier.values_in_effect(values)
     # the AC analysis keeps its operating point as a plot, read after the AC runs
