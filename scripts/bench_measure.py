@@ -7,9 +7,9 @@ Run:  .venv/bin/python scripts/bench_measure.py [--reps N] [--overhead-only]
    divided by the same analyses run straight through PySpice's shared library on the
    decks it saved in the out folder (their .control block taken out), in this process:
    load_circuit, the testbench's own commands (for the single-ended demo 2 AC analyses
-   and 2 alters, for the fully-differential demo 4 AC analyses and 8 alters, each
-   followed by the operating-point read-out's setplot), reading the AC vectors that
-   amploop reads (3, and 7 for the FD demo), freeing. Medians over repetitions, same
+   and 2 alters, for the fully-differential demo 4 AC analyses and 9 alters; then the
+   operating-point read-out's setplot), reading the AC vectors that amploop reads (3,
+   and 7 for the FD demo), freeing. Medians over repetitions, same
    run. Run on the single-ended demo and on the FD demo (netlists/fd_demo).
    Target: <= 1.3.
 2. Parallel: a 12-corner measurement with 2 workers vs 1 worker. Reported as (a) the
