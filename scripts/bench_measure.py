@@ -1,13 +1,17 @@
 """Benchmarks of `amploop measure` on the demo job: overhead, parallel speed-up, memory.
 
-Run:  .venv/bin/python scripts/bench_measure.py [--reps N]
+Run:  .venv/bin/python scripts/bench_measure.py [--reps N] [--overhead-only]
 
 1. Overhead: amploop's wall time per corner measurement (warm pool of one worker, the
    whole measure() call: testbenches, analyses, margins, CSVs, results.json, journal)
-   divided by the same two AC analyses run straight through PySpice's shared library on
-   the decks it saved in the out folder (their .control block taken out), in this
-   process (load_circuit, the four commands, reading the three vectors, freeing).
-   Medians over repetitions, same run. Target: <= 1.3.
+   divided by the same analyses run straight through PySpice's shared library on the
+   decks it saved in the out folder (their .control block taken out), in this process:
+   load_circuit, the testbench's own commands (for the single-ended demo 2 AC analyses
+   and 2 alters, for the fully-differential demo 4 AC analyses and 9 alters; then the
+   operating-point read-out's setplot), reading the AC vectors that amploop reads (3,
+   and 7 for the FD demo), freeing. Medians over repetitions, same
+   run. Run on the single-ended demo and on the FD demo (netlists/fd_demo).
+   Target: <= 1.3.
 2. Parallel: a 12-corner measurement with 2 workers vs 1 worker. Reported as (a) the
    measurement with the workers already started, (b) the whole `amploop measure`
    command as a user runs it (Python start-up, imports and worker start-up included),
@@ -45,6 +49,7 @@ from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "netlists" / "demo" / "job.toml"
+FD_DEMO = REPO / "netlists" / "fd_demo" / "job.toml"
 #: Where the benchmarks put their jobs and out folders: inside the project, like the demo's
 #: runs/demo (git-ignored), where a user's out folders would be. On the shared test
 #: machine, creating a file costs from 20 us to over 1 ms of kernel time depending on the
@@ -98,8 +103,21 @@ GRID_200 = ('[corner_grid]\nlib = ["tt", "ss"]\ntemp = [-40, 0, 27, 85, 125]\n'
 _RAW = {}
 
 
-def raw_pyspice(decks: list[str], steps, reps: int) -> float:
-    """Median seconds per deck for load + 2 AC through PySpice's NgSpiceShared."""
+def ac_reads(steps) -> list[str]:
+    """The vectors a testbench's steps read from its AC plots, as ``"ac<k>.<vector>"``
+    (the k-th AC analysis of a deck makes plot ac<k>), frequency left out: the three of
+    the single-ended testbench's two runs, the seven of the fully-differential one's four."""
+    reads, k = [], 0
+    for step in steps:
+        if step.is_ac:
+            k += 1
+            reads += [f"ac{k}.{name}" for name in step.read if name != "frequency"]
+    return reads
+
+
+def raw_pyspice(decks: list[str], steps: list[str], reps: int, reads: list[str]) -> float:
+    """Median seconds per deck for load, the testbench's own commands (its AC analyses and
+    the alters between them) and reading ``reads``, through PySpice's NgSpiceShared."""
     import logging
 
     logging.getLogger("PySpice").setLevel(logging.CRITICAL)
@@ -118,8 +136,10 @@ def raw_pyspice(decks: list[str], steps, reps: int) -> float:
             ngspice.load_circuit(deck)
             for command in steps:
                 lib.ngSpice_Command(command.encode())
-            for name in ("ac1.v(tb_out)", "ac1.v(tb_fb)", "ac2.i(vtb_series)"):
+            for name in reads:
                 info = lib.ngGet_Vec_Info(name.encode())
+                if info == ffi.NULL:
+                    raise SystemExit(f"bench: vector {name} not found after the deck's steps")
                 bytes(ffi.buffer(info.v_compdata, info.v_length * 16))
             lib.ngSpice_Command(b"destroy all")
             lib.ngSpice_Command(b"remcirc")
@@ -129,10 +149,14 @@ def raw_pyspice(decks: list[str], steps, reps: int) -> float:
 
 def saved_deck(path: Path) -> str:
     """A deck amploop saved in the out folder, without the ``.control`` block that makes
-    it runnable by hand (its commands are the ones sent through the library instead)."""
+    it runnable by hand (its commands are the ones sent through the library instead), its
+    included files named by absolute path."""
     text = path.read_text()
     start, end = text.index(".control\n"), text.index(".endc\n") + len(".endc\n")
-    return text[:start] + text[end:]
+    # the files it includes are named relative to the decks folder: made absolute, as
+    # raw_pyspice runs in a folder of its own
+    text = text[:start] + text[end:]
+    return re.sub(r'"(include/[^"]+)"', lambda m: f'"{path.parent / m.group(1)}"', text)
 
 
 def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
@@ -155,29 +179,32 @@ def overhead(reps: int, job_file: Path, grids: tuple[str, str]) -> None:
             jobs[grid] = load_job(job_with_corners(folder, grid, job_file))
         small_job = jobs[grids[0]]
         amplifier = prepare_amplifier(small_job)
-        steps = [s.command for s in build_testbench(amplifier, small_job.corners[0], {}).steps]
+        bench_steps = build_testbench(amplifier, small_job.corners[0], {}).steps
+        steps, reads = [s.command for s in bench_steps], ac_reads(bench_steps)
+        analyses = sum(s.is_ac for s in bench_steps)
         measure(small_job, out=Path(tmp) / "warm", pool=pool, time_domain=False)
         decks = [saved_deck(path) for path in sorted((Path(tmp) / "warm" / "decks").glob("*.cir"))]
         assert len(decks) == len(small_job.corners)
-        raw_pyspice(decks, steps, 1)  # warm
+        raw_pyspice(decks, steps, 1, reads)  # warm
         for rep in range(reps):  # interleaved, so that the machine's drift hits all alike
             for job in jobs.values():
                 start = time.perf_counter()
                 measure(job, out=Path(tmp) / f"{len(job.corners)}-{rep}", pool=pool, time_domain=False)
                 times.setdefault(len(job.corners), []).append(time.perf_counter() - start)
-            raw_times.append(raw_pyspice(decks, steps, 1))
+            raw_times.append(raw_pyspice(decks, steps, 1, reads))
             creation.append(file_creation_us(SCRATCH, reps=1))
     timings = {n: statistics.median(t) for n, t in times.items()}
     raw = statistics.median(raw_times)
     (n1, t1), (n2, t2) = sorted(timings.items())
     per_corner = (t2 - t1) / (n2 - n1)
     fixed = t1 - n1 * per_corner
-    print(f"overhead ({job_file.parent.name}): {n1} and {n2} corners x {reps} reps, 2 AC analyses per corner")
+    print(f"overhead ({job_file.parent.name}): {n1} and {n2} corners x {reps} reps, "
+          f"{analyses} AC analyses per corner ({len(steps)} commands, {len(reads)} vectors read)")
     print(f"  amploop measure, per corner (slope of medians): {per_corner * 1e3:7.2f} ms"
           f"   (+ {fixed * 1e3:.0f} ms per run: files, journal, results.json)")
     print(f"  PySpice straight, per deck  (median):           {raw * 1e3:7.2f} ms")
     print(f"  ratio: {per_corner / raw:.2f}   (target <= 1.3)")
-    print(f"  meanwhile, creating one of a corner's two files took {statistics.median(creation):.0f} us"
+    print(f"  meanwhile, creating one of a corner's files took {statistics.median(creation):.0f} us"
           f" in the out folders' place (median of the same reps; {min(creation):.0f} to "
           f"{max(creation):.0f} us)")
 
@@ -200,13 +227,14 @@ def parallel(reps: int, job_file: Path, grid: str) -> None:
         amplifier = prepare_amplifier(job)
         requests = [(c.name, build_testbench(amplifier, c, {}).request(60.0)) for c in job.corners]
         steps = [step.command for step in requests[0][1].steps]
+        reads = ac_reads(requests[0][1].steps)
         with WorkerPool(1) as one, WorkerPool(2) as two:
             pools = {1: one, 2: two}
             for workers, pool in pools.items():
                 measure(job, out=Path(tmp) / f"warm{workers}", pool=pool, time_domain=False)
             decks = [saved_deck(path) for path in
                      sorted((Path(tmp) / "warm1" / "decks").glob("*.cir"))]
-            with _NgspiceAlone(decks, steps) as alone_ngspice:
+            with _NgspiceAlone(decks, steps, reads) as alone_ngspice:
                 for rep in range(reps):  # interleaved: the machine's drift hits all alike
                     for workers, pool in pools.items():
                         start = time.perf_counter()
@@ -297,10 +325,10 @@ def child(job_path: str, workers: int, reps: int, tmp: str) -> None:
     print(statistics.median(times))
 
 
-def _raw_total(decks: list[str], steps: list[str]) -> float:
+def _raw_total(decks: list[str], steps: list[str], reads: list[str]) -> float:
     """Seconds to run every deck once straight through PySpice (in a ceiling process)."""
     start = time.perf_counter()
-    raw_pyspice(decks, steps, 1)
+    raw_pyspice(decks, steps, 1, reads)
     return time.perf_counter() - start
 
 
@@ -311,24 +339,24 @@ class _NgspiceAlone:
     moves from run to run; it is the ceiling for any speed-up of two workers at that time.
     """
 
-    def __init__(self, decks: list[str], steps: list[str]) -> None:
-        self.decks, self.steps = decks, steps
+    def __init__(self, decks: list[str], steps: list[str], reads: list[str]) -> None:
+        self.decks, self.steps, self.reads = decks, steps, reads
 
     def __enter__(self):
         import multiprocessing as mp
 
         self._pool = mp.get_context("forkserver").Pool(2)
         for _ in range(3):  # start ngspice in both
-            self._pool.starmap(_raw_total, [(self.decks[:1], self.steps)] * 2, chunksize=1)
+            self._pool.starmap(_raw_total, [(self.decks[:1], self.steps, self.reads)] * 2, chunksize=1)
         return self
 
     def __exit__(self, *exc) -> None:
         self._pool.terminate()
 
     def speed_up(self) -> float:
-        serial = self._pool.apply(_raw_total, (self.decks * 2, self.steps))
+        serial = self._pool.apply(_raw_total, (self.decks * 2, self.steps, self.reads))
         start = time.perf_counter()
-        self._pool.starmap(_raw_total, [(self.decks, self.steps)] * 2, chunksize=1)
+        self._pool.starmap(_raw_total, [(self.decks, self.steps, self.reads)] * 2, chunksize=1)
         return serial / (time.perf_counter() - start)
 
 
@@ -438,6 +466,8 @@ def fingered_job(folder: Path, fingers: int) -> Path:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--reps", type=int, default=7)
+    parser.add_argument("--overhead-only", action="store_true",
+                        help="only the overhead lines of the two demos (single-ended, FD)")
     parser.add_argument("--child", nargs=4, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -449,6 +479,9 @@ def main() -> None:
           f"{SCRATCH.relative_to(REPO)} (the out folders here), "
           f"{file_creation_us(Path(tempfile.gettempdir())):.0f} us in {tempfile.gettempdir()}")
     overhead(args.reps, DEMO, (GRID_20, GRID_200))
+    overhead(args.reps, FD_DEMO, (GRID_20, GRID_200))
+    if args.overhead_only:
+        return
     parallel(args.reps, DEMO, GRID_12)
     ptm = PTM45.is_file()
     if ptm:  # BSIM4 cards: analyses that cost what real ones do
