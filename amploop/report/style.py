@@ -29,6 +29,8 @@ FEASIBLE = "#d7ecd9"
 TEXTBOOK = "#6a3d9a"
 #: text that is secondary
 MUTED = "#5a5a5a"
+#: Every other configuration's rows in the summary table of a multi-configuration job.
+BAND = "#eef3f6"
 #: corners in the time-domain overlay (qualitative)
 CORNERS = colormaps["tab20"]
 

@@ -55,7 +55,34 @@ def _header(common_mode: bool) -> list[str]:
             *(FIGURE_LABELS[k] for k in ("overshoot_pct", "settling_time_s")), "status"]
 
 
-def _table(ax, rows: list[list[str]], limiting_rows: set[int], common_mode: bool) -> None:
+def _configuration_bands(corners: list[dict]) -> list[bool]:
+    """Per corner row: whether it sits in a shaded band, the bands alternating with each
+    configuration of a multi-configuration job (their rows come configuration by
+    configuration); no band anywhere for a single configuration."""
+    bands, shaded, previous = [], False, None
+    for c in corners:
+        configuration = c.get("configuration")
+        if configuration != previous and previous is not None:
+            shaded = not shaded
+        bands.append(shaded)
+        previous = configuration
+    return bands
+
+
+def _configuration_line(corners: list[dict]) -> str | None:
+    """The header line naming each configuration and its rows (None with one)."""
+    spans: dict[str, list[int]] = {}
+    for i, c in enumerate(corners, start=1):
+        if c.get("configuration") is not None:
+            spans.setdefault(c["configuration"], []).append(i)
+    if not spans:
+        return None
+    return ("Configurations (rows grouped and shaded in turn): " + ", ".join(
+        f"{name} (rows {rows[0]}–{rows[-1]})" for name, rows in spans.items()))
+
+
+def _table(ax, rows: list[list[str]], limiting_rows: set[int], common_mode: bool,
+           bands: list[bool] | None = None) -> None:
     ax.axis("off")
     header = _header(common_mode)
     if common_mode:  # eleven columns: narrower, the headings over three lines
@@ -79,12 +106,14 @@ def _table(ax, rows: list[list[str]], limiting_rows: set[int], common_mode: bool
         if row == 0:
             cell.set_text_props(weight="bold", color="#333333")
             cell.set_facecolor("#f0f0f0")
-        elif rows[row - 1][-1].startswith("SUSPECT"):
+        elif bands and bands[row - 1]:
+            cell.set_facecolor(style.BAND)
+        if row > 0 and rows[row - 1][-1].startswith("SUSPECT"):
             cell.set_text_props(color=style.SUSPECT, weight="bold" if row - 1 in limiting_rows
                                 else "normal")
-        elif row - 1 in limiting_rows:
+        elif row > 0 and row - 1 in limiting_rows:
             cell.set_text_props(color=style.LIMIT, weight="bold")
-        elif rows[row - 1][-1].startswith("ERROR"):
+        elif row > 0 and rows[row - 1][-1].startswith("ERROR"):
             cell.set_text_props(color=style.LIMIT)
 
 
@@ -139,6 +168,7 @@ def summary_pages(data: ReportData, date: str):
     lines.append(f"AC analyses: {ac.get('run', 0)} run, {ac.get('reused', 0)} reused;  "
                  f"step transients: {tr.get('run', 0)} run, {tr.get('reused', 0)} reused;  "
                  f"wall time {r.get('seconds', 0):.1f} s")
+    lines += [line for line in (_configuration_line(r["corners"]),) if line]
     lines += _status_notes(r["corners"])
     y = 0.86
     for line in lines:
@@ -147,7 +177,9 @@ def summary_pages(data: ReportData, date: str):
             y -= 0.028
     first = rows[:ROWS_FIRST]
     ax = fig.add_axes((0.05, 0.12, 0.9, y - 0.14))
-    _table(ax, first, {i for i in limiting if i < ROWS_FIRST}, data.common_mode)
+    bands = _configuration_bands(r["corners"])
+    _table(ax, first, {i for i in limiting if i < ROWS_FIRST}, data.common_mode,
+           bands[:ROWS_FIRST])
     if len(rows) > ROWS_FIRST:
         fig.text(0.05, 0.1, f"… table continues: {len(rows) - ROWS_FIRST} more corners on the "
                  "next page(s)", fontsize=8, color=style.MUTED)
@@ -160,7 +192,7 @@ def summary_pages(data: ReportData, date: str):
         ax = fig.add_axes((0.05, 0.1, 0.9, 0.8))
         chunk = rows[start:start + ROWS_MORE]
         _table(ax, chunk, {i - start for i in limiting if start <= i < start + ROWS_MORE},
-               data.common_mode)
+               data.common_mode, bands[start:start + ROWS_MORE])
         footer(fig)
         yield fig
 
