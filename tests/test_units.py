@@ -20,7 +20,6 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from amploop.cli.terminal import values_line
-from amploop.report.data import _values_label
 from amploop.report.pages import values_text
 from amploop.spec.resistor_values import megaohm_reading
 from amploop.spice.expressions import evaluate, referenced_params
@@ -111,14 +110,14 @@ def test_the_terminal_the_report_and_the_results_write_values_alike():
     knob = SimpleNamespace(where="param", name="rc", size=None)
     job = SimpleNamespace(compensation={"cc": SimpleNamespace(where="param"), "rc": knob})
     expected = "Cc = 292.8 fF, Rc = 20 kΩ"
-    assert values_line(job, values) == values_text(values, {}) == _values_label(values) \
+    assert values_line(job, values) == values_text(values, {}) \
         == describe_values(values) == expected
     device = SimpleNamespace(where="device", name="Mz", size="w")
     job = SimpleNamespace(compensation={"cc": knob, "rc": device})
     sized = {"cc": 292.8e-15, "rc": 2.1e-6}
     results = {"device": {"name": "Mz", "size": "w"}}
     assert values_line(job, sized) == values_text(sized, results) \
-        == _values_label(sized, ("Mz", "w")) == "Cc = 292.8 fF, Mz w = 2.1 µm"
+        == describe_values(sized, ("Mz", "w")) == "Cc = 292.8 fF, Mz w = 2.1 µm"
     assert describe_values({"cc": 1e-12, "rc": 3.0}, ("Mz", "m")) == "Cc = 1 pF, Mz m = 3"
 
 
