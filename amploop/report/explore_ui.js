@@ -149,10 +149,8 @@
   function targetWords(corner) {
     const met = meets(corner.figures, corner.cm && corner.cm.figures);
     if (met !== false || !corner.cm) return [met, met === null ? "" : met ? "met" : "missed"];
-    const missed = [];
-    if (!meetsLoop(corner.figures, "differential")) missed.push("differential");
-    if (!meetsLoop(corner.cm.figures, "common_mode")) missed.push("common-mode");
-    return [met, "missed (" + missed.join(", ") + ")"];
+    const diff = !meetsLoop(corner.figures, "differential"), cm = !meetsLoop(corner.cm.figures, "common_mode");
+    return [met, "missed (" + (diff && cm ? "both loops" : diff ? "differential" : "common-mode") + ")"];
   }
 
   function redraw() {
