@@ -82,3 +82,28 @@ def recorded_analyses(journal: Path) -> int:
             return db.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
     except sqlite3.Error:
         return 0
+
+
+CHROMIUM, CHROMEDRIVER = Path("/usr/bin/chromium"), Path("/usr/bin/chromedriver")
+
+
+@pytest.fixture(scope="module")
+def browser():
+    """Debian's headless Chromium through selenium (explore.html's tests); skipped, saying
+    why, without the packages."""
+    webdriver = pytest.importorskip("selenium.webdriver",
+                                    reason="selenium is not installed (scripts/setup installs it)")
+    from selenium.webdriver.chrome.service import Service
+
+    if not (CHROMIUM.exists() and CHROMEDRIVER.exists()):
+        pytest.skip("no browser: Debian's chromium and chromium-driver packages are not "
+                    "installed (scripts/setup installs them)")
+    options = webdriver.ChromeOptions()
+    options.binary_location = str(CHROMIUM)
+    for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
+                 "--window-size=1300,1500", "--allow-file-access-from-files"):
+        options.add_argument(flag)
+    # the driver named explicitly: no Selenium Manager download
+    driver = webdriver.Chrome(service=Service(str(CHROMEDRIVER)), options=options)
+    yield driver
+    driver.quit()

@@ -28,28 +28,7 @@ from amploop.report.data import load_report_data
 from amploop.report.explore import explore_page
 
 DEMO = Path(__file__).resolve().parents[1] / "netlists" / "demo"
-CHROMIUM, CHROMEDRIVER = Path("/usr/bin/chromium"), Path("/usr/bin/chromedriver")
 KEYS = ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db")
-
-
-@pytest.fixture(scope="module")
-def browser():
-    webdriver = pytest.importorskip("selenium.webdriver",
-                                    reason="selenium is not installed (scripts/setup installs it)")
-    from selenium.webdriver.chrome.service import Service
-
-    if not (CHROMIUM.exists() and CHROMEDRIVER.exists()):
-        pytest.skip("no browser: Debian's chromium and chromium-driver packages are not "
-                    "installed (scripts/setup installs them)")
-    options = webdriver.ChromeOptions()
-    options.binary_location = str(CHROMIUM)
-    for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
-                 "--window-size=1300,1500", "--allow-file-access-from-files"):
-        options.add_argument(flag)
-    # the driver named explicitly: no Selenium Manager download
-    driver = webdriver.Chrome(service=Service(str(CHROMEDRIVER)), options=options)
-    yield driver
-    driver.quit()
 
 
 def open_page(driver, path: Path, fragment: str = "") -> None:

@@ -1,5 +1,7 @@
 // amploop's what-if page: every corner's loop gain predicted from its compensation map,
-// and its margins read as amploop.analysis.margins.loop_margins reads them.
+// and its margins read as amploop.analysis.margins.loop_margins reads them; a
+// fully-differential amplifier's common-mode loop likewise, from its own map.
+
 "use strict";
 const AMP = (function () {
   const DATA = JSON.parse(document.getElementById("amploop-data").textContent);
@@ -59,18 +61,25 @@ const AMP = (function () {
     for (let k = 0; k < n; k++) { x[k] = Math.log10(f[k]); w[k] = 2 * Math.PI * f[k]; }
     return { f, x, w, n };
   });
+  // one loop's map and its scratch arrays: a corner's differential (or only) loop is the
+  // corner itself, its common-mode loop corner.cm, of the same shape
+  function withMap(loop, grid, coef) {
+    loop.grid = GRIDS[grid];
+    loop.coef = decode(coef);
+    const n = loop.grid.n;
+    loop.re = new Float64Array(n); loop.im = new Float64Array(n);
+    loop.m = new Float64Array(n); loop.p = new Float64Array(n);
+    return loop;
+  }
   const CORNERS = DATA.corners.map((c) => {
-    const corner = { name: c.name, status: c.status, simulated: c.simulated, r_ref: c.r_ref };
-    if (c.coef !== undefined) {
-      corner.grid = GRIDS[c.grid];
-      corner.coef = decode(c.coef);
-      const n = corner.grid.n;
-      corner.re = new Float64Array(n); corner.im = new Float64Array(n);
-      corner.m = new Float64Array(n); corner.p = new Float64Array(n);
-    }
+    const corner = { name: c.name, status: c.status, simulated: c.simulated, r_ref: c.r_ref,
+      configuration: c.configuration, cmSimulated: c.cm_simulated };
+    if (c.coef !== undefined) withMap(corner, c.grid, c.coef);
+    if (c.cm_coef !== undefined) corner.cm = withMap({ name: c.name, r_ref: c.r_ref }, c.cm_grid, c.cm_coef);
     return corner;
   });
   const MAPPED = CORNERS.filter((c) => c.coef !== undefined);
+  const FD = MAPPED.some((c) => c.cm !== undefined);  // both loops shown
 
   function branchResistance(corner, second) {  // ohms, as this corner sees the knob
     if (!DEVICE) return second;
@@ -233,22 +242,49 @@ const AMP = (function () {
       phase_margin_deg: pm, gain_margin_db: gm, phase_crossover_hz: pcf };
   }
 
-  function predict(corner, cc, second) {
-    const g = corner.grid;
-    evaluate(corner, cc, branchResistance(corner, second), 1, corner.re, corner.im);
-    logAxes(corner.re, corner.im, g.n, corner.m, corner.p);
-    corner.figures = margins(g.x, corner.m, corner.p, g.n, corner.re, corner.im);
-    return corner.figures;
+  function predictLoop(loop, cc, second) {
+    const g = loop.grid;
+    evaluate(loop, cc, branchResistance(loop, second), 1, loop.re, loop.im);
+    logAxes(loop.re, loop.im, g.n, loop.m, loop.p);
+    loop.figures = margins(g.x, loop.m, loop.p, g.n, loop.re, loop.im);
+    return loop.figures;
   }
-  function meets(figures) {
-    const t = DATA.target;
-    if (t.phase_margin_deg === undefined || t.phase_margin_deg === null) return null;
-    if (figures.phase_margin_deg === null || figures.phase_margin_deg < t.phase_margin_deg) return false;
-    const gmTarget = t.gain_margin_db;
-    return !(gmTarget !== undefined && gmTarget !== null && figures.gain_margin_db !== null
-      && figures.gain_margin_db < gmTarget);
+  // the corner's (differential) figures; its common-mode loop's land in corner.cm.figures
+  function predict(corner, cc, second) {
+    if (corner.cm) predictLoop(corner.cm, cc, second);
+    return predictLoop(corner, cc, second);
   }
 
-  return { DATA, DEVICE, SECOND, CORNERS, MAPPED, GRIDS, parseValue, engineering, spiceText,
-    predict, evaluate, logAxes, margins, meets, branchResistance };
+  // the targets as amploop.strategy.worst.meets_target holds them: the main phase margin
+  // and gain margin, and the common-mode loop's own where given (a gain margin missing
+  // from the loop gain passes)
+  const present = (v) => v !== undefined && v !== null;
+  const TARGET = DATA.target;
+  const HAS_TARGET = present(TARGET.phase_margin_deg);
+  function meetsBounds(figures, pmBound, gmBound) {
+    if (present(pmBound) && (figures.phase_margin_deg === null || figures.phase_margin_deg < pmBound)) return false;
+    return !(present(gmBound) && figures.gain_margin_db !== null && figures.gain_margin_db < gmBound);
+  }
+  function meetsLoop(figures, loop) {  // loop: "differential" or "common_mode"
+    if (loop === "common_mode") {
+      return meetsBounds(figures, TARGET.common_mode_phase_margin_deg, TARGET.common_mode_gain_margin_db);
+    }
+    return meetsBounds(figures, TARGET.phase_margin_deg, TARGET.gain_margin_db);
+  }
+  function meets(figures, cmFigures) {  // null without a target
+    if (!HAS_TARGET) return null;
+    return meetsLoop(figures, "differential") && (!cmFigures || meetsLoop(cmFigures, "common_mode"));
+  }
+  // which loop limits, as amploop.strategy.worst.limiting_loop: the common-mode loop when
+  // its worst phase margin has less slack over its target than the differential loop's
+  function limitingLoop(pm, cmPm) {
+    if (cmPm === null || cmPm === undefined) return "differential";
+    const mainBound = HAS_TARGET ? TARGET.phase_margin_deg : 0.0;
+    const cmBound = HAS_TARGET ? TARGET.common_mode_phase_margin_deg : 0.0;
+    if (!present(cmBound)) return "differential";
+    return cmPm - cmBound < pm - mainBound ? "common_mode" : "differential";
+  }
+
+  return { DATA, DEVICE, SECOND, CORNERS, MAPPED, GRIDS, FD, parseValue, engineering, spiceText,
+    predict, evaluate, logAxes, margins, meets, meetsLoop, limitingLoop, branchResistance, present };
 })();

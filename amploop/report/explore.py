@@ -1,5 +1,6 @@
 """The what-if page: ``explore.html``, every corner's loop gain and margins at any (Cc, Rc)
-predicted from the compensation maps, in one self-contained HTML file.
+predicted from the compensation maps, in one self-contained HTML file; of a
+fully-differential amplifier both loops, the common-mode loop from its own maps.
 
 The page holds each corner's map as its coefficients, T(Z) = (a·Z + b)/(c·Z + d) per
 frequency (:meth:`~amploop.analysis.compmap.CompensationMap.coefficients`), divided by c
@@ -25,7 +26,11 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.corners.outputs import OutFolder, clean_json, is_folder
 from amploop.errors import JobError, OutputError
 from amploop.report.data import load_report_data
+from amploop.report.style import COMMON_MODE as COMMON_MODE_COLOUR
+from amploop.report.style import COMMON_MODE_LINE
 from amploop.spice.labels import (
+    COMMON_MODE,
+    COMMON_MODE_LABELS,
     FIGURE_LABELS,
     PHASE_MARGIN_CORNER,
     ROLE_LABELS,
@@ -44,8 +49,9 @@ TABLE_KEYS = ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_marg
 
 _MAP_KINDS = ("characterise", "report-map")
 
-#: The page's scripts, inlined in this order: the maths, then the controls and plots.
-SCRIPTS = ("explore.js", "explore_ui.js")
+#: The page's scripts, inlined in this order: the maths, the Bode plots, the map view,
+#: then the controls and the table (which start the page).
+SCRIPTS = ("explore.js", "explore_bode.js", "explore_map.js", "explore_ui.js")
 
 
 class ExploreOutcome:
@@ -120,7 +126,24 @@ def _figures(corner: dict) -> dict:
     return {key: corner.get(key) for key in TABLE_KEYS}
 
 
-def explore_payload(results: dict, maps: Mapping[str, CompensationMap]) -> dict:
+def _grid_index(grids: list[np.ndarray], frequency_hz: np.ndarray) -> int:
+    """The index of ``frequency_hz`` in ``grids``, appended when it is a new grid."""
+    for i, grid in enumerate(grids):
+        if grid.shape == frequency_hz.shape and np.array_equal(grid, frequency_hz):
+            return i
+    grids.append(frequency_hz)
+    return len(grids) - 1
+
+
+def _style() -> dict:
+    """The common-mode loop's colour and dash pattern (units of the line width), as the
+    report draws it."""
+    _offset, dashes = COMMON_MODE_LINE
+    return {"common_mode": COMMON_MODE_COLOUR, "common_mode_dash": list(dashes)}
+
+
+def explore_payload(results: dict, maps: Mapping[str, CompensationMap],
+                    cm_maps: Mapping[str, CompensationMap] | None = None) -> dict:
     """Everything the page's script reads: the job, the labels, the controls' ranges and
     jumps, and each corner's map (base64 float64) with its simulated figures.
 
@@ -130,23 +153,30 @@ def explore_payload(results: dict, maps: Mapping[str, CompensationMap]) -> dict:
         The run's results.json as read.
     maps
         Corner name -> its compensation map (corners without one are listed without).
+    cm_maps
+        Corner name -> the compensation map of its common-mode loop (a fully-differential
+        amplifier's; None or empty for one loop).
     """
+    cm_maps = cm_maps or {}
     device = results.get("device")
     grids: list[np.ndarray] = []
     corners = []
     for corner in results.get("corners", []):
         name = corner["name"]
-        entry = {"name": name, "status": corner.get("status"), "simulated": _figures(corner)}
+        entry = {"name": name, "status": corner.get("status"), "simulated": _figures(corner),
+                 "configuration": corner.get("configuration")}
+        if COMMON_MODE in corner:
+            entry["cm_simulated"] = _figures(corner[COMMON_MODE] or {})
         cmap = maps.get(name)
         if cmap is not None:
-            index = next((i for i, g in enumerate(grids) if g.shape == cmap.frequency_hz.shape
-                          and np.array_equal(g, cmap.frequency_hz)), None)
-            if index is None:
-                grids.append(cmap.frequency_hz)
-                index = len(grids) - 1
-            entry |= {"grid": index, "coef": _b64(_coefficients(cmap))}
+            entry |= {"grid": _grid_index(grids, cmap.frequency_hz),
+                      "coef": _b64(_coefficients(cmap))}
             if device is not None:  # the square law: R(size) = r_ref · (size_ref/size)^±1
                 entry["r_ref"] = cmap.samples[0][1]
+            cm_map = cm_maps.get(name)
+            if cm_map is not None:
+                entry |= {"cm_grid": _grid_index(grids, cm_map.frequency_hz),
+                          "cm_coef": _b64(_coefficients(cm_map))}
         corners.append(entry)
     worst = results.get("worst") or {}
     return clean_json({
@@ -162,7 +192,10 @@ def explore_payload(results: dict, maps: Mapping[str, CompensationMap]) -> dict:
         "limiting": worst.get(PHASE_MARGIN_CORNER),
         "history": _history(results),
         "labels": {"roles": ROLE_LABELS,
-                   "figures": {k: FIGURE_LABELS[k].replace("\n", " ") for k in TABLE_KEYS}},
+                   "figures": {k: FIGURE_LABELS[k].replace("\n", " ") for k in TABLE_KEYS},
+                   "cm_figures": {k: COMMON_MODE_LABELS[k].replace("\n", " ")
+                                  for k in TABLE_KEYS}},
+        "style": _style(),
         "suffixes": SCALE_SUFFIXES,
         "grids": [_b64(g) for g in grids],
         "corners": corners,
@@ -173,7 +206,8 @@ def _template(name: str) -> str:
     return resources.files("amploop.report").joinpath(name).read_text(encoding="utf-8")
 
 
-def explore_page(results: dict, maps: Mapping[str, CompensationMap]) -> str:
+def explore_page(results: dict, maps: Mapping[str, CompensationMap],
+                 cm_maps: Mapping[str, CompensationMap] | None = None) -> str:
     """The page's HTML: the template with its script and data inline (no network).
 
     Parameters
@@ -182,13 +216,17 @@ def explore_page(results: dict, maps: Mapping[str, CompensationMap]) -> str:
         The run's results.json as read.
     maps
         Corner name -> its compensation map.
+    cm_maps
+        Corner name -> the compensation map of its common-mode loop (fully-differential
+        amplifiers; None for one loop).
     """
-    data = json.dumps(explore_payload(results, maps), separators=(",", ":"),
+    data = json.dumps(explore_payload(results, maps, cm_maps), separators=(",", ":"),
                       ensure_ascii=False).replace("</", "<\\/")
     script = "\n".join(_template(name) for name in SCRIPTS).replace("</", "<\\/")
     title = f"amploop what-if: {results.get('job', '')}"
     return (_template("explore.html.in")
             .replace("@TITLE@", _escape(title))
+            .replace("@CM_COLOUR@", COMMON_MODE_COLOUR)
             .replace("@DATA@", data)
             .replace("@SCRIPT@", script))
 
@@ -211,9 +249,8 @@ def build_explore(out: str | Path) -> ExploreOutcome:
     Raises
     ------
     JobError
-        When ``out`` is no out folder of amploop's, holds no compensation maps (a measure,
-        or a tune with the textbook strategy), or is of a fully-differential amplifier
-        (not shown yet).
+        When ``out`` is no out folder of amploop's, or holds no compensation maps (a
+        measure, or a tune with the textbook strategy).
     OutputError, JournalError
         When the journal lacks what results.json names, or the page cannot be written.
     """
@@ -222,16 +259,12 @@ def build_explore(out: str | Path) -> ExploreOutcome:
         raise JobError("not a folder", file=out)
     folder = OutFolder(out)
     with folder.lock(join=True), load_report_data(folder.path) as data:
-        loops = data.results.get("loops") or []
-        if "common_mode" in loops:
-            raise JobError("explore.html is not made for fully-differential amplifiers yet",
-                           file=data.out / "results.json",
-                           hint="report.pdf shows both loops")
         if not data.maps:
             raise JobError("no compensation maps in this out folder: explore.html needs a "
                            "tune with the map strategy", file=data.out / "results.json")
         maps = {name: data.maps[name] for name in data.maps}
-        text = explore_page(data.results, maps)
+        cm_maps = {name: data.cm_maps[name] for name in data.cm_maps}
+        text = explore_page(data.results, maps, cm_maps)
         path = folder.write_text(EXPLORE_FILE, text)
     return ExploreOutcome(path, len(text.encode("utf-8")), len(maps),
                           time.perf_counter() - started)

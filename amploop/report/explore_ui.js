@@ -1,16 +1,21 @@
-// amploop's what-if page: the controls, the table, the plots (plain canvas, no library).
+// amploop's what-if page: the controls, the margins table (both loops of a
+// fully-differential amplifier, the points grouped by configuration), the state line; it
+// draws through AMP.bode and AMP.mapView and starts the page.
 (function () {
-  const { DATA, DEVICE, SECOND, CORNERS, MAPPED, parseValue, engineering, spiceText,
-    predict, evaluate, logAxes, meets, branchResistance } = AMP;
+  const { DATA, DEVICE, SECOND, CORNERS, MAPPED, FD, parseValue, engineering, spiceText,
+    predict, meets, meetsLoop, limitingLoop, present } = AMP;
   const $ = (id) => document.getElementById(id);
-  const FIG = DATA.labels.figures, ROLES = DATA.labels.roles;
+  const FIG = DATA.labels.figures, CM_FIG = DATA.labels.cm_figures, ROLES = DATA.labels.roles;
   const KEYS = ["dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db"];
+  const CM_KEYS = FD ? KEYS.map((k) => "common_mode." + k) : [];
   const SECOND_LABEL = DEVICE ? DEVICE.name + " " + DEVICE.size : ROLES.rc;
   const SECOND_UNIT = DEVICE ? (DEVICE.size === "m" ? "" : "m") : "Ω";
   const [ccLo, ccHi] = DATA.bounds.cc;
   const [secLo, secHi] = DATA.bounds.rc;
   const secLog = DEVICE !== null && secLo > 0;
-  const state = { cc: null, second: null, picked: null, worst: null, ms: null };
+  // worst: the limiting corner (of the limiting loop); diffWorst, cmWorst: each loop's
+  const state = { cc: null, second: null, picked: null, worst: null, diffWorst: null, cmWorst: null,
+    limitingLoop: "differential", ms: null };
 
   // ---- sliders: Cc on a log scale, Rc linear (a device's size on a log scale) ------------
   const STEPS = 1000;
@@ -80,24 +85,48 @@
       && close(values.rc !== undefined ? values.rc : 0, state.second);
   }
 
-  // ---- the margins table -----------------------------------------------------------------
-  const HEAD = ["corner", ...KEYS.map((k) => FIG[k]), "target", "simulated at the chosen values: " + FIG.phase_margin_deg];
-  $("margins").tHead.innerHTML = "<tr>" + HEAD.map((h) => "<th>" + h + "</th>").join("") + "</tr>";
+  // ---- the margins table: one row per point, under a heading row per configuration ---------
+  const SIMULATED = FD ? ["simulated", "cm_simulated"] : ["simulated"];
+  const HEAD = ["corner", ...KEYS.map((k) => FIG[k]), ...CM_KEYS.map((k) => CM_FIG[k.split(".")[1]]), "target",
+    "simulated at the chosen values: " + FIG.phase_margin_deg, ...(FD ? ["simulated: " + CM_FIG.phase_margin_deg] : [])];
+  $("margins").tHead.innerHTML = "<tr>" + HEAD.map((h, k) => "<th" + (k > KEYS.length && k <= KEYS.length + CM_KEYS.length
+    ? ' class="cm"' : "") + ">" + h + "</th>").join("") + "</tr>";
   const rows = new Map();
-  for (const corner of CORNERS) {
+  const configurations = [...new Set(CORNERS.map((c) => c.configuration).filter((k) => present(k)))];
+  const groups = configurations.length ? configurations.map((k) => [k, CORNERS.filter((c) => c.configuration === k)])
+    : [[null, CORNERS]];
+  const ungrouped = CORNERS.filter((c) => configurations.length && !present(c.configuration));
+  if (ungrouped.length) groups.push(["(none)", ungrouped]);
+  for (const [configuration, members] of groups) {
+    if (configuration !== null) {
+      const head = document.createElement("tr");
+      head.className = "group"; head.dataset.configuration = configuration;
+      head.innerHTML = '<th colspan="' + HEAD.length + '"></th>';
+      head.firstChild.textContent = "configuration " + configuration + " (" + members.length
+        + (members.length === 1 ? " point)" : " points)");
+      $("margins").tBodies[0].appendChild(head);
+    }
+    for (const corner of members) addRow(corner, configuration);
+  }
+  function addRow(corner, configuration) {
     const tr = document.createElement("tr");
     tr.dataset.corner = corner.name;
+    if (configuration !== null) tr.dataset.configuration = configuration;
     const cells = { name: document.createElement("td") };
     cells.name.textContent = corner.name;
     tr.appendChild(cells.name);
-    for (const key of [...KEYS, "target", "simulated"]) {
+    for (const key of [...KEYS, ...CM_KEYS, "target", ...SIMULATED]) {
       const td = document.createElement("td");
-      if (KEYS.includes(key)) td.dataset.key = key;
+      if (KEYS.includes(key) || CM_KEYS.includes(key)) td.dataset.key = key;
+      if (CM_KEYS.includes(key)) td.classList.add("cm");
       cells[key] = td; tr.appendChild(td);
     }
-    const simulated = corner.simulated.phase_margin_deg;
-    cells.simulated.dataset.simulatedKey = "phase_margin_deg";
-    cells.simulated.textContent = simulated === null || simulated === undefined ? "–" : simulated.toFixed(2);
+    for (const key of SIMULATED) {
+      const figures = key === "simulated" ? corner.simulated : corner.cmSimulated;
+      const simulated = figures ? figures.phase_margin_deg : null;
+      cells[key].dataset.simulatedKey = (key === "simulated" ? "" : "common_mode.") + "phase_margin_deg";
+      cells[key].textContent = simulated === null || simulated === undefined ? "–" : simulated.toFixed(2);
+    }
     if (corner.coef === undefined) cells.target.textContent = "no map (" + corner.status + ")";
     tr.addEventListener("click", () => pick(corner.name));
     $("margins").tBodies[0].appendChild(tr);
@@ -107,49 +136,72 @@
     dc_loop_gain_db: (v) => v.toFixed(2), unity_gain_hz: (v) => engineering(v, "Hz", 4),
     phase_margin_deg: (v) => v.toFixed(2), gain_margin_db: (v) => v.toFixed(2),
   };
+  function smallest(figuresOf) {  // the corner of the smallest phase margin (none counts as the smallest)
+    let worst = null, worstPm = Infinity;
+    for (const corner of MAPPED) {
+      const figures = figuresOf(corner);
+      if (!figures) continue;
+      const key = figures.phase_margin_deg === null ? -Infinity : figures.phase_margin_deg;
+      if (worst === null || key < worstPm) { worst = corner; worstPm = key; }
+    }
+    return worst;
+  }
+  function targetWords(corner) {
+    const met = meets(corner.figures, corner.cm && corner.cm.figures);
+    if (met !== false || !corner.cm) return [met, met === null ? "" : met ? "met" : "missed"];
+    const diff = !meetsLoop(corner.figures, "differential"), cm = !meetsLoop(corner.cm.figures, "common_mode");
+    return [met, "missed (" + (diff && cm ? "both loops" : diff ? "differential" : "common-mode") + ")"];
+  }
 
   function redraw() {
     const started = performance.now();
-    let worst = null, worstPm = Infinity;  // no 0 dB crossing counts as the worst
-    for (const corner of MAPPED) {
-      const pm = predict(corner, state.cc, state.second).phase_margin_deg;
-      const key = pm === null ? -Infinity : pm;
-      if (worst === null || key < worstPm) { worst = corner; worstPm = key; }
-    }
-    state.worst = worst ? worst.name : null;
+    for (const corner of MAPPED) predict(corner, state.cc, state.second);
+    const diffWorst = smallest((c) => c.figures), cmWorst = FD ? smallest((c) => c.cm && c.cm.figures) : null;
+    state.diffWorst = diffWorst ? diffWorst.name : null;
+    state.cmWorst = cmWorst ? cmWorst.name : null;
+    state.limitingLoop = cmWorst && diffWorst
+      ? limitingLoop(diffWorst.figures.phase_margin_deg, cmWorst.cm.figures.phase_margin_deg) : "differential";
+    state.worst = state.limitingLoop === "common_mode" ? state.cmWorst : state.diffWorst;
     if (state.picked === null) state.picked = state.worst;
     let allMet = true;
     for (const corner of MAPPED) {
       const { tr, cells } = rows.get(corner.name);
-      for (const key of KEYS) {
-        const v = corner.figures[key];
+      for (const key of [...KEYS, ...CM_KEYS]) {
+        const cm = key.startsWith("common_mode."), figures = cm ? corner.cm && corner.cm.figures : corner.figures;
+        const v = figures ? figures[cm ? key.slice(12) : key] : null;
         cells[key].dataset.value = v === null ? "" : String(v);
-        cells[key].textContent = v === null ? "–" : SHOW[key](v);
+        cells[key].textContent = v === null ? "–" : SHOW[cm ? key.slice(12) : key](v);
       }
-      const met = meets(corner.figures);
+      const [met, words] = targetWords(corner);
       if (met === false) allMet = false;
-      cells.target.textContent = met === null ? "" : met ? "met" : "missed";
+      cells.target.textContent = words;
       cells.target.className = met === null ? "" : met ? "met" : "miss";
       cells.target.dataset.met = String(met);
       tr.classList.toggle("worst", corner.name === state.worst);
-      tr.dataset.worst = String(corner.name === state.worst);
+      tr.dataset.worst = String(corner.name === state.diffWorst);
+      if (FD) tr.dataset.cmWorst = String(corner.name === state.cmWorst);
       tr.classList.toggle("picked", corner.name === state.picked);
-      cells.name.textContent = corner.name + (corner.name === state.worst ? "  ◀ worst" : "");
+      cells.name.textContent = corner.name + (corner.name === state.diffWorst ? "  ◀ worst" : "")
+        + (FD && corner.name === state.cmWorst ? "  ◀ worst CM" : "");
     }
     describeState(allMet);
-    drawBode();
-    drawMapMarkers();
+    bode.draw();
+    mapView.drawMarkers();
     state.ms = performance.now() - started;
     document.body.dataset.redrawMs = state.ms.toFixed(3);
   }
 
   function describeState(allMet) {
     const box = $("state");
-    const worst = MAPPED.find((c) => c.name === state.worst);
-    const pm = worst && worst.figures.phase_margin_deg;
-    let text = "Predicted from the compensation maps: worst phase margin "
-      + (pm === null || pm === undefined ? "–" : pm.toFixed(2) + "°") + " at corner " + state.worst + "; target "
-      + (DATA.target.phase_margin_deg !== undefined ? (allMet ? "met at every corner" : "missed") : "not set") + ".";
+    const worst = MAPPED.find((c) => c.name === state.diffWorst), cmWorst = MAPPED.find((c) => c.name === state.cmWorst);
+    const degrees = (v) => (v === null || v === undefined ? "–" : v.toFixed(2) + "°");
+    let text = "Predicted from the compensation maps: worst " + (FD ? "differential " : "") + "phase margin "
+      + degrees(worst && worst.figures.phase_margin_deg) + " at corner " + state.diffWorst
+      + (FD && cmWorst ? ", worst common-mode phase margin " + degrees(cmWorst.cm.figures.phase_margin_deg) + " at corner "
+        + state.cmWorst + "; the " + (state.limitingLoop === "common_mode" ? "common-mode" : "differential")
+        + " loop limits" : "")
+      + "; target " + (present(DATA.target.phase_margin_deg) ? (allMet ? "met at every corner"
+        + (FD ? " in both loops" : "") : "missed") : "not set") + ".";
     let cls = allMet ? "" : "bad";
     const point = DATA.history.filter((h) => samePoint(h.values)).pop();
     if (point) {
@@ -168,224 +220,12 @@
   function pick(name) {
     state.picked = name;
     for (const [n, row] of rows) row.tr.classList.toggle("picked", n === name);
-    drawBode();
-    buildMapImage();
-    drawMapMarkers();
+    bode.draw();
+    mapView.buildMapImage();
+    mapView.drawMarkers();
   }
-
-  // ---- Bode plots ---------------------------------------------------------------------
-  const mag = $("magnitude"), phase = $("phase");
-  const PAD = { l: 52, r: 10, t: 18, b: 26 };
-  const fMin = Math.min(...MAPPED.map((c) => c.grid.f[0])), fMax = Math.max(...MAPPED.map((c) => c.grid.f[c.grid.n - 1]));
-  const xOf = (canvas, f) => PAD.l + (canvas.width - PAD.l - PAD.r) * Math.log10(f / fMin) / Math.log10(fMax / fMin);
-  const ranges = { magnitude: [-80, 100], phase: [-360, 0] };
-  function setRanges() {  // from the chosen values, fixed thereafter so that curves move, not axes
-    let top = -Infinity, pLo = Infinity, pHi = -Infinity;
-    for (const corner of MAPPED) {
-      for (let k = 0; k < corner.grid.n; k++) {
-        top = Math.max(top, 20 * corner.m[k] / Math.LN10);
-        pLo = Math.min(pLo, corner.p[k]); pHi = Math.max(pHi, corner.p[k]);
-      }
-    }
-    if (Number.isFinite(top)) ranges.magnitude = [-80, 20 * Math.ceil((top + 5) / 20)];
-    if (Number.isFinite(pLo)) ranges.phase = [Math.max(-540, 45 * Math.floor(pLo / 45)), Math.min(180, 45 * Math.ceil(pHi / 45))];
-  }
-  const yOf = (canvas, range, v) => PAD.t + (canvas.height - PAD.t - PAD.b) * (range[1] - v) / (range[1] - range[0]);
-  function axes(ctx, canvas, range, step, unit, title, guide) {
-    ctx.clearRect(0, 0, canvas.width, canvas.height);
-    ctx.font = "11px sans-serif"; ctx.fillStyle = "#444"; ctx.strokeStyle = "#e6e6e6"; ctx.lineWidth = 1;
-    ctx.fillText(title, PAD.l, 12);
-    for (let d = Math.ceil(Math.log10(fMin)); d <= Math.floor(Math.log10(fMax)); d++) {
-      const x = xOf(canvas, 10 ** d);
-      ctx.beginPath(); ctx.moveTo(x, PAD.t); ctx.lineTo(x, canvas.height - PAD.b); ctx.stroke();
-      ctx.fillText(engineering(10 ** d, "Hz", 3), x - 14, canvas.height - 8);
-    }
-    for (let v = Math.ceil(range[0] / step) * step; v <= range[1]; v += step) {
-      const y = yOf(canvas, range, v);
-      ctx.strokeStyle = v === guide ? "#999" : "#e6e6e6";
-      ctx.beginPath(); ctx.moveTo(PAD.l, y); ctx.lineTo(canvas.width - PAD.r, y); ctx.stroke();
-      ctx.fillText(v + unit, 4, y + 4);
-    }
-  }
-  function curve(ctx, canvas, range, corner, values, toY, colour, width) {
-    ctx.strokeStyle = colour; ctx.lineWidth = width; ctx.beginPath();
-    const f = corner.grid.f;
-    for (let k = 0; k < corner.grid.n; k++) {
-      const x = xOf(canvas, f[k]), y = yOf(canvas, range, toY(values[k]));
-      if (k === 0) ctx.moveTo(x, y); else ctx.lineTo(x, y);
-    }
-    ctx.stroke();
-  }
-  const STYLE = { other: ["rgba(110,110,110,0.45)", 1], worst: ["#c53030", 2.4], picked: ["#2b6cb0", 2.4] };
-  function drawBode() {
-    for (const [canvas, range, step, unit, title, values, toY, guide] of [
-      [mag, ranges.magnitude, 20, " dB", "|T| of every corner (predicted from the maps)", "m", (v) => 20 * v / Math.LN10, 0],
-      [phase, ranges.phase, 45, "°", "∠T of every corner (predicted from the maps)", "p", (v) => v, -180]]) {
-      const ctx = canvas.getContext("2d");
-      axes(ctx, canvas, range, step, unit, title, guide);
-      ctx.save(); ctx.beginPath();
-      ctx.rect(PAD.l, PAD.t, canvas.width - PAD.l - PAD.r, canvas.height - PAD.t - PAD.b); ctx.clip();
-      const order = MAPPED.filter((c) => c.name !== state.worst && c.name !== state.picked);
-      for (const c of order) curve(ctx, canvas, range, c, c[values], toY, ...STYLE.other);
-      for (const [name, kind] of [[state.worst, "worst"], [state.picked, "picked"]]) {
-        const c = MAPPED.find((k) => k.name === name);
-        if (c && !(kind === "worst" && name === state.picked)) curve(ctx, canvas, range, c, c[values], toY, ...STYLE[kind]);
-      }
-      ctx.restore();
-    }
-    $("legend").innerHTML = '<span style="color:#c53030">■</span> the limiting corner (' + state.worst
-      + ') &nbsp; <span style="color:#2b6cb0">■</span> picked: ' + state.picked
-      + " (click a curve or a row) &nbsp; grey: the other corners";
-  }
-  for (const [canvas, values, range, toY] of [[mag, "m", () => ranges.magnitude, (v) => 20 * v / Math.LN10],
-    [phase, "p", () => ranges.phase, (v) => v]]) {
-    canvas.addEventListener("click", (event) => {
-      const box = canvas.getBoundingClientRect(), x = event.clientX - box.left, y = event.clientY - box.top;
-      let best = null, distance = Infinity;
-      for (const c of MAPPED) {
-        let k = 0, dk = Infinity;
-        for (let j = 0; j < c.grid.n; j++) { const d = Math.abs(xOf(canvas, c.grid.f[j]) - x); if (d < dk) { dk = d; k = j; } }
-        const d = Math.abs(yOf(canvas, range(), toY(c[values][k])) - y);
-        if (d < distance) { distance = d; best = c.name; }
-      }
-      if (best) pick(best);
-    });
-  }
-
-  // ---- the compensation map of the picked corner ------------------------------------------
-  const mapCanvas = $("map"), MP = { l: 58, r: 12, t: 20, b: 34 }, NX = 48, NY = 36;
-  const mapImage = document.createElement("canvas");
-  mapImage.width = mapCanvas.width; mapImage.height = mapCanvas.height;
-  const secMin = secHi > secLo ? secLo : (secLo > 0 ? secLo / 2 : 0), secMax = secHi > secLo ? secHi : Math.max(2 * secHi, 1);
-  const ccAt = (i) => ccLo * (ccHi / ccLo) ** (i / (NX - 1));
-  const secAt = (j) => (secLog ? secMin * (secMax / secMin) ** (j / (NY - 1)) : secMin + (secMax - secMin) * j / (NY - 1));
-  const mx = (cc) => MP.l + (mapCanvas.width - MP.l - MP.r) * Math.log(cc / ccLo) / Math.log(ccHi / ccLo);
-  const my = (v) => mapCanvas.height - MP.b - (mapCanvas.height - MP.t - MP.b)
-    * (secLog ? Math.log(v / secMin) / Math.log(secMax / secMin) : (v - secMin) / (secMax - secMin));
-  // margins on a grid as amploop.analysis.margins.grid_margins reads them (linear in log f)
-  function gridFigures(corner, cc, second, step, scratch) {
-    const n = Math.ceil(corner.grid.n / step);
-    evaluate(corner, cc, branchResistance(corner, second), step, scratch.re, scratch.im);
-    logAxes(scratch.re, scratch.im, n, scratch.m, scratch.p);
-    const x = scratch.x, m = scratch.m, p = scratch.p;
-    let pm = Infinity, gm = Infinity;
-    for (let k = 0; k + 1 < n; k++) {
-      if ((m[k] >= 0) !== (m[k + 1] >= 0)) {
-        const t = m[k] / (m[k] - m[k + 1]);
-        pm = Math.min(pm, 180 + p[k] + t * (p[k + 1] - p[k]));
-      }
-      const q0 = (p[k] + 180) / 360, q1 = (p[k + 1] + 180) / 360, k0 = Math.floor(q0), k1 = Math.floor(q1);
-      if (k0 !== k1) {
-        const t = (Math.max(k0, k1) - q0) / (q1 - q0);
-        gm = Math.min(gm, -20 / Math.LN10 * (m[k] + t * (m[k + 1] - m[k])));
-      }
-    }
-    return [pm === Infinity ? NaN : pm, gm];
-  }
-  function scratchFor(corner, step) {
-    const n = corner.grid.n, x = new Float64Array(Math.ceil(n / step));
-    for (let k = 0, j = 0; k < n; k += step, j++) x[j] = corner.grid.x[k];
-    return { x, re: new Float64Array(n), im: new Float64Array(n), m: new Float64Array(n), p: new Float64Array(n) };
-  }
-  let feasible = null;  // every corner meets the target, on the grid (computed once)
-  function computeFeasible() {
-    const target = DATA.target;
-    if (target.phase_margin_deg === undefined || target.phase_margin_deg === null) return;
-    const step = MAPPED.length <= 10 ? 2 : 4;
-    feasible = new Uint8Array(NX * NY).fill(1);
-    for (const corner of MAPPED) {
-      const scratch = scratchFor(corner, step);
-      for (let i = 0; i < NX; i++) {
-        for (let j = 0; j < NY; j++) {
-          if (!feasible[i * NY + j]) continue;
-          const [pm, gm] = gridFigures(corner, ccAt(i), secAt(j), step, scratch);
-          const gmOk = target.gain_margin_db === undefined || target.gain_margin_db === null || gm >= target.gain_margin_db;
-          if (!(pm >= target.phase_margin_deg) || !gmOk) feasible[i * NY + j] = 0;
-        }
-      }
-    }
-  }
-  function pmColour(pm) {
-    if (Number.isNaN(pm)) return "rgb(235,235,235)";
-    const t = Math.min(Math.max(pm / 90, 0), 1);
-    return "rgb(" + Math.round(60 + 180 * t) + "," + Math.round(70 + 170 * t) + "," + Math.round(140 + 105 * t) + ")";
-  }
-  function buildMapImage() {
-    const ctx = mapImage.getContext("2d"), W = mapImage.width, H = mapImage.height;
-    ctx.clearRect(0, 0, W, H);
-    const corner = MAPPED.find((c) => c.name === state.picked);
-    if (!corner) return;
-    const scratch = scratchFor(corner, 2), pmGrid = new Float64Array(NX * NY);
-    for (let i = 0; i < NX; i++) for (let j = 0; j < NY; j++) pmGrid[i * NY + j] = gridFigures(corner, ccAt(i), secAt(j), 2, scratch)[0];
-    const cellW = (W - MP.l - MP.r) / (NX - 1), cellH = (H - MP.t - MP.b) / (NY - 1);
-    for (let i = 0; i < NX; i++) {
-      for (let j = 0; j < NY; j++) {
-        const x = mx(ccAt(i)) - cellW / 2, y = my(secAt(j)) - cellH / 2;
-        ctx.fillStyle = pmColour(pmGrid[i * NY + j]); ctx.fillRect(x, y, cellW + 0.6, cellH + 0.6);
-        if (feasible && feasible[i * NY + j]) { ctx.fillStyle = "rgba(56,161,105,0.55)"; ctx.fillRect(x, y, cellW + 0.6, cellH + 0.6); }
-      }
-    }
-    ctx.strokeStyle = "#222"; ctx.lineWidth = 1.2;  // the picked corner's target line
-    const level = DATA.target.phase_margin_deg;
-    for (let i = 0; level !== undefined && i < NX; i++) {
-      for (let j = 0; j < NY; j++) {
-        const here = pmGrid[i * NY + j] >= level;
-        if (i + 1 < NX && here !== (pmGrid[(i + 1) * NY + j] >= level)) {
-          const x = (mx(ccAt(i)) + mx(ccAt(i + 1))) / 2;
-          ctx.beginPath(); ctx.moveTo(x, my(secAt(j)) - cellH / 2); ctx.lineTo(x, my(secAt(j)) + cellH / 2); ctx.stroke();
-        }
-        if (j + 1 < NY && here !== (pmGrid[i * NY + j + 1] >= level)) {
-          const y = (my(secAt(j)) + my(secAt(j + 1))) / 2;
-          ctx.beginPath(); ctx.moveTo(mx(ccAt(i)) - cellW / 2, y); ctx.lineTo(mx(ccAt(i)) + cellW / 2, y); ctx.stroke();
-        }
-      }
-    }
-    ctx.font = "11px sans-serif"; ctx.fillStyle = "#444";
-    ctx.fillText("compensation map of " + corner.name + " (predicted)", MP.l, 13);
-    for (let d = Math.floor(Math.log10(ccLo)); d <= Math.floor(Math.log10(ccHi)); d++) {
-      for (const mult of [1, 2, 5]) {
-        const v = mult * 10 ** d;
-        if (v >= ccLo && v <= ccHi) ctx.fillText(engineering(v, "F", 2), mx(v) - 12, H - MP.b + 14);
-      }
-    }
-    ctx.fillText(ROLES.cc, W / 2, H - 4);
-    for (let j = 0; j < NY; j += 7) ctx.fillText(engineering(secAt(j), SECOND_UNIT, 3), 2, my(secAt(j)) + 4);
-    ctx.fillText(SECOND_LABEL, 2, MP.t - 4 > 10 ? H - MP.b + 28 : 12);
-  }
-  function marker(ctx, cc, second, shape, colour, size) {
-    const x = mx(cc), y = my(second);
-    ctx.fillStyle = colour; ctx.strokeStyle = colour; ctx.lineWidth = 2; ctx.beginPath();
-    if (shape === "square") ctx.rect(x - size / 2, y - size / 2, size, size);
-    else if (shape === "triangle") { ctx.moveTo(x, y - size); ctx.lineTo(x + size, y + size * 0.7); ctx.lineTo(x - size, y + size * 0.7); ctx.closePath(); }
-    else if (shape === "star") {
-      for (let k = 0; k < 10; k++) {
-        const r = k % 2 ? size * 0.45 : size, a = -Math.PI / 2 + k * Math.PI / 5;
-        if (k === 0) ctx.moveTo(x + r * Math.cos(a), y + r * Math.sin(a)); else ctx.lineTo(x + r * Math.cos(a), y + r * Math.sin(a));
-      }
-      ctx.closePath();
-    } else { ctx.arc(x, y, size, 0, 2 * Math.PI); ctx.stroke(); return; }
-    ctx.fill();
-  }
-  function drawMapMarkers() {
-    const ctx = mapCanvas.getContext("2d");
-    ctx.clearRect(0, 0, mapCanvas.width, mapCanvas.height);
-    ctx.drawImage(mapImage, 0, 0);
-    for (const h of DATA.history) if (h.values.rc !== undefined) marker(ctx, h.values.cc, h.values.rc, "square", "#2b6cb0", 7);
-    if (DATA.netlist.cc !== undefined) marker(ctx, DATA.netlist.cc, DATA.netlist.rc, "triangle", "#805ad5", 6);
-    if (DATA.values.cc !== undefined) marker(ctx, DATA.values.cc, DATA.values.rc, "star", "#c05621", 10);
-    marker(ctx, state.cc, state.second, "ring", "#000", 7);
-  }
-  mapCanvas.addEventListener("click", (event) => {
-    const box = mapCanvas.getBoundingClientRect(), x = event.clientX - box.left, y = event.clientY - box.top;
-    const fx = (x - MP.l) / (mapCanvas.width - MP.l - MP.r), fy = (mapCanvas.height - MP.b - y) / (mapCanvas.height - MP.t - MP.b);
-    if (fx < 0 || fx > 1 || fy < 0 || fy > 1) return;
-    const second = secLog ? secMin * (secMax / secMin) ** fy : secMin + (secMax - secMin) * fy;
-    setValues(ccLo * (ccHi / ccLo) ** fx, second);
-  });
-  $("map-legend").innerHTML = "Shade: phase margin of the picked corner (dark 0°, light 90°); black line: its target "
-    + "phase margin; <span style=\"color:#38a169\">green</span>: every corner meets the target (predicted). "
-    + "<span style=\"color:#2b6cb0\">■</span> simulated points of the run, <span style=\"color:#c05621\">★</span> chosen values, "
-    + "<span style=\"color:#805ad5\">▲</span> netlist values, ○ the point shown. Click to go there.";
+  const bode = AMP.bode({ state, pick });
+  const mapView = AMP.mapView({ state, setValues, ROLES, SECOND_LABEL, SECOND_UNIT, secLog, ccLo, ccHi, secLo, secHi });
 
   // ---- start: the fragment's values, else the chosen ones ---------------------------------
   function fromFragment() {
@@ -400,11 +240,15 @@
     const cc = f.cc !== null && f.cc > 0 ? f.cc : base.cc;
     const second = f.second !== null && f.second >= 0 ? f.second : (base.rc !== undefined ? base.rc : secLo);
     for (const corner of MAPPED) predict(corner, base.cc, base.rc !== undefined ? base.rc : secLo);
-    setRanges();
+    bode.setRanges();
     state.picked = DATA.limiting && MAPPED.some((c) => c.name === DATA.limiting) ? DATA.limiting : null;
+    if (FD) {  // the limiting loop's worst corner at the chosen values
+      const d = smallest((c) => c.figures), m = smallest((c) => c.cm && c.cm.figures);
+      if (d && m) state.picked = limitingLoop(d.figures.phase_margin_deg, m.cm.figures.phase_margin_deg) === "common_mode" ? m.name : d.name;
+    }
     if (state.picked === null && MAPPED.length) state.picked = MAPPED[0].name;
-    computeFeasible();
-    buildMapImage();
+    mapView.computeFeasible();
+    mapView.buildMapImage();
     setValues(cc, second);
     document.body.dataset.ready = "1";
   }
@@ -413,17 +257,25 @@
     if (f.cc !== null && f.second !== null && !(samePoint({ cc: f.cc, rc: f.second }))) setValues(f.cc, f.second);
   });
   $("summary").textContent = "job " + DATA.job + ": " + DATA.command + " (" + (DATA.strategy || "") + "), " + DATA.status
-    + "; " + MAPPED.length + " of " + CORNERS.length + " corners with a compensation map; target phase margin "
-    + (DATA.target.phase_margin_deg !== undefined ? DATA.target.phase_margin_deg + "°" : "none")
-    + (DATA.target.gain_margin_db !== undefined && DATA.target.gain_margin_db !== null ? ", gain margin " + DATA.target.gain_margin_db + " dB" : "");
+    + "; " + MAPPED.length + " of " + CORNERS.length + " corners with a compensation map"
+    + (FD ? " of each loop (fully-differential: the differential and the common-mode loop)" : "")
+    + (configurations.length ? " in " + configurations.length + " configurations (" + configurations.join(", ") + ")" : "")
+    + "; target phase margin "
+    + (present(DATA.target.phase_margin_deg) ? DATA.target.phase_margin_deg + "°" : "none")
+    + (present(DATA.target.gain_margin_db) ? ", gain margin " + DATA.target.gain_margin_db + " dB" : "")
+    + (FD && present(DATA.target.common_mode_phase_margin_deg) ? "; common-mode phase margin " + DATA.target.common_mode_phase_margin_deg + "°" : "")
+    + (FD && present(DATA.target.common_mode_gain_margin_db) ? ", common-mode gain margin " + DATA.target.common_mode_gain_margin_db + " dB" : "");
   $("notes").innerHTML = "<p><b>What is predicted, what was simulated.</b> Every curve and every figure of the table is "
     + "predicted from each corner's compensation map: three simulations per corner, between which the loop gain is "
     + "exactly bilinear in the branch impedance Rc + 1/sCc. The margins are read off the predicted loop gain as amploop "
-    + "reads them off a simulated one. The last column and the blue points are simulations of the run. The map is exact "
+    + "reads them off a simulated one. "
+    + (FD ? "A fully-differential amplifier's common-mode loop has maps of its own, read from the same three simulations "
+      + "(both halves carry the same Cc and Rc, so its loop gain too is bilinear in that one impedance). " : "")
+    + "The simulated column" + (FD ? "s" : "") + " and the blue points are simulations of the run. The map is exact "
     + "while the operating point does not depend on Cc and Rc (the branch carries no DC current)"
     + (DEVICE ? "; a MOSFET standing in for Rc is scaled by the square law and its capacitances move with its size, so "
       + "here the map is an estimate, which is why the tool verifies by simulation" : "")
     + ". Sign-off stays with your own models and flow.</p>";
-  AMP.ui = { state, setValues, redraw, pick };
+  AMP.ui = { state, setValues, redraw, pick, bode, mapView };
   start();
 })();
