@@ -158,3 +158,37 @@ def test_feedback_and_testbench_together_are_refused(tmp_path, capsys):
     data["feedback"] = {"kind": "resistive", "input": "10k", "feedback": "10k"}
     code, line = _refused(tmp_path, capsys, data)
     assert code == 2 and "give [feedback] or [testbench], not both" in line
+
+
+FD_DECK = """fully-differential bench of my own (invented)
+Xamp inp inn outp outn vcm fdmacro
+Vvcm vcm 0 dc 0
+Vsig sig 0 dc 0
+Vsign sign 0 dc 0
+Rin sig inn 10000.0
+Rfb fbp inn 20000.0
+Rinn sign inp 10000.0
+Rfbn fbn inp 20000.0
+Cload outp 0 1e-11
+Cloadn outn 0 1e-11
+Vbrkp outp fbp 0
+Vbrkn outn fbn 0
+.end
+"""
+
+
+def test_a_fully_differential_deck_of_ones_own_gives_both_loops_as_amploops_own(tmp_path):
+    """The FD macromodel (tests/nodal_fd.py) in a deck that reproduces amploop's own
+    fully-differential testbench: two breaks, the common-mode break inside the subckt."""
+    from nodal_fd import DEFAULT
+    from test_fd_measure import fd_job
+
+    own = fd_job(tmp_path, DEFAULT)
+    (tmp_path / "fd_tb.cir").write_text(FD_DECK)
+    theirs = {k: v for k, v in own.items() if k not in ("bias", "feedback")}
+    theirs["testbench"] = {"netlist": "fd_tb.cir", "break": ["Vbrkp", "Vbrkn"]}
+    a = measure(load_job(theirs, base=tmp_path), workers=1, time_domain=False).corners[0]
+    b = measure(load_job(own, base=tmp_path), workers=1, time_domain=False).corners[0]
+    assert a.status == "ok", a.problem
+    for x, y in ((a.loop_gain, b.loop_gain), (a.common_mode_loop_gain, b.common_mode_loop_gain)):
+        assert np.max(np.abs(x.values - y.values) / np.abs(y.values)) < 1e-6

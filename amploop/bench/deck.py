@@ -97,7 +97,8 @@ def closed_loop_deck(
     if amplifier.user_deck is not None:  # the user's own testbench, probe at its break
         own = {amplifier.netlist.root, *job.amplifier.includes}
         own |= {job.amplifier.models} if job.amplifier.models else set()
-        deck, more = amplifier.user_deck.render(instance_params, own, corner.params)
+        deck, more = amplifier.user_deck.render(instance_params, own, corner.params,
+                                                amplifier.extra_ports)
         where = text(str(amplifier.user_deck.netlist.root), "[testbench].netlist")
         lines += [f"* ---- user testbench {where}", deck, "* ---- end of user testbench"]
         lines.extend(loop_elements)

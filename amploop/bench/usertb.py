@@ -59,7 +59,8 @@ class UserDeck:
     commands: tuple = ()
 
     def render(self, instance_params: dict[str, str], own_files: set[Path],
-               corner_params: dict[str, float]) -> tuple[str, list]:
+               corner_params: dict[str, float], extra_ports: tuple[str, ...] = ()
+               ) -> tuple[str, list]:
         """The deck's text for a testbench, and notes on what was left out.
 
         Parameters
@@ -72,6 +73,9 @@ class UserDeck:
         corner_params
             The corner's parameters (SI): where the deck's own ``.param`` lines set one of
             them, the corner's value is written there (it would win otherwise).
+        extra_ports
+            Nodes the instance gains before its subckt name (the sides of a common-mode
+            break brought out of the subckt).
         """
         root = self.netlist.root
         edits: dict[tuple[Path, int], str] = {}
@@ -85,8 +89,12 @@ class UserDeck:
                 f"* amploop: {statement.tokens[0]} ({a} -> {b}) is the loop's break: the probe "
                 f"sits between {amp} and {fb}\n"
                 f"Vtb_link_a{suffix} {a} {amp} dc 0\nVtb_link_b{suffix} {fb} {b} dc 0")
+        tokens = list(self.instance.tokens)
+        at = next(i for i in range(len(tokens) - 1, 0, -1)
+                  if tokens[i].lower() == _instance_of(self.instance))
+        tokens[at:at] = list(extra_ports)
         instance = Statement(self.instance.file, self.instance.index, self.instance.line,
-                             ("X1", *self.instance.tokens[1:]), None, None)
+                             ("X1", *tokens[1:]), None, None)
         text = " ".join(instance.tokens)
         for name, value in instance_params.items():
             text = replace_instance_param(instance, name, value)
