@@ -170,3 +170,37 @@ def test_bad_statistical_targets_are_one_line_errors(tmp_path, target, message):
     with pytest.raises(JobError) as caught:
         load_job(data, base=tmp_path)
     assert message in str(caught.value)
+
+
+def _nodal_statistic(cc: float, rc: float, k: float) -> tuple[float, float]:
+    """(mean − kσ of the PM, smallest UGF) of the heavy corner's samples on the nodal model
+    at (``cc``, ``rc``), with the same draws as amploop's."""
+    z = np.random.default_rng([SEED, 0]).standard_normal((SAMPLES, 2))
+    pms, ugfs = [], []
+    for row in z:
+        m = BASE.with_(cl=3e-12, cc=cc, rc=rc, gm1=BASE.gm1 * (1 + SIGMA_GM1 * row[0]),
+                       gm2=BASE.gm2 * (1 + SIGMA_GM2 * row[1]))
+        pm, ugf, _ = dense_margins(_F, exact_loop_gain(m, _F)[None, :])
+        pms.append(pm[0])
+        ugfs.append(ugf[0])
+    return float(np.mean(pms) - k * np.std(pms, ddof=1)), float(min(ugfs))
+
+
+def test_tune_to_a_sigma_target_meets_it_on_the_nodal_model(tmp_path):
+    from amploop.strategy.tune import tune
+
+    data = job_dict(tmp_path, target={"phase_margin": 60.0, "sigma": 2})
+    data["analysis"]["points_per_decade"] = 40
+    data["compensation"]["rc"]["max"] = "1k"  # so that the phase margin binds
+    result = tune(load_job(data, base=tmp_path), out=tmp_path / "out", workers=2,
+                  time_domain=False)
+    assert result.status == "converged", result.outcome.message
+    cc, rc = result.outcome.values["cc"], result.outcome.values["rc"]
+    statistic, _ = _nodal_statistic(cc, rc, 2)
+    # the rule holds on the exact model, and the optimum sits on it (within the tolerance)
+    assert 60.0 - 0.02 <= statistic <= 61.0
+    saved = json.loads((tmp_path / "out" / "results.json").read_text())
+    (stats,) = saved["statistics"]
+    assert stats["meets_target"] is True and stats["sigma"] == 2
+    assert stats["phase_margin_mean_minus_k_sigma_deg"] == pytest.approx(statistic, abs=0.05)
+    assert saved["target"]["sigma"] == 2
