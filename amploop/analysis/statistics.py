@@ -84,8 +84,8 @@ def clopper_pearson(passed: int, total: int, confidence: float = 0.95) -> tuple[
 
 
 def fewest_passing(total: int, share: float, confidence: float = 0.95) -> int | None:
-    """The fewest of ``total`` samples that must pass for the lower end of the
-    :func:`clopper_pearson` interval to reach ``share``; None when even all of them do not
+    """The fewest of ``total`` samples that must pass for the lower end of the two-sided
+    ``confidence`` :func:`clopper_pearson` interval to reach ``share``; None when even all of them do not
     suffice. The lower end grows with the count passing, so a bisection finds it."""
     if clopper_pearson(total, total, confidence)[0] < share:
         return None

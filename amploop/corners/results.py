@@ -209,8 +209,8 @@ class MeasureResult:
 
 
 def statistics_entry(job: Job, corners: tuple[CornerResult, ...]) -> dict:
-    """results.json's ``statistics`` of a job with ``[monte_carlo]`` samples among
-    ``corners`` (:func:`~amploop.corners.samplestats.sample_statistics`); nothing without."""
+    """results.json's ``statistics`` of ``job``, when it has ``[monte_carlo]``, over its
+    samples among ``corners`` (:func:`~amploop.corners.samplestats.sample_statistics`); nothing without."""
     if job.monte_carlo is None:
         return {}
     from amploop.corners.samplestats import sample_statistics

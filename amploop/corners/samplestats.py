@@ -8,7 +8,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from amploop.analysis.statistics import Spread, clopper_pearson, spread
-from amploop.corners.results import CornerResult
 from amploop.spec.limits import Target
 
 __all__ = ["SampleStatistics", "sample_meets", "sample_statistics", "statistical_miss"]
@@ -43,6 +42,8 @@ class SampleStatistics:
     meets
         Whether the target's statistical rule holds (without one, whether every sample
         meets the target); None without a target.
+    target_pm_deg
+        The target's phase margin, degrees; None without a target.
     """
 
     base: str
@@ -57,6 +58,7 @@ class SampleStatistics:
     sigma: float | None = None
     pm_statistic_deg: float | None = None
     meets: bool | None = None
+    target_pm_deg: float | None = None
 
     @property
     def group(self) -> str:
@@ -82,11 +84,12 @@ class SampleStatistics:
             data["sigma"] = self.sigma
             data["phase_margin_mean_minus_k_sigma_deg"] = self.pm_statistic_deg
         data["meets_target"] = self.meets
+        data["phase_margin_target_deg"] = self.target_pm_deg
         return data
 
 
-def sample_meets(result: CornerResult, target: Target) -> bool:
-    """Whether one sample measured ``ok`` and meets the phase margin and the gain-margin
+def sample_meets(result, target: Target) -> bool:
+    """Whether one sample, ``result`` (a :class:`~amploop.corners.results.CornerResult`), measured ``ok`` and meets the phase margin and the gain-margin
     minimum of ``target`` (a sample without a phase crossover passes the gain margin), and
     the common-mode loop's where measured."""
     if result.status != "ok" or result.margins is None:
@@ -109,11 +112,12 @@ def sample_meets(result: CornerResult, target: Target) -> bool:
     return True
 
 
-def sample_statistics(corners: tuple[CornerResult, ...], target: Target | None
+def sample_statistics(corners: tuple, target: Target | None
                       ) -> list[SampleStatistics]:
-    """One :class:`SampleStatistics` per base corner (and configuration) among ``corners``,
+    """One :class:`SampleStatistics` per base corner (and configuration) among ``corners``
+    (:class:`~amploop.corners.results.CornerResult` objects),
     in the order their first sample comes; ``target`` None gives the spreads only."""
-    groups: dict[str, list[CornerResult]] = {}
+    groups: dict[str, list] = {}
     for c in corners:
         if c.corner.group is not None:
             groups.setdefault(c.corner.group, []).append(c)
@@ -140,13 +144,15 @@ def sample_statistics(corners: tuple[CornerResult, ...], target: Target | None
             phase_margin_deg=pm, unity_gain_hz=spread(m.unity_gain_hz for m in measured),
             gain_margin_db=spread(m.gain_margin_db for m in measured),
             meeting_target=passed, passed_yield=share, yield_interval_95=interval,
-            sigma=sigma, pm_statistic_deg=statistic, meets=meets))
+            sigma=sigma, pm_statistic_deg=statistic, meets=meets,
+            target_pm_deg=None if target is None else target.phase_margin_deg))
     return out
 
 
-def statistical_miss(corners: tuple[CornerResult, ...], target: Target) -> str | None:
-    """One sentence on which base corner's samples miss the target's statistical rule
-    (``sigma`` or ``yield``), with the figure; None when every one meets it."""
+def statistical_miss(corners: tuple, target: Target) -> str | None:
+    """One sentence on which base corner's samples among ``corners`` (corner results) miss
+    the statistical rule of ``target`` (its ``sigma`` or ``yield``), with the figure; None
+    when every one meets it."""
     missed = []
     for s in sample_statistics(corners, target):
         if s.meets:

@@ -54,7 +54,8 @@ class SampleRule:
 
     def grid(self, maps: dict, cc: np.ndarray, rc: np.ndarray, every: int = 1):
         """(shortfall, smallest unity-gain frequency) over the samples on the ``cc`` × ``rc``
-        grid (F, Ω): the largest shortfall of any base corner's samples (degrees, or dB for
+        grid (F, Ω), from ``maps`` (corner name -> compensation map) at every ``every``-th
+        frequency: the largest shortfall of any base corner's samples (degrees, or dB for
         a missed gain margin; 0 where the rule holds) and the samples' smallest UGF (Hz)."""
         shape = (cc.size, rc.size)
         short = np.zeros(shape)

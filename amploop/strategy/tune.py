@@ -139,7 +139,7 @@ class TuneResult:
                     "common_mode_gain_margin_db": target.common_mode_gain_margin_db}
                    if self.job.amplifier.fully_differential else {}),
                 **({"sigma": target.sigma} if target.sigma is not None else {}),
-                **({"yield": target.yield_fraction}
+                **({"yield_fraction": target.yield_fraction}
                    if target.yield_fraction is not None else {}),
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
