@@ -81,6 +81,8 @@ def closed_loop_deck(
     if top_params:
         lines.append(".param " + " ".join(f"{k}={spice_number(v)}" for k, v in top_params.items()))
     lines.append(f".temp {spice_number(corner.temp)}")
+    if corner.sample is not None:  # agauss & co. of the models file draw from this seed
+        lines.append(f".option seed={corner.sample.seed}")
     models = job.amplifier.models
     if models is not None:
         path = text(str(models), "[amplifier].models")

@@ -19,7 +19,7 @@ from amploop.spice.labels import JOURNAL_KEY
 SCHEMA = 2
 
 __all__ = ["SCHEMA", "CornerResult", "MeasureResult", "assess_common_mode", "assess_loop_gain",
-           "loops_entry"]
+           "loops_entry", "statistics_entry"]
 
 
 @dataclass(frozen=True)
@@ -96,6 +96,8 @@ class CornerResult:
             if self.measures_common_mode else {}
         configuration = {} if self.corner.configuration is None else {
             "configuration": self.corner.configuration}
+        if self.corner.sample is not None:
+            configuration["sample"] = self.corner.sample.as_json()
         return {
             "name": self.corner.name,
             **configuration,
@@ -202,7 +204,18 @@ class MeasureResult:
             "job_file": str(self.job.path),
             "seconds": self.seconds,
             "warnings": list(self.warnings),
+            **statistics_entry(self.job, self.corners),
         }
+
+
+def statistics_entry(job: Job, corners: tuple[CornerResult, ...]) -> dict:
+    """results.json's ``statistics`` of ``job``, when it has ``[monte_carlo]``, over its
+    samples among ``corners`` (:func:`~amploop.corners.samplestats.sample_statistics`); nothing without."""
+    if job.monte_carlo is None:
+        return {}
+    from amploop.corners.samplestats import sample_statistics
+
+    return {"statistics": [s.as_json() for s in sample_statistics(corners, job.target)]}
 
 
 def loops_entry(job: Job) -> dict:

@@ -24,6 +24,7 @@ from amploop.report.data import ReportData, load_report_data
 from amploop.report.history import convergence_page
 from amploop.report.mapview import map_page
 from amploop.report.overview import overview_page
+from amploop.report.spread import spread_page, spread_pages
 from amploop.report.steps import time_domain_page
 from amploop.report.summary import summary_page_count, summary_pages
 from amploop.spec.names import safe_filename
@@ -60,7 +61,8 @@ class ReportOutcome:
 
 def _page_count(data: ReportData, corner_names: list[str], overview: bool) -> int:
     return (summary_page_count(len(data.corner_names)) + overview + len(corner_names)
-            + bool(data.maps) + (data.command == "tune") + bool(data.steps))
+            + bool(data.maps) + (data.command == "tune") + bool(data.steps)
+            + len(spread_pages(data.results)))
 
 
 def build_report(out: str | Path, *, pngs: bool = True, corner_pages: Iterable[str] = (),
@@ -129,6 +131,8 @@ def _pages(data: ReportData, corner_names: list[str], overview: bool):
         yield (f"summary-{i + 1}" if i else "summary"), fig, False
     if overview:
         yield "overview", overview_page(data, corner_names, target), True
+    for name, entry in spread_pages(data.results):
+        yield f"monte-carlo-{safe_filename(name)}", spread_page(data.results, name, entry), True
     many = len(data.corner_names) > PNG_CORNER_PAGES
     for name in corner_names:
         quick_look = not many or name == data.limiting_corner

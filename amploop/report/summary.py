@@ -170,6 +170,7 @@ def summary_pages(data: ReportData, date: str):
                  f"wall time {r.get('seconds', 0):.1f} s")
     lines += [line for line in (_configuration_line(r["corners"]),) if line]
     lines += _status_notes(r["corners"])
+    lines += statistics_lines(r)
     y = 0.86
     for line in lines:
         for part in textwrap.wrap(line, 150):
@@ -195,6 +196,26 @@ def summary_pages(data: ReportData, date: str):
                data.common_mode, bands[start:start + ROWS_MORE])
         footer(fig)
         yield fig
+
+
+def statistics_lines(results: dict) -> list[str]:
+    """One line per base corner with Monte Carlo samples (results.json's ``statistics``):
+    the phase margin's mean, σ and mean − kσ, and the yield with its 95 % interval."""
+    lines = []
+    for s in results.get("statistics") or []:
+        pm = s.get("phase_margin_deg")
+        name = s["base"] + (f"@{s['configuration']}" if s.get("configuration") else "")
+        text = f"Monte Carlo {name}: {s['samples']} samples"
+        if pm:
+            k = s.get("sigma") or 3
+            text += (f", PM mean {pm['mean']:.2f}° σ {pm['std']:.2f}° "
+                     f"(mean − {k:g}σ {pm['mean'] - k * pm['std']:.2f}°), min {pm['min']:.2f}°")
+        if s.get("yield") is not None:
+            low, high = s["yield_interval_95"]
+            text += (f"; {s['meeting_target']} meet the target, yield {s['yield']:.3f} "
+                     f"[{low:.3f}, {high:.3f}] at 95 %")
+        lines.append(text)
+    return lines
 
 
 def _common_mode_target(target: dict) -> str:

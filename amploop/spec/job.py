@@ -26,6 +26,7 @@ from amploop.spec.model import (
     Job,
     UserTestbench,
 )
+from amploop.spec.montecarlo import expand_samples, read_monte_carlo
 from amploop.spec.reader import Reader, deepest_nesting, place_of
 from amploop.spec.resistor_values import check_feedback_resistors
 from amploop.spec.sections import (
@@ -48,6 +49,7 @@ __all__ = ["load_job"]
 _TOP_KEYS = {
     "name", "amplifier", "bias", "feedback", "compensation", "analysis", "corners",
     "corner_grid", "target", "params", "transient", "operating_point", "testbench",
+    "monte_carlo",
 }
 _AMPLIFIER_KEYS = {
     "netlist", "subckt", "in_p", "in_n", "out", "models", "includes", "input_device",
@@ -165,7 +167,14 @@ def _build_job(path: Path, data: dict) -> Job:
     target = read_target(r, r.table(data, "target", "[target]", required=False))
     transient = read_transient(r, r.table(data, "transient", "[transient]", required=False))
     defaults = read_params(r, data.get("params", {}), "[params]")
-    corners = with_configurations(read_corners(r, data, defaults), configurations)
+    monte_carlo = read_monte_carlo(r, data, target and target.yield_fraction)
+    if target is not None and target.statistical and monte_carlo is None:
+        raise r.fail("[target].sigma" if target.sigma is not None else "[target].yield",
+                     "a statistical target needs samples", hint="add a [monte_carlo] table")
+    corners = read_corners(r, data, defaults)
+    corners = expand_samples(r, corners, monte_carlo,
+                             _netlist_numbers(amplifier.netlist, monte_carlo))
+    corners = with_configurations(corners, configurations)
 
     _check_differential(r, amplifier, target, compensation, analysis,
                         configurations or ((feedback,) if feedback else ()))
@@ -186,11 +195,34 @@ def _build_job(path: Path, data: dict) -> Job:
         raw=data,
         configurations=configurations,
         testbench=testbench,
+        monte_carlo=monte_carlo,
     )
     check_corner_libs(r, job)
     check_corner_params(r, job)
     check_feedback_resistors(job)
     return job
+
+
+def _netlist_numbers(netlist: Path, monte_carlo) -> dict[str, float]:
+    """The top-level ``.param`` values of ``netlist`` that evaluate to numbers (SI), when
+    ``monte_carlo`` draws a parameter (the nominal of one no corner sets); else nothing."""
+    if monte_carlo is None or not monte_carlo.params:
+        return {}
+    from amploop.errors import NetlistError
+    from amploop.spice.expressions import evaluate
+    from amploop.spice.netlist import read_netlist
+
+    try:
+        exprs = {k: e for k, (_, e) in read_netlist(netlist).global_params.items()}
+    except NetlistError:
+        return {}  # the netlist's own reading reports it, with its place
+    values = {}
+    for name, expr in exprs.items():
+        try:
+            values[name] = evaluate(expr, exprs)
+        except ValueError:
+            continue
+    return values
 
 
 def _check_differential(r: Reader, amplifier: Amplifier, target, compensation,

@@ -78,6 +78,14 @@ class Target:
     common_mode_phase_margin_deg, common_mode_gain_margin_db
         The same minimums for the common-mode feedback loop of a fully-differential
         amplifier, degrees and dB; None: that loop is measured, not targeted.
+    sigma
+        With ``[monte_carlo]``: per base corner, the mean minus ``sigma`` standard
+        deviations of its samples' phase margins must reach ``phase_margin_deg`` (instead of
+        every sample); None: no such rule.
+    yield_fraction
+        With ``[monte_carlo]``: per base corner, the lower end of the 95 % Clopper–Pearson
+        interval of the fraction of samples meeting every target must reach this; None: no
+        such rule. At most one of ``sigma`` and ``yield_fraction`` is given.
     """
 
     phase_margin_deg: float
@@ -85,6 +93,14 @@ class Target:
     gain_margin_db: float | None = None
     common_mode_phase_margin_deg: float | None = None
     common_mode_gain_margin_db: float | None = None
+    sigma: float | None = None
+    yield_fraction: float | None = None
+
+    @property
+    def statistical(self) -> bool:
+        """Whether the sampled corners are held to a statistical rule (``sigma`` or
+        ``yield_fraction``) rather than each to the target."""
+        return self.sigma is not None or self.yield_fraction is not None
 
 
 @dataclass(frozen=True)

@@ -19,6 +19,8 @@ __all__ = [
     "FeedbackKind",
     "Job",
     "Knob",
+    "MonteCarlo",
+    "Sample",
 ]
 
 
@@ -217,6 +219,63 @@ class Knob:
 
 
 @dataclass(frozen=True)
+class Sample:
+    """What makes a corner one Monte Carlo sample of a base corner.
+
+    Attributes
+    ----------
+    base
+        The name of the corner it is sampled around.
+    index
+        Its number among the base corner's samples, from 0 (its name ends in ``#index``).
+    seed
+        ngspice's random seed for its deck (``.option seed``), so that ``agauss`` and the
+        other statistical functions of the model file draw the same values every run.
+    params
+        The parameters amploop drew for it, lower-case name -> value (SI); they are also in
+        the corner's ``params``.
+    """
+
+    base: str
+    index: int
+    seed: int
+    params: dict[str, float] = field(default_factory=dict)
+
+    def as_json(self) -> dict:
+        """Its ``sample`` entry in results.json."""
+        return {"base": self.base, "index": self.index, "seed": self.seed,
+                "params": dict(self.params)}
+
+
+@dataclass(frozen=True)
+class MonteCarlo:
+    """``[monte_carlo]``: how many samples of which corners, drawn how.
+
+    Attributes
+    ----------
+    samples
+        Samples per base corner (at least 2).
+    seed
+        The seed of amploop's draws and of the samples' ngspice seeds.
+    base
+        The names of the corners sampled around; None: every corner.
+    lib
+        A ``.lib`` section of the models file whose cards vary statistically, read by the
+        samples in place of their base corner's section; None: the base's own.
+    params
+        Parameters amploop draws itself: lower-case name -> (sigma, relative). A sample's
+        value is ``nominal + sigma·z`` (SI), or ``nominal·(1 + sigma·z)`` when relative,
+        with ``z`` standard normal.
+    """
+
+    samples: int
+    seed: int = 1
+    base: tuple[str, ...] | None = None
+    lib: str | None = None
+    params: dict[str, tuple[float, bool]] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
 class Corner:
     """One corner: a model section, a temperature (°C) and SPICE parameter values (SI).
 
@@ -233,6 +292,9 @@ class Corner:
     configuration
         The ``[[feedback]]`` configuration it runs in (its name then ends in
         ``@configuration``); None with a single ``[feedback]`` table.
+    sample
+        What makes it a Monte Carlo sample (its name then ends in ``#index``, before any
+        ``@configuration``); None for a corner that is not one.
     """
 
     name: str
@@ -240,10 +302,19 @@ class Corner:
     temp: float = 27.0
     params: dict[str, float] = field(default_factory=dict)
     configuration: str | None = None
+    sample: Sample | None = None
 
     def __hash__(self) -> int:
         return hash((self.name, self.lib, self.temp, tuple(sorted(self.params.items())),
-                     self.configuration))
+                     self.configuration, None if self.sample is None else self.sample.seed))
+
+    @property
+    def group(self) -> str | None:
+        """The set of samples it belongs to, for statistics: its base corner's name (with
+        ``@configuration`` when it has one); None when it is not a sample."""
+        if self.sample is None:
+            return None
+        return self.sample.base + ("" if self.configuration is None else f"@{self.configuration}")
 
 
 @dataclass(frozen=True)
@@ -282,6 +353,9 @@ class Job:
     testbench
         The user's own ``[testbench]``; None when amploop builds its own (``feedback`` is
         then None, ``bias`` empty).
+    monte_carlo
+        The ``[monte_carlo]`` table; None when left out. Its samples are already in
+        ``corners``, in place of their base corners.
     """
 
     path: Path
@@ -298,6 +372,7 @@ class Job:
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
     configurations: tuple[Feedback, ...] = ()
     testbench: UserTestbench | None = None
+    monte_carlo: MonteCarlo | None = None
 
     @property
     def feedbacks(self) -> tuple[Feedback, ...]:

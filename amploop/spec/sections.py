@@ -207,8 +207,20 @@ def read_target(r: Reader, data: dict) -> Target | None:
                          f"expected degrees between 0 and 180, got {cm_pm:g}")
     cm_gm = data.get("common_mode_gain_margin")
     cm_gm = None if cm_gm is None else r.number(cm_gm, "[target].common_mode_gain_margin")
+    if "sigma" in data and "yield" in data:
+        raise r.fail("[target].yield", "give sigma or yield, not both: each is a rule for the "
+                     "sampled corners on its own")
+    sigma = None if "sigma" not in data else r.number(data["sigma"], "[target].sigma")
+    if sigma is not None and not 0 < sigma <= 10:
+        raise r.fail("[target].sigma", f"expected a number of standard deviations above 0 "
+                     f"(such as 3), got {sigma:g}")
+    share = None if "yield" not in data else r.number(data["yield"], "[target].yield")
+    if share is not None and not 0 < share < 1:
+        raise r.fail("[target].yield", f"expected a fraction between 0 and 1 (such as 0.99), "
+                     f"got {share:g}")
     return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm,
-                  common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm)
+                  common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm,
+                  sigma=sigma, yield_fraction=share)
 
 
 def read_transient(r: Reader, data: dict) -> Transient:
@@ -283,7 +295,8 @@ _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
 MAX_TIME_LIMIT_S = 1e6
 
 
-_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin",
+_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin", "sigma",
+                "yield",
                 "common_mode_gain_margin"}
 
 

@@ -18,6 +18,7 @@ from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapsolve import CommonModeLoop, MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.samplerule import sample_rule
 from amploop.strategy.samples import initial_samples, samples_around
 from amploop.strategy.worst import missed_target, worst_text
 
@@ -96,6 +97,7 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     aim = target.phase_margin_deg + 0.1 * target.tolerance_deg
     agreement = target.tolerance_deg / 10.0
 
+    rule = sample_rule(evaluator.corners, target, aim)  # a sigma or yield target's samples
     samples = initial_samples(cc_bounds, rc_sample)
     solution: MapSolution | None = None
     verified: PointResult | None = None
@@ -110,11 +112,11 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         maps = _maps(evaluator, characterised)
         common_mode = _common_mode(evaluator, characterised, target)
         optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db,
-                                common_mode=common_mode)
+                                common_mode=common_mode, rule=rule)
         # 4 significant digits, what a designer writes into the netlist and what is
         # verified, chosen on the maps so that rounding keeps every constraint met
         solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db,
-                                 common_mode=common_mode)
+                                 common_mode=common_mode, rule=rule)
         point = knob_values({"cc": solution.cc, "rc": solution.rc}, has_rc)
         verified = evaluator.simulate([point], kind="verify",
                                       note=f"round {round_number}")[0]
@@ -129,6 +131,12 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     worst = verified.worst
     extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
     if not solution.feasible:
+        if rule is not None:
+            return Outcome("infeasible", verified.values, verified,
+                           "no Cc, Rc within the bounds meets the statistical target; at the "
+                           "best reachable point, " + (_statistical_miss(verified, target) or
+                                                      "the samples meet it")
+                           + " at " + describe_values(verified.values), extra)
         return Outcome("infeasible", verified.values, verified,
                        _unreachable(worst, target) + describe_values(verified.values), extra)
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
@@ -138,12 +146,38 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             f"{abs(worst.phase_margin_deg - solution.phase_margin_deg):.2f}° after "
             f"{len(predictions)} rounds (does the operating point depend on Cc or Rc?)", extra,
         )
-    missed = missed_target(verified.corners, target)
+    if rule is not None:  # the samples against the rule, every other corner against the target
+        missed = "; ".join(filter(None, (
+            missed_target(tuple(c for c in verified.corners if c.corner.sample is None), target),
+            _statistical_miss(verified, target)))) or None
+    else:
+        missed = missed_target(verified.corners, target)
     if missed is not None:
         return Outcome("failed", verified.values, verified, missed, extra)
+    text = worst_text(worst, target) if rule is None else _statistical_text(verified, target)
     return Outcome("converged", verified.values, verified,
-                   f"{worst_text(worst, target)} at " + describe_values(verified.values),
-                   extra)
+                   f"{text} at " + describe_values(verified.values), extra)
+
+
+def _statistical_miss(verified: PointResult, target: Target) -> str | None:
+    from amploop.corners.samplestats import statistical_miss
+
+    return statistical_miss(verified.corners, target)
+
+
+def _statistical_text(verified: PointResult, target: Target) -> str:
+    """The verified statistical figure of each base corner's samples, in words."""
+    from amploop.corners.samplestats import sample_statistics
+
+    parts = []
+    for s in sample_statistics(verified.corners, target):
+        if s.sigma is not None:
+            parts.append(f"{s.group}: mean − {s.sigma:g}σ of the phase margin "
+                         f"{s.pm_statistic_deg:.2f}°")
+        else:
+            parts.append(f"{s.group}: {s.meeting_target} of {s.samples} samples meet the "
+                         f"target, yield ≥ {s.yield_interval_95[0]:.4f} (95 %)")
+    return "; ".join(parts)
 
 
 def _unreachable(worst, target: Target) -> str:

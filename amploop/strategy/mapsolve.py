@@ -202,6 +202,7 @@ def solve_on_maps(
     zooms: int = 4,
     rc_of: dict | None = None,
     common_mode: CommonModeLoop | None = None,
+    rule=None,
 ) -> MapSolution:
     """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
 
@@ -225,6 +226,10 @@ def solve_on_maps(
     common_mode
         A fully-differential amplifier's common-mode loop and its targets, held as
         constraints too (the objective stays the main loop's unity-gain frequency).
+    rule
+        The statistical rule for the Monte Carlo samples among the corners
+        (:class:`~.samplerule.SampleRule`): they are held to it instead of each to the aim;
+        None: every corner to the aim.
 
     Returns
     -------
@@ -232,14 +237,13 @@ def solve_on_maps(
         ``feasible`` False means no grid point met the constraints; the point returned then
         has the least shortfall (the best worst-corner margin reachable).
     """
-    def cm_short(cc, rc, every=1):
-        return None if common_mode is None else common_mode.shortfall(
-            *common_mode.grid(cc, rc, every))
+    def figures(cc, rc, every=1):
+        return _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule)
 
     cc = cc_grid(*cc_bounds, points)
     rc = rc_grid(*rc_bounds, points)
-    (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, every=2, rc_of=rc_of)[:3],
-                                   aim_pm, gm_min, cm_short(cc, rc, 2))
+    pm_w, ugf_w, gm_w, extra = figures(cc, rc, 2)
+    (i, j), feasible = _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, extra)
     best_cc, best_rc = float(cc[i]), float(rc[j])
     for _ in range(zooms):
         cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
@@ -248,13 +252,28 @@ def solve_on_maps(
                                        else [cc_lo], [best_cc]]))
         rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 9) if rc_hi > rc_lo
                                        else [rc_lo], [best_rc]]))
-        (i, j), feasible = _best_index(*_worst_on_grid(maps, cc, rc, rc_of=rc_of)[:3],
-                                       aim_pm, gm_min, cm_short(cc, rc))
+        pm_w, ugf_w, gm_w, extra = figures(cc, rc)
+        (i, j), feasible = _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, extra)
         best_cc, best_rc = float(cc[i]), float(rc[j])
     pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
                        unity_gain_hz=ugf, gain_margin_db=gm, phase_margin_corner=limiting,
                        common_mode_phase_margin_deg=_cm_pm(common_mode, best_cc, best_rc))
+
+
+def _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule):
+    """(worst PM, worst UGF, worst GM, extra shortfall or None) on the ``cc`` × ``rc`` grid:
+    PM and GM over the corners held to the aim one by one (all but ``rule``'s samples), UGF
+    over every corner, and the shortfall of the common-mode loop and of ``rule``."""
+    plain = maps if rule is None else {n: m for n, m in maps.items() if n not in rule.members}
+    pm_w, ugf_w, gm_w, _ = _worst_on_grid(plain, cc, rc, every, rc_of)
+    extra = None if common_mode is None else common_mode.shortfall(
+        *common_mode.grid(cc, rc, every))
+    if rule is not None:
+        short, ugf_s = rule.grid(maps, cc, rc, every)
+        ugf_w = np.minimum(ugf_w, ugf_s)
+        extra = short if extra is None else np.maximum(extra, short)
+    return pm_w, ugf_w, gm_w, extra
 
 
 def _cm_pm(common_mode: CommonModeLoop | None, cc: float, rc: float) -> float | None:
@@ -295,7 +314,7 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
                   cc_bounds: tuple[float, float], rc_bounds: tuple[float, float],
                   aim_pm: float, gm_min: float | None = None, *, digits: int = 4,
                   rc_of: dict | None = None,
-                  common_mode: CommonModeLoop | None = None) -> MapSolution:
+                  common_mode: CommonModeLoop | None = None, rule=None) -> MapSolution:
     """The point with ``digits`` significant digits next to ``solution`` that keeps its
     constraints met on the maps.
 
@@ -320,7 +339,7 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
         Worst-corner gain margin to reach, dB (None: no constraint).
     digits
         Significant digits of the values.
-    rc_of, common_mode
+    rc_of, common_mode, rule
         As for :func:`solve_on_maps`.
 
     Returns
@@ -341,6 +360,13 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
         cm_short = common_mode.shortfall(
             np.array([[f[0] for f in row] for row in cm]),
             np.array([[np.inf if f[2] is None else f[2] for f in row] for row in cm]))
+    if rule is not None:  # the samples held to the rule, the other corners to the aim
+        plain = {n: m for n, m in maps.items() if n not in rule.members}
+        rows = [[predicted_worst(plain, cc, rc, rc_of) for rc in rc_values] for cc in cc_values]
+        pm = np.array([[f[0] for f in row] for row in rows])
+        gm = np.array([[np.inf if f[2] is None else f[2] for f in row] for row in rows])
+        short, _ = rule.grid(maps, np.array(cc_values), np.array(rc_values))
+        cm_short = short if cm_short is None else np.maximum(cm_short, short)
     (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min, cm_short)
     best_pm, best_ugf, best_gm, limiting = figures[i][j]
     return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,

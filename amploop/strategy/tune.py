@@ -17,7 +17,7 @@ from pathlib import Path
 from amploop.bench.amplifier import Amplifier, prepare_amplifier
 from amploop.corners.measure import JOURNAL_FILE
 from amploop.corners.outputs import OutFolder, remove_stale
-from amploop.corners.results import SCHEMA, CornerResult, loops_entry
+from amploop.corners.results import SCHEMA, CornerResult, loops_entry, statistics_entry
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, with_step
 from amploop.errors import JobError
 from amploop.sim.journal import Journal, file_digests
@@ -138,6 +138,9 @@ class TuneResult:
                 **({"common_mode_phase_margin_deg": target.common_mode_phase_margin_deg,
                     "common_mode_gain_margin_db": target.common_mode_gain_margin_db}
                    if self.job.amplifier.fully_differential else {}),
+                **({"sigma": target.sigma} if target.sigma is not None else {}),
+                **({"yield_fraction": target.yield_fraction}
+                   if target.yield_fraction is not None else {}),
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
@@ -154,6 +157,7 @@ class TuneResult:
             "device": device_json(self.outcome.extra.get("device")),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
+            **statistics_entry(self.job, self.corners),
         }
 
 
@@ -236,6 +240,11 @@ def tune(
         raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
     started = time.perf_counter()
     amplifier = prepare_amplifier(job, allow_control=allow_control)
+    if job.target.statistical and (strategy != "map" or amplifier.device is not None):
+        raise JobError("a sigma or yield target is tuned by the map strategy with a resistor "
+                       "for Rc only", file=job.path,
+                       place="[target].sigma" if job.target.sigma is not None
+                       else "[target].yield")
     if out is None:
         if resume:
             raise JobError("nothing to resume without an out folder",
