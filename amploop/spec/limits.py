@@ -7,10 +7,15 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
-__all__ = ["Analysis", "OperatingPointLimits", "ProbeKind", "Target", "Transient"]
+__all__ = ["OBJECTIVES", "Analysis", "Objective", "OperatingPointLimits", "ProbeKind", "Target",
+           "Transient"]
 
 
 ProbeKind = Literal["double-injection", "lc"]
+#: What the map strategy optimises at the margin targets: the worst-corner unity-gain
+#: frequency, or the worst-corner small-signal settling time.
+Objective = Literal["bandwidth", "settling"]
+OBJECTIVES = ("bandwidth", "settling")
 
 
 @dataclass(frozen=True)
@@ -78,6 +83,13 @@ class Target:
     common_mode_phase_margin_deg, common_mode_gain_margin_db
         The same minimums for the common-mode feedback loop of a fully-differential
         amplifier, degrees and dB; None: that loop is measured, not targeted.
+    objective
+        What the map strategy maximises at these margins: ``"bandwidth"`` (the worst-corner
+        unity-gain frequency, the default) or ``"settling"`` (it minimises the worst-corner
+        small-signal settling time into ``[transient].band``).
+    settling_time_s
+        The longest small-signal settling time any corner may have, seconds (a constraint
+        with either objective); None for no ceiling.
     """
 
     phase_margin_deg: float
@@ -85,6 +97,13 @@ class Target:
     gain_margin_db: float | None = None
     common_mode_phase_margin_deg: float | None = None
     common_mode_gain_margin_db: float | None = None
+    objective: Objective = "bandwidth"
+    settling_time_s: float | None = None
+
+    @property
+    def needs_settling(self) -> bool:
+        """Whether tuning predicts and verifies settling (the objective or a ceiling)."""
+        return self.objective == "settling" or self.settling_time_s is not None
 
 
 @dataclass(frozen=True)

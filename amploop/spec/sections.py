@@ -7,7 +7,7 @@ from __future__ import annotations
 from typing import Any
 
 from amploop.errors import did_you_mean
-from amploop.spec.limits import Analysis, OperatingPointLimits, Target, Transient
+from amploop.spec.limits import OBJECTIVES, Analysis, OperatingPointLimits, Target, Transient
 from amploop.spec.model import Bias, BiasSource, Feedback, Knob
 from amploop.spec.reader import Reader, key_path
 from amploop.spec.resistor_values import check_rc_text
@@ -207,8 +207,18 @@ def read_target(r: Reader, data: dict) -> Target | None:
                          f"expected degrees between 0 and 180, got {cm_pm:g}")
     cm_gm = data.get("common_mode_gain_margin")
     cm_gm = None if cm_gm is None else r.number(cm_gm, "[target].common_mode_gain_margin")
+    objective = data.get("objective", "bandwidth")
+    if objective not in OBJECTIVES:
+        raise r.fail("[target].objective", f"expected \"bandwidth\" or \"settling\", got "
+                     f"{objective!r}")
+    ceiling = data.get("settling_time")
+    if ceiling is not None:
+        ceiling = r.number(ceiling, "[target].settling_time")
+        if ceiling <= 0:
+            raise r.fail("[target].settling_time", "must be above 0 s, such as \"20n\"")
     return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm,
-                  common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm)
+                  common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm,
+                  objective=objective, settling_time_s=ceiling)
 
 
 def read_transient(r: Reader, data: dict) -> Transient:
@@ -284,7 +294,7 @@ MAX_TIME_LIMIT_S = 1e6
 
 
 _TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin",
-                "common_mode_gain_margin"}
+                "common_mode_gain_margin", "objective", "settling_time"}
 
 
 _TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}

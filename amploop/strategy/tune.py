@@ -138,6 +138,8 @@ class TuneResult:
                 **({"common_mode_phase_margin_deg": target.common_mode_phase_margin_deg,
                     "common_mode_gain_margin_db": target.common_mode_gain_margin_db}
                    if self.job.amplifier.fully_differential else {}),
+                "objective": target.objective,
+                "settling_time_s": target.settling_time_s,
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
@@ -152,6 +154,8 @@ class TuneResult:
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "device": device_json(self.outcome.extra.get("device")),
+            # per corner: predicted and simulated settling time (tuning for settling)
+            "settling_prediction": self.outcome.extra.get("settling"),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
@@ -170,7 +174,6 @@ def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
     if "rc" not in in_effect:
         samples = [{"cc": p["cc"]} for p in samples]
     return samples
-
 
 
 def tune(
@@ -236,6 +239,7 @@ def tune(
         raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
     started = time.perf_counter()
     amplifier = prepare_amplifier(job, allow_control=allow_control)
+    _check_settling(job, amplifier, strategy)
     if out is None:
         if resume:
             raise JobError("nothing to resume without an out folder",
@@ -252,6 +256,29 @@ def tune(
     with folder.lock(), Journal(journal_path) as journal:
         return _tune_into(job, amplifier, folder, journal, strategy, workers, pool, progress,
                           time_domain, finish, started)
+
+
+def _check_settling(job: Job, amplifier: Amplifier, strategy: str) -> None:
+    """Refuse, in one line, a settling objective or ceiling that cannot be tuned for: only
+    the map strategy predicts settling, for a single-ended amplifier with a resistor for Rc
+    in amploop's own testbench (its step check needs amploop's input)."""
+    if not job.target.needs_settling:
+        return
+    what = ("objective = \"settling\"" if job.target.objective == "settling"
+            else "settling_time")
+    place = "[target].objective" if job.target.objective == "settling" else \
+        "[target].settling_time"
+    problem = None
+    if strategy != "map":
+        problem = f"the {strategy} strategy cannot tune for settling (use the map strategy)"
+    elif job.amplifier.fully_differential:
+        problem = "not supported for a fully-differential amplifier yet"
+    elif amplifier.device is not None:
+        problem = "not supported with a MOSFET standing in for Rc yet"
+    elif amplifier.user_deck is not None:
+        problem = "not supported with the user's own [testbench] (no step check there)"
+    if problem is not None:
+        raise JobError(f"{what}: {problem}", file=job.path, place=place)
 
 
 def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal: Journal,
@@ -271,8 +298,8 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
             # rest, kept apart in the history
             evaluator.simulate(_report_samples(evaluator), kind="report-map",
                                note="samples for the report's compensation map")
-        checks = {}
-        if outcome.final is not None and time_domain:
+        checks = outcome.extra.pop("step_checks", None) or {}
+        if outcome.final is not None and time_domain and not checks:
             ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
             stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
                                              outcome.final.corners if c.status == "ok"])
@@ -331,7 +358,6 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
     gm2 = second_stage_gm(evaluator)
     lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
     return outcome, remarks + ((lead,) if lead else ())
-
 
 
 def _refuse_suspect(outcome: Outcome) -> Outcome:
