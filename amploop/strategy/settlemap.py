@@ -22,8 +22,9 @@ from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.settling import aaa_fit, settling_time
 from amploop.analysis.timedomain import suggested_stop_s
 from amploop.corners.stepcheck import step_window_s
+from amploop.errors import JobError
 
-__all__ = ["SettlingLoop", "settling_agreement"]
+__all__ = ["SettlingLoop", "refuse_settling", "settling_agreement"]
 
 
 @dataclass(frozen=True)
@@ -43,6 +44,12 @@ class SettlingLoop:
         Whether the worst-corner settling time is the objective (else only a constraint).
     ceiling_s
         The longest settling time a corner may have, seconds; None for no ceiling.
+    guard
+        The search ranks points by their settling into ``guard``·``band``. Settling time
+        jumps where a ringing peak touches the band (by half a ringing period and more),
+        and the best point of a search into the band itself sits on such a cliff, where a
+        difference of 1e-6 in the response decides which side the simulation lands on;
+        into a slightly narrower band the chosen point's peaks stay clear of the band.
     """
 
     maps: dict[str, CompensationMap]
@@ -50,6 +57,7 @@ class SettlingLoop:
     stop_s: float | None = None
     minimise: bool = True
     ceiling_s: float | None = None
+    guard: float = 0.95
 
     def window_s(self, unity_gain_hz: float) -> float:
         """The time the step run follows the output after its step, seconds, for a worst-
@@ -59,14 +67,27 @@ class SettlingLoop:
         return step_window_s(suggested_stop_s(unity_gain_hz) if unity_gain_hz > 0 else 1e-6)
 
     def corner_time(self, name: str, cc: float, rc: float, window_s: float,
-                    every: int = 1) -> float:
-        """Corner ``name``'s predicted settling time, seconds (inf: does not settle in the
-        run of ``window_s`` seconds after the step), from every ``every``-th frequency
-        (2 gives the same times to about 1e-7 at a third of the cost on the demo)."""
+                    every: int = 1, band: float | None = None) -> float:
+        """Corner ``name``'s predicted settling time, seconds (inf: does not settle in the run).
+
+        Parameters
+        ----------
+        name
+            The corner.
+        cc, rc
+            Cc, farads; Rc, ohms.
+        window_s
+            The run's length after the step, seconds.
+        every
+            Fit every ``every``-th frequency (2 gives the same times to about 1e-7 at a
+            third of the cost on the demo).
+        band
+            The settling band (a share of the step); None: the job's.
+        """
         cmap = self.maps[name]
         pick = slice(None, None, every)
         fit = aaa_fit(cmap.frequency_hz[pick], cmap.loop_gain_values(cc, rc, frequency_index=pick))
-        value = settling_time(fit, self.band, window_s=window_s)
+        value = settling_time(fit, self.band if band is None else band, window_s=window_s)
         return np.inf if value is None else value
 
     def per_corner(self, cc: float, rc: float, unity_gain_hz: float,
@@ -88,16 +109,37 @@ class SettlingLoop:
 
     def worst(self, cc: float, rc: float, unity_gain_hz: float) -> tuple[float, str]:
         """The worst-corner predicted settling time, seconds (inf: some corner does not
-        settle), and that corner."""
+        settle), and that corner.
+
+        Parameters
+        ----------
+        cc, rc
+            Cc, farads; Rc, ohms.
+        unity_gain_hz
+            The worst-corner unity-gain frequency there, Hz (sets the run's length).
+        """
         times = self.per_corner(cc, rc, unity_gain_hz)
         corner = max(times, key=times.get)
         return float(times[corner]), corner
 
     def grid(self, cc: np.ndarray, rc: np.ndarray, unity_gain_hz: np.ndarray,
              where: np.ndarray, every: int = 2) -> np.ndarray:
-        """Worst-corner settling times, seconds, on the ``cc`` × ``rc`` grid (F, Ω) at the
-        points ``where`` (a boolean mask; inf elsewhere and where a corner does not settle);
-        ``unity_gain_hz`` is the worst-corner unity-gain frequency on the grid, Hz.
+        """Worst-corner settling times into the guarded band, seconds, on a grid.
+
+        Parameters
+        ----------
+        cc, rc
+            The grid's axes, F and Ω.
+        unity_gain_hz
+            The worst-corner unity-gain frequency on the grid, Hz.
+        where
+            Boolean mask of the points to evaluate (inf elsewhere, and where a corner does
+            not settle).
+        every
+            As for :meth:`corner_time`.
+
+        Notes
+        -----
 
         Branch and bound: a point stops being evaluated as soon as one corner is slower
         than the best worst-corner time so far (minimising) or than the ceiling; its value
@@ -114,7 +156,7 @@ class SettlingLoop:
             worst = 0.0
             for name in list(order):
                 worst = max(worst, self.corner_time(name, float(cc[i]), float(rc[j]), window,
-                                                    every))
+                                                    every, self.guard * self.band))
                 if worst > best:
                     order.remove(name)
                     order.insert(0, name)      # the corner that decided, first next time
@@ -128,6 +170,15 @@ class SettlingLoop:
               feasible: np.ndarray, shortfall: np.ndarray):
         """The grid's feasibility and shortfall with the ceiling added, and the score to
         maximise (−settling time where it is the objective, else None).
+
+        Parameters
+        ----------
+        cc, rc, unity_gain_hz
+            As for :meth:`grid`.
+        feasible
+            Boolean mask of the points that meet the margins.
+        shortfall
+            How far each point misses them (degrees or dB).
 
         Settling is computed only where ``feasible`` (the margins met), as only those
         points can be chosen; a ceiling missed by 1 % counts as a shortfall of 1 (a degree
@@ -146,7 +197,15 @@ class SettlingLoop:
 def settling_agreement(predicted: dict[str, float], simulated: dict[str, float | None]
                        ) -> dict[str, dict]:
     """Per corner: the predicted and the simulated settling time (seconds) and their
-    relative difference (predicted/simulated − 1; None where either is missing)."""
+    relative difference (predicted/simulated − 1; None where either is missing).
+
+    Parameters
+    ----------
+    predicted
+        Corner name -> predicted settling time, seconds (inf: does not settle).
+    simulated
+        Corner name -> the step transient's settling time, seconds (None: not settled).
+    """
     out = {}
     for name, p in predicted.items():
         s = simulated.get(name)
@@ -154,3 +213,41 @@ def settling_agreement(predicted: dict[str, float], simulated: dict[str, float |
         rel = None if p_value is None or not s else p_value / s - 1.0
         out[name] = {"predicted_s": p_value, "simulated_s": s, "relative": rel}
     return out
+
+
+def refuse_settling(job, amplifier, strategy: str) -> None:
+    """Refuse, in one line, a settling objective or ceiling that cannot be tuned for: only
+    the map strategy predicts settling, for a single-ended amplifier with a resistor for Rc
+    in amploop's own testbench (its step check needs amploop's input).
+
+    Parameters
+    ----------
+    job
+        The loaded job (its ``target``).
+    amplifier
+        The prepared amplifier (its device standing in for Rc, its user deck).
+    strategy
+        The strategy's name.
+
+    Raises
+    ------
+    JobError
+        Naming the job file and the ``[target]`` key.
+    """
+    if not job.target.needs_settling:
+        return
+    what = ("objective = \"settling\"" if job.target.objective == "settling"
+            else "settling_time")
+    place = "[target].objective" if job.target.objective == "settling" else \
+        "[target].settling_time"
+    problem = None
+    if strategy != "map":
+        problem = f"the {strategy} strategy cannot tune for settling (use the map strategy)"
+    elif job.amplifier.fully_differential:
+        problem = "not supported for a fully-differential amplifier yet"
+    elif amplifier.device is not None:
+        problem = "not supported with a MOSFET standing in for Rc yet"
+    elif amplifier.user_deck is not None:
+        problem = "not supported with the user's own [testbench] (no step check there)"
+    if problem is not None:
+        raise JobError(f"{what}: {problem}", file=job.path, place=place)

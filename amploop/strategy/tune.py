@@ -34,8 +34,10 @@ from amploop.strategy.remarks import (
     lead_zero_remark,
     mismatch_remark,
     second_stage_gm,
+    settling_remark,
 )
 from amploop.strategy.samples import initial_samples
+from amploop.strategy.settlemap import refuse_settling
 
 __all__ = ["TuneResult", "tune"]
 
@@ -239,7 +241,7 @@ def tune(
         raise JobError(f"unknown strategy {strategy!r}" + did_you_mean(strategy, list(STRATEGIES)))
     started = time.perf_counter()
     amplifier = prepare_amplifier(job, allow_control=allow_control)
-    _check_settling(job, amplifier, strategy)
+    refuse_settling(job, amplifier, strategy)
     if out is None:
         if resume:
             raise JobError("nothing to resume without an out folder",
@@ -256,29 +258,6 @@ def tune(
     with folder.lock(), Journal(journal_path) as journal:
         return _tune_into(job, amplifier, folder, journal, strategy, workers, pool, progress,
                           time_domain, finish, started)
-
-
-def _check_settling(job: Job, amplifier: Amplifier, strategy: str) -> None:
-    """Refuse, in one line, a settling objective or ceiling that cannot be tuned for: only
-    the map strategy predicts settling, for a single-ended amplifier with a resistor for Rc
-    in amploop's own testbench (its step check needs amploop's input)."""
-    if not job.target.needs_settling:
-        return
-    what = ("objective = \"settling\"" if job.target.objective == "settling"
-            else "settling_time")
-    place = "[target].objective" if job.target.objective == "settling" else \
-        "[target].settling_time"
-    problem = None
-    if strategy != "map":
-        problem = f"the {strategy} strategy cannot tune for settling (use the map strategy)"
-    elif job.amplifier.fully_differential:
-        problem = "not supported for a fully-differential amplifier yet"
-    elif amplifier.device is not None:
-        problem = "not supported with a MOSFET standing in for Rc yet"
-    elif amplifier.user_deck is not None:
-        problem = "not supported with the user's own [testbench] (no step check there)"
-    if problem is not None:
-        raise JobError(f"{what}: {problem}", file=job.path, place=place)
 
 
 def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal: Journal,
@@ -352,7 +331,8 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
     job = evaluator.amplifier.job
     outcome = replace(outcome, message=outcome.message
                       + bound_remark(outcome.values, job.compensation))
-    remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),) if r)
+    remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),
+                                settling_remark(job, outcome.extra)) if r)
     if "rc" not in job.compensation:
         return outcome, remarks
     gm2 = second_stage_gm(evaluator)
