@@ -1,5 +1,6 @@
 """Remarks on a tuned point that are not failures: a value at or near one of its bounds,
-and a lead zero below the unity-gain frequency.
+a lead zero below the unity-gain frequency, a settling prediction the step transient does
+not confirm.
 
 The bound remark and the zero's placement are pure functions; :func:`second_stage_gm`
 reads the second-stage transconductance from ngspice's operating point through the
