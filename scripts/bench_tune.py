@@ -8,8 +8,12 @@ Run:  .venv/bin/python scripts/bench_tune.py
 - Bandwidth at the chosen point: worst-corner unity-gain frequency and phase margin of each.
 - Wall time of the map strategy with all cores vs one worker, and the share of the wall
   time the workers spent inside ngspice.
-Every run uses a fresh out folder (nothing reused) and tunes only (no step check, no
-report, whose extra analyses would blur the counts).
+- Settling: the map strategy with objective "bandwidth" and with objective "settling" at
+  the same margin targets, each verified by the step transients at every corner: the worst
+  simulated settling time, its crossover and phase margin, and the largest difference
+  between the predicted and the simulated settling time.
+Every run uses a fresh out folder (nothing reused) and, but for the settling comparison,
+tunes only (no step check, no report, whose extra analyses would blur the counts).
 """
 
 from __future__ import annotations
@@ -46,6 +50,7 @@ def main() -> None:
             print(f"{strategy:<10} {result.status:<10} {total:>5} {total / corners:>9.1f} "
                   f"{len(result.history):>6} {worst.phase_margin_deg:>8.2f}° "
                   f"{engineering(worst.unity_gain_hz, 'Hz'):>10}  {values}")
+        settling_objectives(job, Path(tmp))
         walls = {}
         shares = {}
         for workers in (default_workers(), 1):
@@ -64,6 +69,35 @@ def main() -> None:
           f"speed-up {walls[1] / walls[n]:.2f}x")
     print(f"share of wall time inside ngspice (per worker): {n} workers {shares[n]:.0%}, "
           f"1 worker {shares[1]:.0%}")
+
+
+def settling_objectives(job, tmp: Path) -> None:
+    """Print the worst-corner simulated settling of both objectives on ``job`` (step checks
+    at every corner), with the analyses each took and the prediction's agreement."""
+    from dataclasses import replace
+
+    from amploop.sim.pool import default_workers
+    from amploop.spice.units import engineering
+    from amploop.strategy.tune import tune
+
+    print(f"{'objective':<10} {'status':<10} {'AC':>5} {'tran':>5} {'worst settling':>15} "
+          f"{'worst UGF':>10} {'worst PM':>9}  agreement (predicted/simulated - 1)")
+    for objective in ("bandwidth", "settling"):
+        result = tune(replace(job, target=replace(job.target, objective=objective)),
+                      out=tmp / f"objective-{objective}", workers=default_workers())
+        times = {n: c.metrics and c.metrics.settling_s for n, c in result.step_checks.items()}
+        slowest = max(times, key=lambda n: times[n] or float("inf"))
+        worst = result.outcome.final.worst
+        agreement = result.as_json()["settling_prediction"]
+        text = "-"
+        if agreement:
+            rel = [a["relative"] for a in agreement.values() if a["relative"] is not None]
+            text = (f"slowest corner {agreement[slowest]['relative']:+.2%}, all corners "
+                    f"{min(rel):+.1%} .. {max(rel):+.1%}")
+        print(f"{objective:<10} {result.status:<10} {result.ac_run + result.ac_reused:>5} "
+              f"{result.transient_run + result.transient_reused:>5} "
+              f"{engineering(times[slowest], 's'):>15} "
+              f"{engineering(worst.unity_gain_hz, 'Hz'):>10} {worst.phase_margin_deg:>8.2f}°  {text}")
 
 
 if __name__ == "__main__":

@@ -173,7 +173,8 @@ def test_map_tuning_meets_the_target_within_tolerance(tuned):
     assert data["worst"]["phase_margin_corner"] in CORNERS
     assert data["worst"]["unity_gain_corner"] in CORNERS
     assert data["target"] == {"phase_margin_deg": TARGET_PM, "tolerance_deg": TOLERANCE,
-                              "gain_margin_db": GM_MIN}
+                              "gain_margin_db": GM_MIN, "objective": "bandwidth",
+                              "settling_time_s": None}
 
 
 def test_map_tuning_is_confirmed_by_the_exact_model(tuned):

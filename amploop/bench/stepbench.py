@@ -13,7 +13,10 @@ from amploop.bench.requests import AnalysisRequest, Step
 from amploop.spec.model import Corner
 from amploop.spice.units import spice_number
 
-__all__ = ["StepBench", "build_step_testbench"]
+__all__ = ["STEP_AT_FRACTION", "StepBench", "build_step_testbench"]
+
+#: The step comes at this share of the run's length (the settling is read over the rest).
+STEP_AT_FRACTION = 0.02
 
 
 @dataclass(frozen=True)
@@ -86,7 +89,7 @@ def build_step_testbench(
     job = amplifier.job
     full_values = amplifier.values_in_effect(values)
     job_text(job, job.bias.common_mode, "[bias].common_mode")
-    step_at = 0.02 * stop_s
+    step_at = STEP_AT_FRACTION * stop_s
     rise = 1e-4 * stop_s
     # a fully-differential amplifier gets the step in anti-phase, half on each input
     halves = (step_v / 2, -step_v / 2) if amplifier.fully_differential else (step_v,)

@@ -92,6 +92,7 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
         common_mode=common_mode,
         common_mode_loop_gain=cm_response,
         measures_common_mode=bench.loops.common_mode is not None,
+        closed_loop=bench.closed_loop_response(output) if bench.loops.closed_loop else None,
     )
 
 

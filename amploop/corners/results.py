@@ -62,6 +62,9 @@ class CornerResult:
     measures_common_mode
         Whether the job measures a common-mode loop (its results.json entry then has a
         ``common_mode`` table, null where the figures are missing).
+    closed_loop
+        The closed-loop response from the signal source to the output, V/V, when the
+        analysis ran it (tuning for settling); None otherwise.
     """
 
     corner: Corner
@@ -76,6 +79,7 @@ class CornerResult:
     common_mode: Margins | None = None
     common_mode_loop_gain: FrequencyResponse | None = field(default=None, repr=False)
     measures_common_mode: bool = False
+    closed_loop: FrequencyResponse | None = field(default=None, repr=False)
 
     @property
     def problem(self) -> str | None:

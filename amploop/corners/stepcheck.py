@@ -13,13 +13,13 @@ import numpy as np
 from amploop.analysis.timedomain import StepMetrics, step_metrics, suggested_stop_s
 from amploop.bench.amplifier import Amplifier
 from amploop.bench.nodes import NODE_AMP, NODE_AMP_N
-from amploop.bench.stepbench import build_step_testbench
+from amploop.bench.stepbench import STEP_AT_FRACTION, build_step_testbench
 from amploop.errors import SimulatorError
 from amploop.sim.runner import Runner
 from amploop.spec.model import Corner
 from amploop.spice.labels import JOURNAL_KEY
 
-__all__ = ["StepCheck", "run_step_checks", "step_stop_s", "with_step"]
+__all__ = ["StepCheck", "run_step_checks", "step_stop_s", "step_window_s", "with_step"]
 
 
 @dataclass(frozen=True)
@@ -97,6 +97,12 @@ def step_stop_s(amplifier: Amplifier, unity_gain_hz: list[float | None]) -> floa
         return amplifier.job.transient.stop_s
     known = [f for f in unity_gain_hz if f]
     return suggested_stop_s(min(known)) if known else 1e-6
+
+
+def step_window_s(stop_s: float) -> float:
+    """The time a step run of ``stop_s`` seconds follows the output after its step, seconds
+    (the ``window_s`` of :func:`~amploop.analysis.settling.settling_time` that predicts it)."""
+    return (1.0 - STEP_AT_FRACTION) * stop_s
 
 
 def run_step_checks(amplifier: Amplifier, corners: tuple[Corner, ...], values: dict[str, float],

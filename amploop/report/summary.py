@@ -153,6 +153,7 @@ def summary_pages(data: ReportData, date: str):
         gm = f", gain margin ≥ {t['gain_margin_db']:g} dB" if t.get("gain_margin_db") is not None else ""
         lines.append(f"Target: worst-corner phase margin ≥ {t['phase_margin_deg']:g}° "
                      f"(within +{t['tolerance_deg']:g}°){gm}" + _common_mode_target(t))
+        lines.append(_objective_line(t))
         lines.append(f"Chosen: {values_text(r['values'], r)}")
         if r.get("message"):
             lines.append(r["message"])
@@ -225,6 +226,18 @@ def _common_mode_target(target: dict) -> str:
     parts = ([f"phase margin ≥ {cm_pm:g}°"] if cm_pm is not None else []) + (
         [f"gain margin ≥ {cm_gm:g} dB"] if cm_gm is not None else [])
     return f"; common-mode loop: worst-corner {', '.join(parts)}" if parts else ""
+
+
+def _objective_line(target: dict) -> str:
+    """The Objective line: what was optimised at the margins, and the settling ceiling."""
+    if target.get("objective") == "settling":
+        text = ("Objective: the shortest worst-corner small-signal settling time (predicted "
+                "on the maps, verified by the step transients)")
+    else:
+        text = "Objective: the widest worst-corner unity-gain frequency"
+    ceiling = target.get("settling_time_s")
+    return text + (f"; every corner settles within {engineering(ceiling, 's')}"
+                   if ceiling is not None else "")
 
 
 def _status_notes(corners: list[dict]) -> list[str]:

@@ -7,10 +7,15 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
-__all__ = ["Analysis", "OperatingPointLimits", "ProbeKind", "Target", "Transient"]
+__all__ = ["OBJECTIVES", "Analysis", "Objective", "OperatingPointLimits", "ProbeKind", "Target",
+           "Transient"]
 
 
 ProbeKind = Literal["double-injection", "lc"]
+#: What the map strategy optimises at the margin targets: the worst-corner unity-gain
+#: frequency, or the worst-corner small-signal settling time.
+Objective = Literal["bandwidth", "settling"]
+OBJECTIVES = ("bandwidth", "settling")
 
 
 @dataclass(frozen=True)
@@ -86,6 +91,13 @@ class Target:
         With ``[monte_carlo]``: per base corner, the lower end of the 95 % Clopper–Pearson
         interval of the fraction of samples meeting every target must reach this; None: no
         such rule. At most one of ``sigma`` and ``yield_fraction`` is given.
+    objective
+        What the map strategy maximises at these margins: ``"bandwidth"`` (the worst-corner
+        unity-gain frequency, the default) or ``"settling"`` (it minimises the worst-corner
+        small-signal settling time into ``[transient].band``).
+    settling_time_s
+        The longest small-signal settling time any corner may have, seconds (a constraint
+        with either objective); None for no ceiling.
     """
 
     phase_margin_deg: float
@@ -101,6 +113,13 @@ class Target:
         """Whether the sampled corners are held to a statistical rule (``sigma`` or
         ``yield_fraction``) rather than each to the target."""
         return self.sigma is not None or self.yield_fraction is not None
+    objective: Objective = "bandwidth"
+    settling_time_s: float | None = None
+
+    @property
+    def needs_settling(self) -> bool:
+        """Whether tuning predicts and verifies settling (the objective or a ceiling)."""
+        return self.objective == "settling" or self.settling_time_s is not None
 
 
 @dataclass(frozen=True)

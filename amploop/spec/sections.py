@@ -7,7 +7,7 @@ from __future__ import annotations
 from typing import Any
 
 from amploop.errors import did_you_mean
-from amploop.spec.limits import Analysis, OperatingPointLimits, Target, Transient
+from amploop.spec.limits import OBJECTIVES, Analysis, OperatingPointLimits, Target, Transient
 from amploop.spec.model import Bias, BiasSource, Feedback, Knob
 from amploop.spec.reader import Reader, key_path
 from amploop.spec.resistor_values import check_rc_text
@@ -218,9 +218,19 @@ def read_target(r: Reader, data: dict) -> Target | None:
     if share is not None and not 0 < share < 1:
         raise r.fail("[target].yield", f"expected a fraction between 0 and 1 (such as 0.99), "
                      f"got {share:g}")
+    objective = data.get("objective", "bandwidth")
+    if objective not in OBJECTIVES:
+        raise r.fail("[target].objective", f"expected \"bandwidth\" or \"settling\", got "
+                     f"{objective!r}")
+    ceiling = data.get("settling_time")
+    if ceiling is not None:
+        ceiling = r.number(ceiling, "[target].settling_time")
+        if ceiling <= 0:
+            raise r.fail("[target].settling_time", "must be above 0 s, such as \"20n\"")
     return Target(phase_margin_deg=pm, tolerance_deg=tolerance, gain_margin_db=gm,
                   common_mode_phase_margin_deg=cm_pm, common_mode_gain_margin_db=cm_gm,
-                  sigma=sigma, yield_fraction=share)
+                  sigma=sigma, yield_fraction=share, objective=objective,
+                  settling_time_s=ceiling)
 
 
 def read_transient(r: Reader, data: dict) -> Transient:
@@ -295,9 +305,8 @@ _ANALYSIS_KEYS = {"start", "stop", "points_per_decade", "probe", "time_limit"}
 MAX_TIME_LIMIT_S = 1e6
 
 
-_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin", "sigma",
-                "yield",
-                "common_mode_gain_margin"}
+_TARGET_KEYS = {"phase_margin", "tolerance", "gain_margin", "common_mode_phase_margin",
+                "common_mode_gain_margin", "sigma", "yield", "objective", "settling_time"}
 
 
 _TRANSIENT_KEYS = {"step", "band", "stop", "resistance_share"}

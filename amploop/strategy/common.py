@@ -201,8 +201,8 @@ class Evaluator:
         """The compensation values in effect with ``values`` (by role, SI) applied."""
         return self.amplifier.values_in_effect(values)
 
-    def simulate(self, points: list[dict[str, float]], kind: str, note: str = ""
-                 ) -> list[PointResult]:
+    def simulate(self, points: list[dict[str, float]], kind: str, note: str = "",
+                 closed_loop: bool = False) -> list[PointResult]:
         """Simulate every point at every corner in one parallel batch; record history.
 
         Parameters
@@ -214,6 +214,9 @@ class Evaluator:
             (:attr:`HistoryEntry.kind`).
         note
             A remark recorded with each of them.
+        closed_loop
+            Also run each corner's closed-loop response (its
+            :attr:`~amploop.corners.results.CornerResult.closed_loop`), for settling.
 
         Returns
         -------
@@ -226,7 +229,7 @@ class Evaluator:
             for corner in self.corners:
                 label = f"{corner.name} @ " + " ".join(f"{k}={v:.4g}" for k, v in values.items())
                 benches[(i, corner.name)] = build_testbench(self.amplifier, corner, values,
-                                                            label=label)
+                                                            label=label, closed_loop=closed_loop)
         results: dict[tuple[int, str], CornerResult] = {}
         before = self.ac_analyses
         requests = [(key, b.request(self.time_limit_s)) for key, b in benches.items()]

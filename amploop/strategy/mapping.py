@@ -8,11 +8,18 @@
    prediction by more than a tenth of the tolerance (an operating point that moved, a
    triode device, a parasitic the map does not hold), characterise again around the point
    and repeat, up to ``max_rounds``. The reported margins are always the verified ones.
+
+With ``[target] objective = "settling"`` (or a ``settling_time`` ceiling) the
+characterisations also run the closed-loop response, whose maps predict the small-signal
+settling time at any point (:mod:`.settlemap`); the search minimises the worst corner's
+(or holds the ceiling), and verification adds the step transient at every corner, whose
+simulated settling times are the ones reported, beside the predictions.
 """
 
 from __future__ import annotations
 
 from amploop.analysis.compmap import CompensationMap
+from amploop.corners.stepcheck import run_step_checks, step_stop_s, step_window_s
 from amploop.spec.limits import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
@@ -20,7 +27,8 @@ from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapsolve import CommonModeLoop, MapSolution, round_on_maps, solve_on_maps
 from amploop.strategy.samplerule import sample_rule
 from amploop.strategy.samples import initial_samples, samples_around
-from amploop.strategy.worst import missed_target, worst_text
+from amploop.strategy.settlemap import SettlingLoop, settling_agreement
+from amploop.strategy.worst import missed_settling, missed_target, settling_text, worst_text
 
 __all__ = ["tune_by_map"]
 
@@ -58,6 +66,32 @@ def _common_mode(evaluator: Evaluator, results: list[PointResult], target: Targe
     return CommonModeLoop(_maps(evaluator, results, "common_mode_loop_gain"),
                           None if aim is None else aim + 0.1 * target.tolerance_deg,
                           target.common_mode_gain_margin_db)
+
+
+def _settling(evaluator: Evaluator, results: list[PointResult], target: Target
+              ) -> SettlingLoop | None:
+    """The closed loop on its maps with the settling objective and ceiling of ``target``;
+    None when the target asks nothing of settling."""
+    if not target.needs_settling:
+        return None
+    transient = evaluator.amplifier.job.transient
+    return SettlingLoop(_maps(evaluator, results, "closed_loop"), transient.band,
+                        transient.stop_s, minimise=target.objective == "settling",
+                        ceiling_s=target.settling_time_s)
+
+
+def _verify_settling(evaluator: Evaluator, settling: SettlingLoop, verified: PointResult,
+                     point: dict[str, float]) -> tuple[dict, dict]:
+    """The step checks at the verified point (every corner that measured), and per corner
+    the predicted and simulated settling times over the same run."""
+    ok = [c for c in verified.corners if c.status == "ok"]
+    stop_s = step_stop_s(evaluator.amplifier, [c.margins.unity_gain_hz for c in ok])
+    checks = run_step_checks(evaluator.amplifier, tuple(c.corner for c in ok), verified.values,
+                             evaluator.runner, stop_s, evaluator.time_limit_s)
+    predicted = settling.per_corner(point["cc"], point.get("rc", 0.0), 0.0,
+                                    window_s=step_window_s(stop_s))
+    simulated = {n: c.metrics and c.metrics.settling_s for n, c in checks.items()}
+    return checks, settling_agreement(predicted, simulated)
 
 
 def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) -> Outcome:
@@ -105,18 +139,20 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     for round_number in range(1, max_rounds + 1):
         characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
                                            kind="characterise",
-                                           note=f"round {round_number}")
+                                           note=f"round {round_number}",
+                                           closed_loop=target.needs_settling)
         failed = next((p for p in characterised if p.errors), None)
         if failed is not None:
             return not_simulated(failed, in_effect)
         maps = _maps(evaluator, characterised)
         common_mode = _common_mode(evaluator, characterised, target)
+        settling = _settling(evaluator, characterised, target)
         optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db,
-                                common_mode=common_mode, rule=rule)
+                                common_mode=common_mode, rule=rule, settling=settling)
         # 4 significant digits, what a designer writes into the netlist and what is
         # verified, chosen on the maps so that rounding keeps every constraint met
         solution = round_on_maps(maps, optimum, cc_bounds, rc_bounds, aim, target.gain_margin_db,
-                                 common_mode=common_mode, rule=rule)
+                                 common_mode=common_mode, rule=rule, settling=settling)
         point = knob_values({"cc": solution.cc, "rc": solution.rc}, has_rc)
         verified = evaluator.simulate([point], kind="verify",
                                       note=f"round {round_number}")[0]
@@ -130,6 +166,10 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     assert solution is not None and verified is not None
     worst = verified.worst
     extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
+    if settling is not None and not verified.errors:
+        # verification in the time domain: the step transients at every corner
+        extra["step_checks"], extra["settling"] = _verify_settling(
+            evaluator, settling, verified, {"cc": solution.cc, "rc": solution.rc})
     if not solution.feasible:
         if rule is not None:
             return Outcome("infeasible", verified.values, verified,
@@ -152,9 +192,13 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             _statistical_miss(verified, target)))) or None
     else:
         missed = missed_target(verified.corners, target)
+    if missed is None and settling is not None:
+        missed = missed_settling(extra["step_checks"], target)
     if missed is not None:
         return Outcome("failed", verified.values, verified, missed, extra)
     text = worst_text(worst, target) if rule is None else _statistical_text(verified, target)
+    if settling is not None:
+        text += settling_text(extra["step_checks"])
     return Outcome("converged", verified.values, verified,
                    f"{text} at " + describe_values(verified.values), extra)
 

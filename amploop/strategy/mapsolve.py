@@ -21,6 +21,7 @@ import numpy as np
 
 from amploop.analysis.compmap import CompensationMap
 from amploop.analysis.margins import grid_margins, loop_margins
+from amploop.strategy.settlemap import SettlingLoop
 
 __all__ = ["CommonModeLoop", "MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
            "rounded_neighbours", "solve_on_maps"]
@@ -50,6 +51,11 @@ class MapSolution:
     common_mode_phase_margin_deg
         The predicted worst-corner phase margin of the common-mode loop, degrees; None
         without one.
+    settling_time_s
+        The predicted worst-corner small-signal settling time, seconds (inf: a corner does
+        not settle in the step run); None when settling is not predicted.
+    settling_corner
+        The corner with the longest predicted settling time; None without one.
     """
 
     cc: float
@@ -60,6 +66,8 @@ class MapSolution:
     gain_margin_db: float | None
     phase_margin_corner: str
     common_mode_phase_margin_deg: float | None = None
+    settling_time_s: float | None = None
+    settling_corner: str | None = None
 
 
 @dataclass(frozen=True)
@@ -149,14 +157,24 @@ def _score(pm_w, ugf_w, gm_w, aim_pm: float, gm_min: float | None):
     return feasible, shortfall
 
 
-def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, cm_short=None):
+def _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, cm_short=None, judge=None):
+    """The best grid index and whether it is feasible; ``judge``(feasible, shortfall) adds
+    the settling constraint and objective (:meth:`~.settlemap.SettlingLoop.judge`)."""
     feasible, shortfall = _score(pm_w, ugf_w, gm_w, aim_pm, gm_min)
     if cm_short is not None:  # the common-mode loop's constraints
         feasible = feasible & (cm_short <= 0)
         shortfall = np.maximum(shortfall, cm_short)
+    objective = ugf_w
+    if judge is not None:
+        feasible, shortfall, settling_score = judge(feasible, shortfall)
+        if settling_score is not None:
+            objective = settling_score
     if feasible.any():
-        score = np.where(feasible, ugf_w, -np.inf)
-        return np.unravel_index(np.argmax(score), score.shape), True
+        # ties (the same settling time) go to the larger unity-gain frequency
+        score = np.where(feasible, objective, -np.inf)
+        best = np.nonzero(score == score.max())
+        pick = int(np.argmax(ugf_w[best]))
+        return (int(best[0][pick]), int(best[1][pick])), True
     # nothing feasible: least shortfall, then the largest phase margin
     score = -shortfall * 1e3 + np.where(np.isfinite(pm_w), pm_w, -1e9) * 1e-3
     return np.unravel_index(np.argmax(score), score.shape), False
@@ -203,8 +221,10 @@ def solve_on_maps(
     rc_of: dict | None = None,
     common_mode: CommonModeLoop | None = None,
     rule=None,
+    settling: SettlingLoop | None = None,
 ) -> MapSolution:
-    """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps.
+    """The (Cc, Rc) that maximises the worst-corner unity-gain frequency on the maps (or
+    minimises the worst-corner settling time).
 
     Parameters
     ----------
@@ -230,6 +250,10 @@ def solve_on_maps(
         The statistical rule for the Monte Carlo samples among the corners
         (:class:`~.samplerule.SampleRule`): they are held to it instead of each to the aim;
         None: every corner to the aim.
+    settling
+        The closed loop's maps: its settling time becomes the objective (``minimise``) and
+        its ceiling a constraint. Settling is computed at the points that meet the margins
+        only; the coarse grid then has at most 15 points per axis and the zooms 7 × 7.
 
     Returns
     -------
@@ -237,28 +261,42 @@ def solve_on_maps(
         ``feasible`` False means no grid point met the constraints; the point returned then
         has the least shortfall (the best worst-corner margin reachable).
     """
-    def figures(cc, rc, every=1):
-        return _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule)
+    def best(cc, rc, every=1):
+        pm_w, ugf_w, gm_w, extra = _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule)
+        judge = None if settling is None else (
+            lambda feasible, short: settling.judge(cc, rc, ugf_w, feasible, short))
+        return _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, extra, judge)
 
+    if settling is not None:
+        points = min(points, 15)
+    side = 9 if settling is None else 7
     cc = cc_grid(*cc_bounds, points)
     rc = rc_grid(*rc_bounds, points)
-    pm_w, ugf_w, gm_w, extra = figures(cc, rc, 2)
-    (i, j), feasible = _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, extra)
+    (i, j), feasible = best(cc, rc, every=2)
     best_cc, best_rc = float(cc[i]), float(rc[j])
     for _ in range(zooms):
         cc_lo, cc_hi = cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)]
         rc_lo, rc_hi = rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)]
-        cc = np.unique(np.concatenate([np.geomspace(cc_lo, cc_hi, 9) if cc_hi > cc_lo
+        cc = np.unique(np.concatenate([np.geomspace(cc_lo, cc_hi, side) if cc_hi > cc_lo
                                        else [cc_lo], [best_cc]]))
-        rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, 9) if rc_hi > rc_lo
+        rc = np.unique(np.concatenate([np.linspace(rc_lo, rc_hi, side) if rc_hi > rc_lo
                                        else [rc_lo], [best_rc]]))
-        pm_w, ugf_w, gm_w, extra = figures(cc, rc)
-        (i, j), feasible = _best_index(pm_w, ugf_w, gm_w, aim_pm, gm_min, extra)
+        (i, j), feasible = best(cc, rc)
         best_cc, best_rc = float(cc[i]), float(rc[j])
     pm, ugf, gm, limiting = predicted_worst(maps, best_cc, best_rc, rc_of)
     return MapSolution(cc=best_cc, rc=best_rc, feasible=feasible, phase_margin_deg=pm,
                        unity_gain_hz=ugf, gain_margin_db=gm, phase_margin_corner=limiting,
-                       common_mode_phase_margin_deg=_cm_pm(common_mode, best_cc, best_rc))
+                       common_mode_phase_margin_deg=_cm_pm(common_mode, best_cc, best_rc),
+                       **_settling_of(settling, best_cc, best_rc, ugf))
+
+
+def _settling_of(settling: SettlingLoop | None, cc: float, rc: float, ugf: float) -> dict:
+    """The predicted worst-corner settling time and its corner at (``cc``, ``rc``), as
+    :class:`MapSolution` fields (none without ``settling``)."""
+    if settling is None:
+        return {}
+    time_s, corner = settling.worst(cc, rc, ugf)
+    return {"settling_time_s": time_s, "settling_corner": corner}
 
 
 def _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule):
@@ -314,7 +352,8 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
                   cc_bounds: tuple[float, float], rc_bounds: tuple[float, float],
                   aim_pm: float, gm_min: float | None = None, *, digits: int = 4,
                   rc_of: dict | None = None,
-                  common_mode: CommonModeLoop | None = None, rule=None) -> MapSolution:
+                  common_mode: CommonModeLoop | None = None, rule=None,
+                  settling: SettlingLoop | None = None) -> MapSolution:
     """The point with ``digits`` significant digits next to ``solution`` that keeps its
     constraints met on the maps.
 
@@ -339,7 +378,7 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
         Worst-corner gain margin to reach, dB (None: no constraint).
     digits
         Significant digits of the values.
-    rc_of, common_mode, rule
+    rc_of, common_mode, rule, settling
         As for :func:`solve_on_maps`.
 
     Returns
@@ -367,8 +406,11 @@ def round_on_maps(maps: dict[str, CompensationMap], solution: MapSolution,
         gm = np.array([[np.inf if f[2] is None else f[2] for f in row] for row in rows])
         short, _ = rule.grid(maps, np.array(cc_values), np.array(rc_values))
         cm_short = short if cm_short is None else np.maximum(cm_short, short)
-    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min, cm_short)
+    judge = None if settling is None else (lambda feasible, short: settling.judge(
+        np.array(cc_values), np.array(rc_values), ugf, feasible, short))
+    (i, j), _ = _best_index(pm, ugf, gm, aim_pm, gm_min, cm_short, judge)
     best_pm, best_ugf, best_gm, limiting = figures[i][j]
     return replace(solution, cc=cc_values[i], rc=rc_values[j], phase_margin_deg=best_pm,
                    unity_gain_hz=best_ugf, gain_margin_db=best_gm, phase_margin_corner=limiting,
-                   common_mode_phase_margin_deg=_cm_pm(common_mode, cc_values[i], rc_values[j]))
+                   common_mode_phase_margin_deg=_cm_pm(common_mode, cc_values[i], rc_values[j]),
+                   **_settling_of(settling, cc_values[i], rc_values[j], best_ugf))

@@ -1,5 +1,6 @@
 """Remarks on a tuned point that are not failures: a value at or near one of its bounds,
-and a lead zero below the unity-gain frequency.
+a lead zero below the unity-gain frequency, a settling prediction the step transient does
+not confirm.
 
 The bound remark and the zero's placement are pure functions; :func:`second_stage_gm`
 reads the second-stage transconductance from ngspice's operating point through the
@@ -17,7 +18,11 @@ from amploop.spec.model import Knob
 from amploop.spice.units import engineering
 from amploop.strategy.common import Evaluator, gm_quantity
 
-__all__ = ["NEAR_BOUND", "bound_remark", "lead_zero_remark", "mismatch_remark", "second_stage_gm"]
+__all__ = ["NEAR_BOUND", "SETTLING_AGREEMENT", "bound_remark", "lead_zero_remark", "mismatch_remark",
+           "second_stage_gm", "settling_remark"]
+
+#: Predicted and simulated settling times further apart than this share get a remark.
+SETTLING_AGREEMENT = 0.05
 
 #: A value within this share of a bound counts as near it (19.9 kΩ against 20 kΩ: 0.5 %).
 NEAR_BOUND = 0.02
@@ -137,6 +142,33 @@ def mismatch_remark(job, extra: dict) -> str | None:
             f"and were characterised again around the point ({rounds} rounds): with "
             "mismatched halves the loop gain is a ratio of quadratics in the branch "
             "impedance, not bilinear; the reported margins are the simulated ones")
+
+
+def settling_remark(job, extra: dict) -> str | None:
+    """A remark when a corner's simulated settling time (the step transient) differs from
+    the small-signal prediction of the maps by more than SETTLING_AGREEMENT (``extra``:
+    the map strategy's record, with ``settling`` per corner); None otherwise. The maps are
+    exact to about 1e-12 in the response; what differs is the transient's step, whose
+    weak nonlinearity moves a settling time into a 0.1 % band by tens of percent.
+
+    Parameters
+    ----------
+    job
+        The job (its ``[transient].step``).
+    extra
+        The map strategy's record.
+    """
+    agreement = extra.get("settling") or {}
+    far = {n: a["relative"] for n, a in agreement.items()
+           if a["relative"] is not None and abs(a["relative"]) > SETTLING_AGREEMENT}
+    if not far:
+        return None
+    name = max(far, key=lambda n: abs(far[n]))
+    return (f"corner {name}: the simulated settling time differs from the small-signal "
+            f"prediction by {far[name]:+.0%} ({len(far)} corners beyond "
+            f"{SETTLING_AGREEMENT:.0%}): the step [transient].step = "
+            f"{engineering(abs(job.transient.step_v), 'V')} is not small enough for this "
+            "amplifier to be linear; a smaller step brings them together")
 
 
 def second_stage_gm(evaluator: Evaluator) -> dict[str, float] | None:

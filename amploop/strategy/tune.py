@@ -34,8 +34,10 @@ from amploop.strategy.remarks import (
     lead_zero_remark,
     mismatch_remark,
     second_stage_gm,
+    settling_remark,
 )
 from amploop.strategy.samples import initial_samples
+from amploop.strategy.settlemap import refuse_settling
 
 __all__ = ["TuneResult", "tune"]
 
@@ -141,6 +143,8 @@ class TuneResult:
                 **({"sigma": target.sigma} if target.sigma is not None else {}),
                 **({"yield_fraction": target.yield_fraction}
                    if target.yield_fraction is not None else {}),
+                "objective": target.objective,
+                "settling_time_s": target.settling_time_s,
             },
             "corners": [with_step(c.as_json(), self.step_checks.get(c.corner.name))
                         for c in self.corners],
@@ -155,6 +159,8 @@ class TuneResult:
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "device": device_json(self.outcome.extra.get("device")),
+            # per corner: predicted and simulated settling time (tuning for settling)
+            "settling_prediction": self.outcome.extra.get("settling"),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
             **statistics_entry(self.job, self.corners),
@@ -174,7 +180,6 @@ def _report_samples(evaluator: _Evaluator) -> list[dict[str, float]]:
     if "rc" not in in_effect:
         samples = [{"cc": p["cc"]} for p in samples]
     return samples
-
 
 
 def tune(
@@ -245,6 +250,7 @@ def tune(
                        "for Rc only", file=job.path,
                        place="[target].sigma" if job.target.sigma is not None
                        else "[target].yield")
+    refuse_settling(job, amplifier, strategy)
     if out is None:
         if resume:
             raise JobError("nothing to resume without an out folder",
@@ -280,8 +286,8 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
             # rest, kept apart in the history
             evaluator.simulate(_report_samples(evaluator), kind="report-map",
                                note="samples for the report's compensation map")
-        checks = {}
-        if outcome.final is not None and time_domain:
+        checks = outcome.extra.pop("step_checks", None) or {}
+        if outcome.final is not None and time_domain and not checks:
             ok = tuple(c.corner for c in outcome.final.corners if c.status == "ok")
             stop_s = step_stop_s(amplifier, [c.margins.unity_gain_hz for c in
                                              outcome.final.corners if c.status == "ok"])
@@ -334,13 +340,13 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
     job = evaluator.amplifier.job
     outcome = replace(outcome, message=outcome.message
                       + bound_remark(outcome.values, job.compensation))
-    remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),) if r)
+    remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),
+                                settling_remark(job, outcome.extra)) if r)
     if "rc" not in job.compensation:
         return outcome, remarks
     gm2 = second_stage_gm(evaluator)
     lead = gm2 and lead_zero_remark(outcome.values, outcome.final.corners, gm2)
     return outcome, remarks + ((lead,) if lead else ())
-
 
 
 def _refuse_suspect(outcome: Outcome) -> Outcome:

@@ -9,8 +9,10 @@ from dataclasses import dataclass, replace
 from amploop.corners.results import CornerResult
 from amploop.spec.limits import Target
 from amploop.spice.labels import COMMON_MODE, PHASE_MARGIN_CORNER, UNITY_GAIN_CORNER
+from amploop.spice.units import engineering
 
-__all__ = ["WorstCase", "corner_shortfall", "limiting_loop", "meets_target", "missed_target", "worst_case", "worst_text"]
+__all__ = ["WorstCase", "corner_shortfall", "limiting_loop", "meets_target", "missed_settling",
+           "missed_target", "settling_text", "worst_case", "worst_text"]
 
 
 @dataclass(frozen=True)
@@ -202,3 +204,49 @@ def missed_target(corners: tuple[CornerResult, ...], target: Target) -> str | No
             missed.append(f"the verified {what} {_below(value, bound, unit)} at corner "
                           f"{worst.corner.name} misses the target {bound:g}{unit}")
     return "; ".join(missed) or None
+
+
+def _slowest(checks: dict) -> tuple[str, float | None] | None:
+    """(corner, simulated settling time in seconds, None: not settled) of the slowest step
+    check in ``checks`` (corner name -> StepCheck); None when there are none."""
+    times = {n: (c.metrics.settling_s if c.metrics is not None else None)
+             for n, c in checks.items()}
+    if not times:
+        return None
+    name = max(times, key=lambda n: float("inf") if times[n] is None else times[n])
+    return name, times[name]
+
+
+def settling_text(checks: dict) -> str:
+    """``", worst-corner settling 35.1 ns (corner X)"`` from the step checks ``checks``
+    (corner name -> StepCheck); empty without any."""
+    slowest = _slowest(checks)
+    if slowest is None:
+        return ""
+    name, value = slowest
+    shown = "not settled in its run" if value is None else engineering(value, "s")
+    return f", worst-corner settling {shown} (corner {name})"
+
+
+def missed_settling(checks: dict, target: Target) -> str | None:
+    """One sentence on the settling ceiling the simulated step checks miss, naming the
+    corner; None when every corner settles within it (or there is no ceiling).
+
+    Parameters
+    ----------
+    checks
+        Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` at the verified point.
+    target
+        Its ``settling_time_s`` is the ceiling, seconds.
+    """
+    ceiling = target.settling_time_s
+    slowest = _slowest(checks)
+    if ceiling is None or slowest is None:
+        return None
+    name, value = slowest
+    if value is not None and value <= ceiling:
+        return None
+    shown = "does not settle within its run" if value is None else \
+        f"settling time {engineering(value, 's', 4)}"
+    return (f"the verified {shown} at corner {name} misses the target "
+            f"{engineering(ceiling, 's')}")
