@@ -15,7 +15,7 @@ from amploop.report.data import ReportData
 from amploop.report.pages import new_page, values_text
 from amploop.report.selection import EVERY_CORNER_UP_TO
 from amploop.spice.units import engineering
-from amploop.strategy.mapsolve import cc_grid
+from amploop.strategy.mapgrid import cc_grid
 
 
 def _map_margins(cmap, cc: np.ndarray, rc: np.ndarray, pick=slice(None)):

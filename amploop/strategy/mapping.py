@@ -24,7 +24,8 @@ from amploop.spec.limits import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
-from amploop.strategy.mapsolve import CommonModeLoop, MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.mapgrid import CommonModeLoop
+from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
 from amploop.strategy.samplerule import sample_rule
 from amploop.strategy.samples import initial_samples, samples_around
 from amploop.strategy.settlemap import SettlingLoop, settling_agreement

@@ -20,11 +20,12 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from amploop.analysis.compmap import CompensationMap
-from amploop.analysis.margins import grid_margins, loop_margins
+from amploop.analysis.margins import loop_margins
+from amploop.strategy.mapgrid import CommonModeLoop, cc_grid, rc_grid, worst_on_grid
 from amploop.strategy.settlemap import SettlingLoop
 
-__all__ = ["CommonModeLoop", "MapSolution", "cc_grid", "predicted_worst", "rc_grid", "round_on_maps",
-           "rounded_neighbours", "solve_on_maps"]
+__all__ = ["MapSolution", "predicted_worst", "round_on_maps", "rounded_neighbours",
+           "solve_on_maps"]
 
 
 @dataclass(frozen=True)
@@ -68,83 +69,6 @@ class MapSolution:
     common_mode_phase_margin_deg: float | None = None
     settling_time_s: float | None = None
     settling_corner: str | None = None
-
-
-@dataclass(frozen=True)
-class CommonModeLoop:
-    """A fully-differential amplifier's common-mode loop on the maps, and what it must reach.
-
-    Attributes
-    ----------
-    maps
-        One compensation map of the common-mode loop gain per corner (by name).
-    aim_pm
-        Its worst-corner phase margin to reach, degrees; None: not constrained.
-    gm_min
-        Its worst-corner gain margin to reach, dB; None: not constrained.
-    """
-
-    maps: dict[str, CompensationMap]
-    aim_pm: float | None = None
-    gm_min: float | None = None
-
-    def grid(self, cc: np.ndarray, rc: np.ndarray, every: int = 1):
-        """Its worst-corner (PM, GM) on the ``cc`` × ``rc`` grid (F, Ω), at every ``every``-th
-        frequency."""
-        pm_w, _, gm_w, _ = _worst_on_grid(self.maps, cc, rc, every)
-        return pm_w, gm_w
-
-    def shortfall(self, pm_w, gm_w):
-        """How far (degrees or dB, 0 where met) the grid figures ``pm_w``, ``gm_w`` miss."""
-        short = np.zeros_like(pm_w)
-        if self.aim_pm is not None:
-            short = np.maximum(short, self.aim_pm - pm_w)
-        if self.gm_min is not None:
-            short = np.maximum(short, np.where(np.isfinite(gm_w), self.gm_min - gm_w, 0.0))
-        return short
-
-
-def cc_grid(low: float, high: float, n: int) -> np.ndarray:
-    """``n`` log-spaced capacitances (F) over [``low``, ``high``]; ``low`` alone when
-    ``high`` is not above it."""
-    if high <= low:
-        return np.array([low])
-    return np.geomspace(low, high, n)
-
-
-def rc_grid(low: float, high: float, n: int) -> np.ndarray:
-    """``n`` resistances (Ω) over [``low``, ``high``]: log-spaced, or, when ``low`` is 0, 0
-    and ``n`` − 1 log-spaced from 1e-4·``high`` (1 mΩ at least); ``low`` alone when ``high``
-    is not above it."""
-    if high <= low:
-        return np.array([low])
-    if low <= 0:
-        return np.concatenate([[0.0], np.geomspace(max(high * 1e-4, 1e-3), high, n - 1)])
-    return np.geomspace(low, high, n)
-
-
-def _worst_on_grid(maps: dict[str, CompensationMap], cc: np.ndarray, rc: np.ndarray,
-                   every: int = 1, rc_of=None):
-    """Worst-corner PM (deg), UGF (Hz), GM (dB) on the cc × rc grid, and the PM corner.
-
-    ``every`` > 1 uses every n-th analysis frequency (a faster, coarser first look)."""
-    shape = (cc.size, rc.size)
-    pm_w = np.full(shape, np.inf)
-    ugf_w = np.full(shape, np.inf)
-    gm_w = np.full(shape, np.inf)
-    limiting = np.zeros(shape, dtype=int)
-    for index, (name, cmap) in enumerate(maps.items()):
-        pick = slice(None, None, every)
-        rc_here = rc if rc_of is None else rc_of[name](rc)
-        values = cmap.loop_gain_values(cc[:, None], rc_here[None, :], frequency_index=pick)
-        pm, ugf, gm = grid_margins(cmap.frequency_hz[pick], values)
-        pm = np.where(np.isnan(pm), -np.inf, pm)
-        ugf = np.where(np.isnan(ugf), 0.0, ugf)
-        limiting = np.where(pm < pm_w, index, limiting)
-        pm_w = np.minimum(pm_w, pm)
-        ugf_w = np.minimum(ugf_w, ugf)
-        gm_w = np.minimum(gm_w, gm)
-    return pm_w, ugf_w, gm_w, limiting
 
 
 def _score(pm_w, ugf_w, gm_w, aim_pm: float, gm_min: float | None):
@@ -304,7 +228,7 @@ def _grid_figures(maps, cc, rc, every, rc_of, common_mode, rule):
     PM and GM over the corners held to the aim one by one (all but ``rule``'s samples), UGF
     over every corner, and the shortfall of the common-mode loop and of ``rule``."""
     plain = maps if rule is None else {n: m for n, m in maps.items() if n not in rule.members}
-    pm_w, ugf_w, gm_w, _ = _worst_on_grid(plain, cc, rc, every, rc_of)
+    pm_w, ugf_w, gm_w, _ = worst_on_grid(plain, cc, rc, every, rc_of)
     extra = None if common_mode is None else common_mode.shortfall(
         *common_mode.grid(cc, rc, every))
     if rule is not None:
