@@ -228,9 +228,11 @@ def test_bundle_runs_where_the_files_are_gone(tmp_path):
     bundled = replace(request, files=FileBundler().bundle(request.deck))
     root = tmp_path / "project"
     cards = root / "models" / "cards"
+    sections = [line.split()[1].lower() for line in (DEMO / "models.lib").read_text()
+                .splitlines() if line.lower().split()[:1] == [".lib"] and len(line.split()) == 2]
     assert [p for p, _ in bundled.files] == [  # ngspice reads the includes of every section
-        str(root / "models" / "models.lib"), str(cards / "tt.inc"), str(cards / "ss.inc"),
-        str(cards / "ff.inc"), str(cards / "extra.inc")]
+        str(root / "models" / "models.lib"), *(str(cards / f"{s}.inc") for s in sections),
+        str(cards / "extra.inc")]
     (tmp_path / "project").rename(tmp_path / "moved")
     try:
         with WorkerPool(1) as pool:
