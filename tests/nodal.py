@@ -238,3 +238,22 @@ def exact_step(m: Macromodel, time_s: np.ndarray) -> np.ndarray:
     h0, c, p = exact_step_terms(m)
     t = np.asarray(time_s, dtype=float)[..., None]
     return h0 + np.real(np.sum(c * np.exp(p * t), axis=-1))
+
+
+def zoomed_grid_optimum(score, cc_bounds: tuple[float, float], rc_high: float, *,
+                        rc_low: float = 50.0, points: int = 14, zoom: int = 7,
+                        levels: int = 3) -> tuple[float, float, float]:
+    """(best score, Cc, Rc) of ``score(cc, rc)`` (−inf where infeasible) over a grid of
+    ``points`` log-spaced Cc within ``cc_bounds`` and Rc = 0 plus ``points`` − 1 log-spaced
+    from ``rc_low`` to ``rc_high`` ohms, zoomed ``levels`` − 1 times to ``zoom`` × ``zoom``
+    around the best point: the tests' exhaustive search on an exact model."""
+    cc = np.geomspace(*cc_bounds, points)
+    rc = np.concatenate([[0.0], np.geomspace(rc_low, rc_high, points - 1)])
+    best = None
+    for _ in range(levels):
+        grid = np.array([[score(c, r) for r in rc] for c in cc])
+        i, j = np.unravel_index(np.argmax(grid), grid.shape)
+        best = (float(grid[i, j]), float(cc[i]), float(rc[j]))
+        cc = np.geomspace(cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)], zoom)
+        rc = np.linspace(rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)], zoom)
+    return best

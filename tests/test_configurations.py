@@ -13,7 +13,7 @@ import json
 
 import numpy as np
 import pytest
-from nodal import Macromodel, dense_margins, exact_loop_gain
+from nodal import Macromodel, dense_margins, exact_loop_gain, zoomed_grid_optimum
 
 from amploop.cli import main
 from amploop.corners.measure import measure
@@ -82,21 +82,11 @@ def _exact_worst(cc: float, rc: float) -> tuple[float, float]:
 
 def exhaustive_optimum() -> tuple[float, float, float]:
     """Max worst UGF with every point's PM ≥ the target, on grids that zoom in twice."""
-    cc = np.geomspace(*CC_BOUNDS, 14)
-    rc = np.concatenate([[0.0], np.geomspace(50.0, RC_BOUNDS[1], 13)])
-    best = None
-    for _ in range(3):
-        score = np.full((cc.size, rc.size), -np.inf)
-        for i, c in enumerate(cc):
-            for j, r in enumerate(rc):
-                pm, ugf = _exact_worst(c, r)
-                if pm >= TARGET_PM:
-                    score[i, j] = ugf
-        i, j = np.unravel_index(np.argmax(score), score.shape)
-        best = (float(score[i, j]), float(cc[i]), float(rc[j]))
-        cc = np.geomspace(cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)], 7)
-        rc = np.linspace(rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)], 7)
-    return best
+    def score(cc: float, rc: float) -> float:
+        pm, ugf = _exact_worst(cc, rc)
+        return ugf if pm >= TARGET_PM else -np.inf
+
+    return zoomed_grid_optimum(score, CC_BOUNDS, RC_BOUNDS[1])
 
 
 @pytest.fixture(scope="module")

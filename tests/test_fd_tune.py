@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from nodal import dense_margins
+from nodal import dense_margins, zoomed_grid_optimum
 from nodal_fd import CM_LIMITED, common_mode_loop_gain, differential_loop_gain
 from test_fd_measure import fd_job
 
@@ -48,21 +48,13 @@ def _exact(model, cc: float, rc: float) -> tuple:
 def exhaustive_optimum() -> tuple[float, float, float]:
     """Max worst-corner differential UGF subject to both phase-margin targets, on grids
     over the bounds that zoom in twice."""
-    cc = np.geomspace(*CC_BOUNDS, 14)
-    rc = np.concatenate([[0.0], np.geomspace(20.0, RC_BOUNDS[1], 13)])
-    best = None
-    for _ in range(3):
-        score = np.full((cc.size, rc.size), -np.inf)
-        for i, c in enumerate(cc):
-            for j, r in enumerate(rc):
-                figures = [_exact(model, c, r) for model in CORNERS.values()]
-                if all(pm >= TARGET_PM and cm >= CM_TARGET_PM for pm, _, cm in figures):
-                    score[i, j] = min(ugf for _, ugf, _ in figures)
-        i, j = np.unravel_index(np.argmax(score), score.shape)
-        best = (float(score[i, j]), float(cc[i]), float(rc[j]))
-        cc = np.geomspace(cc[max(i - 1, 0)], cc[min(i + 1, cc.size - 1)], 7)
-        rc = np.linspace(rc[max(j - 1, 0)], rc[min(j + 1, rc.size - 1)], 7)
-    return best
+    def score(cc: float, rc: float) -> float:
+        figures = [_exact(model, cc, rc) for model in CORNERS.values()]
+        if all(pm >= TARGET_PM and cm >= CM_TARGET_PM for pm, _, cm in figures):
+            return min(ugf for _, ugf, _ in figures)
+        return -np.inf
+
+    return zoomed_grid_optimum(score, CC_BOUNDS, RC_BOUNDS[1], rc_low=20.0)
 
 
 @pytest.fixture(scope="module")
