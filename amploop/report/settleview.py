@@ -123,8 +123,17 @@ def _levels(times: np.ndarray, ceiling: float | None) -> list[float]:
 
 
 def settling_contours(ax, data: ReportData, cc_bounds, rc_bounds) -> tuple[list, str]:
-    """Draw labelled contours of the worst-corner predicted settling time over the plane
-    (``cc_bounds`` in F, ``rc_bounds`` in Ω), the ceiling bold where there is one.
+    """Draw labelled contours of the worst-corner predicted settling time over the plane,
+    the ceiling bold where there is one.
+
+    Parameters
+    ----------
+    ax
+        The map page's axes.
+    data
+        The out folder's figures (its ``cl_maps``, ``maps`` and results.json).
+    cc_bounds, rc_bounds
+        The plane drawn: (min, max) of Cc in F and of Rc in Ω.
 
     Returns
     -------

@@ -236,7 +236,7 @@ def _unreachable(worst, target: Target, checks: dict | None = None) -> str:
     if missed is not None and worst.phase_margin_deg >= target.phase_margin_deg:
         ceiling = engineering(target.settling_time_s, "s")
         return (f"no Cc, Rc within the bounds meets the settling time {ceiling} "
-                f"at every corner with the margins: at the point settling fastest on the maps, "
+                f"at every corner with the margins; at the point of least shortfall on the maps, "
                 f"{missed.removeprefix('the ')} at ")
     cm = worst.common_mode
     cm_target = target.common_mode_phase_margin_deg
