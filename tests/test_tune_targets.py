@@ -162,7 +162,8 @@ def test_a_tune_that_misses_its_target_writes_and_announces_no_compensated_netli
 
 def test_values_near_a_bound_are_noted():
     """19.9 kΩ against a 20 kΩ bound is within 0.5 % of it; on it, "at"; far from it, no
-    note; Rc = 0 on a lower bound of 0 is no limit of the search."""
+    note; Rc = 0 on a lower bound of 0 is no limit of the search; under the settling
+    objective a wider bound may give faster settling, not more bandwidth."""
     knobs = {"cc": Knob("cc", "param", "cc", minimum=0.2e-12, maximum=10e-12),
              "rc": Knob("rc", "param", "rc", minimum=0.0, maximum=20e3)}
     near = bound_remark({"cc": 1e-12, "rc": 19.9e3}, knobs)
@@ -173,3 +174,6 @@ def test_values_near_a_bound_are_noted():
         {"cc": 0.203e-12, "rc": 5e3}, knobs)
     assert bound_remark({"cc": 1e-12, "rc": 15e3}, knobs) == ""
     assert bound_remark({"cc": 1e-12, "rc": 0.0}, knobs) == ""
+    assert near.endswith("a wider bound may give more bandwidth)")
+    settling = bound_remark({"cc": 1e-12, "rc": 19.9e3}, knobs, objective="settling")
+    assert settling.endswith("a wider bound may give faster settling)"), settling

@@ -8,9 +8,8 @@ step responses are recomputed from those with the same pure functions the run us
 from __future__ import annotations
 
 import json
-from collections import OrderedDict
-from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Self
 
@@ -22,6 +21,7 @@ from amploop.bench.loops import readout_for
 from amploop.corners.results import SCHEMA
 from amploop.corners.stepcheck import StepCheck, check_from_output
 from amploop.errors import JobError, JournalError, OutputError
+from amploop.report.lazy import LazyFigures
 from amploop.sim.journal import Journal
 from amploop.spec.model import Target
 from amploop.spice.labels import COMMON_MODE, JOURNAL_KEY, JOURNAL_KEYS, PHASE_MARGIN_CORNER
@@ -29,7 +29,7 @@ from amploop.spice.units import describe_values
 from amploop.strategy.kinds import kind_label
 from amploop.strategy.worst import WorstCase, limiting_loop
 
-__all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data"]
+__all__ = ["Curve", "LazyFigures", "ReportData", "load_report_data", "needs_settling"]
 
 
 @dataclass(frozen=True)
@@ -52,62 +52,13 @@ class Curve:
     response: FrequencyResponse
 
 
-class LazyFigures(Mapping):
-    """Corner name -> a figure computed from the journal when it is asked for.
-
-    The names are known from results.json alone (no journal read); each value is computed
-    by ``load(name)`` on access, and only the last ``keep`` are held, so that a report of
-    a thousand corners never holds a thousand corners' arrays.
-
-    Parameters
-    ----------
-    names
-        The corners that have this figure, in the job's order.
-    load
-        Computes the figure of one corner.
-    keep
-        How many computed figures are held for another access.
-    """
-
-    def __init__(self, names, load: Callable[[str], object], keep: int = 2) -> None:
-        self._names = list(names)
-        self._known = set(self._names)
-        self._load, self._keep = load, keep
-        self._held: OrderedDict[str, object] = OrderedDict()
-
-    def __getitem__(self, name: str):
-        if name not in self._known:
-            raise KeyError(name)
-        if name in self._held:
-            self._held.move_to_end(name)
-            return self._held[name]
-        value = self._load(name)
-        self._held[name] = value
-        while len(self._held) > self._keep:
-            self._held.popitem(last=False)
-        return value
-
-    def get(self, name, default=None):
-        """The figure of ``name``, ``default`` when it has none (an error computing it is
-        raised, not taken for a missing figure)."""
-        return self[name] if name in self._known else default
-
-    def __iter__(self):
-        return iter(self._names)
-
-    def __len__(self) -> int:
-        return len(self._names)
-
-    def __contains__(self, name) -> bool:
-        return name in self._known
-
-
 @dataclass
 class ReportData:
     """The figures of one out folder, ready to draw.
 
     The per-corner figures (``curves``, ``finals``, ``steps``, ``maps`` and a
-    fully-differential amplifier's ``cm_finals``, ``cm_maps``) are read from
+    fully-differential amplifier's ``cm_finals``, ``cm_maps``, and a settling tune's
+    ``cl_maps``) are read from
     the journal when a page asks for them (:class:`LazyFigures`); :meth:`close` closes
     the journal.
 
@@ -131,6 +82,10 @@ class ReportData:
     cm_finals, cm_maps
         The same of the common-mode loop of a fully-differential amplifier (empty when
         that loop is not measured).
+    cl_maps
+        Corner name -> the compensation map of its closed-loop response (signal source to
+        output) from the same samples, for a tune that asked for settling (its
+        characterisations ran that response too); empty otherwise.
     analyses_read
         How many analyses were read from the journal.
     journal
@@ -147,6 +102,7 @@ class ReportData:
     maps: Mapping[str, CompensationMap] = field(default_factory=dict)
     cm_finals: Mapping[str, FrequencyResponse] = field(default_factory=dict)
     cm_maps: Mapping[str, CompensationMap] = field(default_factory=dict)
+    cl_maps: Mapping[str, CompensationMap] = field(default_factory=dict)
     analyses_read: int = 0
     journal: Journal | None = field(default=None, repr=False)
     _by_name: dict = field(default_factory=dict, init=False, repr=False)
@@ -238,6 +194,13 @@ def _smallest_margin(corners: list[dict]) -> dict | None:
             "unity_gain_corner": c["name"]}
 
 
+def needs_settling(results: dict) -> bool:
+    """Whether the tune of ``results`` (results.json) asked for settling: ``objective =
+    "settling"`` or a ``settling_time`` ceiling in its target."""
+    target = results.get("target") or {}
+    return target.get("objective") == "settling" or target.get("settling_time_s") is not None
+
+
 def load_report_data(out: str | Path) -> ReportData:
     """Open an out folder written by ``measure`` or ``tune``.
 
@@ -283,6 +246,8 @@ def load_report_data(out: str | Path) -> ReportData:
         data.cm_maps = LazyFigures(list(data.maps), figures.load_cm_map, keep=1)
         data.cm_finals = LazyFigures(list(data.finals),
                                      lambda name: figures.cm_loop_gain(figures.final_key(name)))
+    if figures.closed_loop:
+        data.cl_maps = LazyFigures(list(data.maps), figures.load_cl_map, keep=1)
     data.curves = LazyFigures(names, figures.load_curves)
     data.steps = LazyFigures([n for n in names if figures.has_step(n)], figures.load_step)
     return data
@@ -307,6 +272,10 @@ class _Figures:
         self.final_entry = next((h for h in self.story if h["step"] == self.final_step), None)
         # the maps: the last three characterisation samples of each corner
         self.samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+        # a settling tune's characterisations ran the closed-loop response too
+        self.closed_loop = needs_settling(results) and all(
+            h["kind"] == "characterise" for h in self.samples)
+        self.cl_readout = replace(self.readout, closed_loop=True)
         # the netlist's own values, predicted from the map (no simulation)
         self.start = results.get("values_in_netlist")
         self.predict_start = (bool(self.start) and data.command == "tune"
@@ -359,6 +328,13 @@ class _Figures:
         return CompensationMap.from_loop_gains(
             self.map_points(name),
             [self.cm_loop_gain(h[JOURNAL_KEYS][name]) for h in self.samples])
+
+    def load_cl_map(self, name: str) -> CompensationMap:
+        """Corner ``name``'s compensation map of its closed-loop response from its three
+        samples."""
+        return CompensationMap.from_loop_gains(
+            self.map_points(name), [self.cl_readout.closed_loop_response(
+                self.reads(h[JOURNAL_KEYS][name])) for h in self.samples])
 
     def load_curves(self, name: str) -> list[Curve]:
         """Corner ``name``'s loop gains for its page: the netlist's values (predicted from

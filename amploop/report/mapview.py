@@ -14,6 +14,7 @@ from amploop.report import style
 from amploop.report.data import ReportData
 from amploop.report.pages import new_page, values_text
 from amploop.report.selection import EVERY_CORNER_UP_TO
+from amploop.report.settleview import settling_contours
 from amploop.spice.units import engineering
 from amploop.strategy.mapgrid import cc_grid
 
@@ -62,10 +63,13 @@ def map_page(data: ReportData):
     cc = cc_grid(cc_lo, cc_hi, 60)
     rc = np.linspace(rc_lo, rc_hi, 50) if rc_hi > rc_lo else np.array([rc_lo])
     pm, ugf, _ = _map_margins(cmap, cc, rc)
-    regions = []
+    regions, settling, settling_words = [], [], ""
     if rc.size > 1:
         regions = _shade_feasible(ax, data, name, cc, rc)
         _margin_contours(ax, cc, rc, pm, ugf)
+        if data.cl_maps:  # a tune that asked for settling
+            settling, settling_words = settling_contours(ax, data, (cc_lo, cc_hi),
+                                                         (rc_lo, rc_hi))
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(style.farads)
     ax.yaxis.set_major_formatter(style.ohms)
@@ -76,7 +80,8 @@ def map_page(data: ReportData):
         pad = 0.03 * (rc[-1] - rc[0])
         ax.set_ylim(rc[0] - pad, rc[-1] + pad)
     handles, labels = ax.get_legend_handles_labels()
-    ax.legend(handles + regions, labels + [h.get_label() for h in regions], loc="upper left",
+    extra = regions + settling
+    ax.legend(handles + extra, labels + [h.get_label() for h in extra], loc="upper left",
               bbox_to_anchor=(1.02, 1.0))
     who = "this corner meets" if device else "every corner meets"
     if regions[1:]:  # the common-mode loop's region is drawn too
@@ -88,6 +93,8 @@ def map_page(data: ReportData):
     else:
         words = ("solid lines: phase margin of this corner\ndashed lines: its unity-gain "
                  f"frequency\ngreen: {who} the target")
+    if settling_words:
+        words += "\n" + settling_words
     fig.text(0.72, 0.55, words, fontsize=8.5, color=style.MUTED, va="top")
     return fig
 

@@ -27,6 +27,8 @@ SUSPECT = "#c51b7d"
 FEASIBLE = "#d7ecd9"
 #: the textbook procedure's path
 TEXTBOOK = "#6a3d9a"
+#: the worst-corner settling time's contours on the map page
+SETTLING = "#8c510a"
 #: text that is secondary
 MUTED = "#5a5a5a"
 #: Every other configuration's rows in the summary table of a multi-configuration job.

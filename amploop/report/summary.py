@@ -5,6 +5,7 @@ loop that limits); notes on corners that are not ok."""
 
 from __future__ import annotations
 
+import math
 import textwrap
 
 from amploop.bench.oppoint import status_label, warning_advice
@@ -154,6 +155,7 @@ def summary_pages(data: ReportData, date: str):
         lines.append(f"Target: worst-corner phase margin ≥ {t['phase_margin_deg']:g}° "
                      f"(within +{t['tolerance_deg']:g}°){gm}" + _common_mode_target(t))
         lines.append(_objective_line(t))
+        lines += [line for line in (settling_line(r),) if line]
         lines.append(f"Chosen: {values_text(r['values'], r)}")
         if r.get("message"):
             lines.append(r["message"])
@@ -238,6 +240,24 @@ def _objective_line(target: dict) -> str:
     ceiling = target.get("settling_time_s")
     return text + (f"; every corner settles within {engineering(ceiling, 's')}"
                    if ceiling is not None else "")
+
+
+def settling_line(results: dict) -> str:
+    """The worst-corner settling time at the chosen point, simulated (the step transients)
+    and predicted (the closed-loop maps), from results.json's ``settling_prediction``;
+    empty without it (a tune that did not ask for settling)."""
+    agreement = results.get("settling_prediction") or {}
+    if not agreement:
+        return ""
+
+    def worst(key: str) -> str:
+        times = {n: a[key] for n, a in agreement.items()}
+        name = max(times, key=lambda n: math.inf if times[n] is None else times[n])
+        shown = "not settled in its run" if times[name] is None else engineering(times[name], "s")
+        return f"{shown} (corner {name})"
+
+    return (f"Settling: worst-corner {worst('simulated_s')} simulated (step transients), "
+            f"{worst('predicted_s')} predicted (closed-loop maps)")
 
 
 def _status_notes(corners: list[dict]) -> list[str]:

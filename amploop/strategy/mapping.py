@@ -21,7 +21,7 @@ from __future__ import annotations
 from amploop.analysis.compmap import CompensationMap
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, step_window_s
 from amploop.spec.limits import Target
-from amploop.spice.units import describe_values
+from amploop.spice.units import describe_values, engineering
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapgrid import CommonModeLoop
@@ -179,7 +179,8 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
                                                       "the samples meet it")
                            + " at " + describe_values(verified.values), extra)
         return Outcome("infeasible", verified.values, verified,
-                       _unreachable(worst, target) + describe_values(verified.values), extra)
+                       _unreachable(worst, target, extra.get("step_checks"))
+                       + describe_values(verified.values), extra)
     if abs(worst.phase_margin_deg - solution.phase_margin_deg) > agreement:
         return Outcome(
             "failed", verified.values, verified,
@@ -225,10 +226,18 @@ def _statistical_text(verified: PointResult, target: Target) -> str:
     return "; ".join(parts)
 
 
-def _unreachable(worst, target: Target) -> str:
+def _unreachable(worst, target: Target, checks: dict | None = None) -> str:
     """What no point within the bounds reaches, and the best that was reached (the start of
-    an ``infeasible`` message, to be followed by the values): the common-mode loop's
-    target when that is what the best point misses, else the main loop's."""
+    an ``infeasible`` message, to be followed by the values): the settling ceiling when the
+    margins are met and the step checks ``checks`` (corner name -> StepCheck) miss it, the
+    common-mode loop's target when that is what the best point misses, else the main
+    loop's."""
+    missed = missed_settling(checks or {}, target)
+    if missed is not None and worst.phase_margin_deg >= target.phase_margin_deg:
+        ceiling = engineering(target.settling_time_s, "s")
+        return (f"no Cc, Rc within the bounds meets the settling time {ceiling} "
+                f"at every corner with the margins; at the point of least shortfall on the maps, "
+                f"{missed.removeprefix('the ')} at ")
     cm = worst.common_mode
     cm_target = target.common_mode_phase_margin_deg
     if cm is not None and cm_target is not None and cm.phase_margin_deg < cm_target \

@@ -36,12 +36,13 @@ def _label(knob: Knob) -> tuple[str, str]:
 
 
 def bound_remark(values: dict[str, float], knobs: dict[str, Knob],
-                 near: float = NEAR_BOUND) -> str:
+                 near: float = NEAR_BOUND, objective: str = "bandwidth") -> str:
     """A note for values on or within ``near`` (relative) of a bound, or "".
 
     A value pressed against a bound is where the search stopped, not where the circuit
-    wanted to be: a wider bound may give more bandwidth. A lower bound of 0 is left out
-    (Rc = 0 is the branch without a resistor, not a limit of the search).
+    wanted to be: a wider bound may give more bandwidth (faster settling, under the
+    settling objective). A lower bound of 0 is left out (Rc = 0 is the branch without a
+    resistor, not a limit of the search).
 
     Parameters
     ----------
@@ -51,6 +52,9 @@ def bound_remark(values: dict[str, float], knobs: dict[str, Knob],
         The job's ``[compensation]`` entries by role, with their bounds (SI).
     near
         How close, relative to the bound, counts as near it.
+    objective
+        The target's objective (``"bandwidth"`` or ``"settling"``): what a wider bound may
+        give.
 
     Returns
     -------
@@ -77,7 +81,8 @@ def bound_remark(values: dict[str, float], knobs: dict[str, Knob],
             else:
                 continue
             break
-    return f" ({'; '.join(notes)}: a wider bound may give more bandwidth)" if notes else ""
+    gain = "faster settling" if objective == "settling" else "more bandwidth"
+    return f" ({'; '.join(notes)}: a wider bound may give {gain})" if notes else ""
 
 
 def lead_zero_remark(values: dict[str, float], corners: tuple[CornerResult, ...],

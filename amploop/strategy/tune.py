@@ -339,7 +339,8 @@ def _with_remarks(evaluator: _Evaluator, outcome: Outcome) -> tuple[Outcome, tup
         return outcome, ()
     job = evaluator.amplifier.job
     outcome = replace(outcome, message=outcome.message
-                      + bound_remark(outcome.values, job.compensation))
+                      + bound_remark(outcome.values, job.compensation,
+                                     objective=job.target.objective))
     remarks = tuple(r for r in (mismatch_remark(job, outcome.extra),
                                 settling_remark(job, outcome.extra)) if r)
     if "rc" not in job.compensation:
