@@ -246,3 +246,26 @@ def test_map_from_ngspice_predicts_ngspice_step_settling(macro_job):
                                       window_s=stop - check.step_at_s)
             measured = check.metrics.settling_s
             assert predicted == pytest.approx(measured, rel=2e-2), (cc, rc, predicted, measured)
+
+
+def test_a_harmless_right_half_plane_pole_of_a_fit_is_left_out_within_a_window():
+    """A one-pole step (invented: 10 Mrad/s, unit gain) with a fit's artefact beside it, a
+    pole at +3 Hz of negligible weight: within a 2 µs window it changes nothing, so the
+    settling time is the clean one, ln(1/band)/10 Mrad/s (textbook first-order settling);
+    the same pole with real weight is no artefact, and the response does not settle."""
+    from amploop.analysis.settling import PoleResidueModel, settling_time
+
+    clean = PoleResidueModel(poles=np.array([-1e7 + 0j]), residues=np.array([1e7 + 0j]),
+                             direct=0j)
+    expected = np.log(1 / 1e-3) / 1e7
+    assert settling_time(clean, 1e-3, window_s=2e-6) == pytest.approx(expected, rel=1e-3)
+    artefact = 2 * np.pi * 3.0
+    for weight, settles in ((1e-9, True), (1e-2, False)):
+        model = PoleResidueModel(poles=np.array([-1e7 + 0j, artefact + 0j]),
+                                 residues=np.array([1e7 + 0j, weight * artefact + 0j]),
+                                 direct=0j)
+        value = settling_time(model, 1e-3, window_s=2e-6)
+        if settles:
+            assert value == pytest.approx(expected, rel=1e-3)
+        else:
+            assert value is None

@@ -195,6 +195,18 @@ def _time_grid(c: np.ndarray, p: np.ndarray, threshold: float, t_end: float) -> 
     return np.concatenate(pieces + [[t_end]])
 
 
+def _without_harmless_poles(model: PoleResidueModel, band: float,
+                            window_s: float) -> PoleResidueModel:
+    """``model`` without the right-half-plane terms c·e^{pt} (c = r/p) that stay below
+    band/1000 of the response's scale (the largest |c|, or |H(0)|) over [0, ``window_s``]."""
+    c = model.residues / model.poles
+    scale = max(abs(model.dc_gain), float(np.max(np.abs(c), initial=0.0)))
+    growth = np.exp(np.clip(np.real(model.poles), 0.0, None) * window_s)
+    harmless = (np.real(model.poles) > 0) & (np.abs(c) * growth < 1e-3 * band * scale)
+    return PoleResidueModel(poles=model.poles[~harmless], residues=model.residues[~harmless],
+                            direct=model.direct)
+
+
 def settling_time(model: PoleResidueModel, band: float = 1e-3,
                   window_s: float | None = None) -> float | None:
     """Time, seconds, from a step until the response stays within ``band`` of the step.
@@ -221,8 +233,12 @@ def settling_time(model: PoleResidueModel, band: float = 1e-3,
     -------
     float or None
         None when the response does not settle: an unstable pole, or (with a window) still
-        outside the band at the window's end.
+        outside the band at the window's end. With a window, a right-half-plane pole whose
+        term stays below a thousandth of the band over the whole window (a fit's artefact
+        near DC, where the samples barely tell it from a pole at the origin) is left out.
     """
+    if window_s is not None and not model.stable:
+        model = _without_harmless_poles(model, band, float(window_s))
     if not model.stable:
         return None
     p, c = model.poles, model.residues / model.poles
