@@ -13,6 +13,8 @@
 from __future__ import annotations
 
 from amploop.analysis.compmap import CompensationMap
+from amploop.analysis.twomap import TwoElementMap, two_element_samples
+from amploop.bench.branch import compensation_branch
 from amploop.spec.limits import Target
 from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
@@ -37,13 +39,43 @@ def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
 def _maps(evaluator: Evaluator, results: list[PointResult], loop: str = "loop_gain"
           ) -> dict[str, CompensationMap]:
     """Each corner's map of its ``loop`` (the attribute of its results: the main loop's
-    ``loop_gain``, or the ``common_mode_loop_gain``) from the three samples ``results``."""
+    ``loop_gain``, or the ``common_mode_loop_gain``) from the samples ``results``: three
+    for the one-impedance map, seven for the two-element one."""
+    kind = TwoElementMap if len(results) == 7 else CompensationMap
     maps = {}
     for index, corner in enumerate(evaluator.corners):
         samples = [(p.values["cc"], p.values.get("rc", 0.0)) for p in results]
         responses = [getattr(p.corners[index], loop) for p in results]
-        maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
+        maps[corner.name] = kind.from_loop_gains(samples, responses)
     return maps
+
+
+def map_form(evaluator: Evaluator) -> str:
+    """``"two-element"`` when Rc is tuned and the node between Rc and Cc has other
+    connections in the netlist (wiring, a bottom-plate capacitance: the loop gain is then
+    bilinear in Rc and in 1/Cc separately, seven samples per corner), else
+    ``"one-impedance"`` (bilinear in Z = Rc + 1/(sCc), three samples)."""
+    if "rc" not in evaluator.amplifier.job.compensation:
+        return "one-impedance"  # Cc alone is one element, whatever its node carries
+    branch = compensation_branch(evaluator.amplifier)
+    return branch.form if branch is not None else "one-impedance"
+
+
+def _samples(form: str, cc_bounds, rc_bounds, rc_value: float) -> list[dict[str, float]]:
+    """The first round's samples of the map of ``form``."""
+    if form == "two-element":
+        return two_element_samples(cc_bounds, rc_bounds, rc_value)
+    return initial_samples(cc_bounds, rc_value)
+
+
+def _samples_near(form: str, cc: float, rc: float, cc_bounds, rc_bounds
+                  ) -> list[dict[str, float]]:
+    """A later round's samples of the map of ``form``, around (``cc``, ``rc``)."""
+    if form == "two-element":
+        near_cc = (max(cc * 0.8, cc_bounds[0]), min(cc * 1.25, cc_bounds[1]))
+        near_rc = (max(rc * 0.8, rc_bounds[0]), min(rc * 1.25, rc_bounds[1]))
+        return two_element_samples(near_cc, near_rc, rc)
+    return samples_around(cc, rc, cc_bounds)
 
 
 def _common_mode(evaluator: Evaluator, results: list[PointResult], target: Target
@@ -96,7 +128,8 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     aim = target.phase_margin_deg + 0.1 * target.tolerance_deg
     agreement = target.tolerance_deg / 10.0
 
-    samples = initial_samples(cc_bounds, rc_sample)
+    form = map_form(evaluator)
+    samples = _samples(form, cc_bounds, rc_bounds, rc_sample)
     solution: MapSolution | None = None
     verified: PointResult | None = None
     predictions = []
@@ -124,10 +157,11 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             return not_simulated(verified)
         if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
             break
-        samples = samples_around(solution.cc, solution.rc, cc_bounds)
+        samples = _samples_near(form, solution.cc, solution.rc, cc_bounds, rc_bounds)
     assert solution is not None and verified is not None
     worst = verified.worst
-    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
+    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions),
+             "map_form": form}
     if not solution.feasible:
         return Outcome("infeasible", verified.values, verified,
                        _unreachable(worst, target) + describe_values(verified.values), extra)

@@ -68,6 +68,8 @@ class TuneResult:
         (history step, corner name) -> the loop gain simulated there.
     simulator_seconds
         Wall time, seconds, the workers spent inside ngspice.
+    simulator_cpu_seconds
+        CPU time, seconds, of the workers inside ngspice.
     step_checks
         Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` at the final values (empty
         when not run).
@@ -91,6 +93,7 @@ class TuneResult:
     compensated: dict | None = None
     loop_gains: dict | None = None
     simulator_seconds: float = 0.0
+    simulator_cpu_seconds: float = 0.0
     step_checks: dict = field(default_factory=dict)
     transient_run: int = 0
     transient_reused: int = 0
@@ -152,6 +155,8 @@ class TuneResult:
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "device": device_json(self.outcome.extra.get("device")),
+            # the map strategy's form: "one-impedance" or "two-element" (None: other)
+            "map_form": self.outcome.extra.get("map_form"),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
@@ -302,7 +307,8 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
                         ac_reused=runner.ac_reused, out=folder.path if folder else None,
                         seconds=time.perf_counter() - started, compensated=compensated,
                         loop_gains=dict(evaluator.loop_gains),
-                        simulator_seconds=runner.simulator_seconds, step_checks=checks,
+                        simulator_seconds=runner.simulator_seconds,
+                        simulator_cpu_seconds=runner.simulator_cpu_seconds, step_checks=checks,
                         transient_run=runner.transient_run,
                         transient_reused=runner.transient_reused,
                         values_in_netlist=amplifier.values_in_effect({}),
@@ -366,6 +372,7 @@ def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
                         ac_reused=runner.ac_reused, out=folder.path,
                         seconds=time.perf_counter() - started,
                         simulator_seconds=runner.simulator_seconds,
+                        simulator_cpu_seconds=runner.simulator_cpu_seconds,
                         transient_run=runner.transient_run,
                         transient_reused=runner.transient_reused,
                         values_in_netlist=amplifier.values_in_effect({}),
