@@ -11,8 +11,8 @@ ibias and nz, the node between Rc and Cc) carries a dangling RC wire of N segmen
 1. For each N: `tune` (map strategy, one worker, no step check, no report) on the first
    few corners of the demo job, today's way (the code at --baseline, run in its own
    process) and the new way (this checkout), in one run. Printed: ngspice CPU seconds per
-   corner (the worker's own CPU time, process_time around each analysis; for the
-   baseline, which does not record it, the CPU time of its reaped worker processes),
+   corner (the worker process's CPU time during the run, from /proc; the new way also
+   records process_time around each analysis),
    the ratio, AC analyses per corner, the map's form, and the largest margin difference
    over the corners (PM in degrees, UGF relative).
 2. The netlist reader on a 120,000-line extracted file (N = 10,000 gives that size):
@@ -41,8 +41,9 @@ NETS = ("n1", "n2", "tail", "out", "ibias", "nz")
 def wiring(segments: int, nets=NETS) -> str:
     """Invented extracted wiring: an RC ladder of ``segments`` 2 Ω / 0.02 fF sections
     hanging off each of ``nets`` (to vss), as netlist lines."""
-    lines = ["* INVENTED BENCHMARK DATA: synthetic extracted wiring "
-             f"({segments} RC segments on each of {', '.join(nets)})"]
+    title = ("* INVENTED BENCHMARK DATA: synthetic extracted wiring "
+             f"({segments} RC segments on each of {', '.join(nets)})")
+    lines = [title]
     for net in nets:
         previous = net
         for k in range(1, segments + 1):
@@ -70,20 +71,31 @@ def extracted_job(folder: Path, segments: int, corners: int, nets=NETS) -> Path:
 
 # run in a child process, with PYTHONPATH naming the checkout to measure
 _CHILD = r"""
-import json, resource, sys, time
+import json, os, sys, time
 from pathlib import Path
+from amploop.sim.pool import WorkerPool
 from amploop.spec.job import load_job
 from amploop.strategy.tune import tune
+
+def workers_cpu(pool):
+    total = 0.0
+    for worker in pool._workers:
+        fields = Path(f"/proc/{worker.process.pid}/stat").read_text().rsplit(")", 1)[1].split()
+        total += (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    return total
+
 job = load_job(sys.argv[1])
-start = time.perf_counter()
-result = tune(job, out=Path(sys.argv[2]), workers=1, time_domain=False)
-wall = time.perf_counter() - start
-children = resource.getrusage(resource.RUSAGE_CHILDREN)
+with WorkerPool(1) as pool:
+    idle = workers_cpu(pool)
+    start = time.perf_counter()
+    result = tune(job, out=Path(sys.argv[2]), pool=pool, time_domain=False)
+    wall = time.perf_counter() - start
+    cpu = workers_cpu(pool) - idle
 print(json.dumps({
     "status": result.status, "values": result.outcome.values, "wall": wall,
     "ngspice_wall": result.simulator_seconds,
     "ngspice_cpu": getattr(result, "simulator_cpu_seconds", None),
-    "workers_cpu": children.ru_utime + children.ru_stime,
+    "workers_cpu": cpu,
     "ac": result.ac_run + result.ac_reused, "rounds": result.outcome.extra.get("rounds"),
     "form": result.outcome.extra.get("map_form"),
     "corners": [[c.corner.name, c.margins.phase_margin_deg, c.margins.unity_gain_hz]
@@ -101,7 +113,7 @@ def run_tune(checkout: Path, job: Path, out: Path) -> dict:
     """`tune` of ``job`` by the code at ``checkout`` in a fresh process; its figures."""
     env = {**os.environ, "PYTHONPATH": str(checkout)}
     done = subprocess.run([sys.executable, "-c", _CHILD, str(job), str(out)], env=env,
-                          capture_output=True, text=True, check=False)
+                          capture_output=True, text=True, check=False, cwd=checkout)
     if done.returncode != 0:
         raise SystemExit(f"bench: tune failed at {checkout}:\n{done.stderr[-2000:]}")
     return json.loads(done.stdout.strip().splitlines()[-1])
@@ -152,10 +164,11 @@ def main() -> None:
             for name, checkout in ways.items():
                 runs[name] = run_tune(checkout, job, folder / f"out-{name}-{size}")
                 r = runs[name]
-                cpu = r["ngspice_cpu"] if r["ngspice_cpu"] is not None else r["workers_cpu"]
-                print(f"N={size} {name:>5}: {r['status']}, ngspice {cpu / args.corners:.2f} s "
-                      f"CPU per corner (ngspice wall {r['ngspice_wall'] / args.corners:.2f} s, "
-                      f"workers CPU {r['workers_cpu'] / args.corners:.2f} s), "
+                inside = "" if r["ngspice_cpu"] is None else \
+                    f", inside analyses {r['ngspice_cpu'] / args.corners:.2f} s"
+                print(f"N={size} {name:>5}: {r['status']}, worker CPU "
+                      f"{r['workers_cpu'] / args.corners:.2f} s per corner{inside} (ngspice "
+                      f"wall {r['ngspice_wall'] / args.corners:.2f} s), "
                       f"{r['ac'] / args.corners:.0f} AC per corner, rounds {r['rounds']}, "
                       f"form {r['form']}, tune wall {r['wall']:.1f} s ({load()})", flush=True)
             if "today" in runs:

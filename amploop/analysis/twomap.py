@@ -90,8 +90,16 @@ class TwoElementMap:
 
     @classmethod
     def from_loop_gains(cls, samples, responses: list[FrequencyResponse]) -> TwoElementMap:
-        """Build the map from seven loop gains simulated at ``samples`` ((Cc, Rc) pairs,
-        farads and ohms, at least two different values of each) on one frequency grid.
+        """Build the map from seven simulated loop gains.
+
+        Parameters
+        ----------
+        samples
+            Seven (Cc in farads, Rc in ohms) pairs, with at least two different values of
+            each (:func:`two_element_samples`).
+        responses
+            The loop gain simulated at each sample, in the same order, on one frequency
+            grid.
 
         Raises
         ------

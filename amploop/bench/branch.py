@@ -81,10 +81,20 @@ def _element_of(amplifier: Amplifier, role: str, letter: str) -> Statement | Non
 
 
 def compensation_branch(amplifier: Amplifier) -> CompensationBranch | None:
-    """The compensation branch of a single-ended amplifier with amploop's own testbench;
-    None where it cannot be changed in place (a device for Rc, matched halves, a knob
-    that is not one R or C element's whole value, a user's testbench, a fully
-    differential amplifier)."""
+    """The compensation branch of a single-ended amplifier with amploop's own testbench.
+
+    Parameters
+    ----------
+    amplifier
+        The prepared amplifier.
+
+    Returns
+    -------
+    CompensationBranch or None
+        None where the branch cannot be named as two elements (a device for Rc, matched
+        halves, a knob that is not one R or C element's whole value, a user's testbench,
+        a fully differential amplifier).
+    """
     if amplifier.device is not None or amplifier.user_deck is not None \
             or amplifier.fully_differential:
         return None
