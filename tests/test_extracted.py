@@ -97,3 +97,87 @@ def test_saving_only_the_vectors_read_changes_no_loop_gain(session, job_file):
         assert np.max(np.abs(t_new / t_old - 1)) < 1e-6
         for name, value in old.reads[-1].items():
             np.testing.assert_allclose(new.reads[-1][name], value, rtol=1e-9)
+
+
+def _port_map(session, amplifier, corner, form, reference):
+    from amploop.bench.portbench import PortCharacterisation, port_ports
+
+    branch = compensation_branch(amplifier)
+    bench = build_testbench(amplifier, corner, reference)
+    char = PortCharacterisation(bench, form, tuple(port_ports(branch, form, amplifier)))
+    output = session.run(char.request(amplifier, 120))
+    return char, output, char.port_map(amplifier, output)
+
+
+@pytest.mark.parametrize(("nets", "form"), [(("nz", "out", "n1"), "two-element"),
+                                            (("out", "n1"), "one-impedance"),
+                                            ((), "one-impedance")])
+def test_port_map_is_exact_in_either_form(tmp_path, session, nets, form):
+    """One analysis at reference values (the probe's two runs and one run per port
+    source) predicts the loop gain at other (Cc, Rc), inside and outside the bounds,
+    within 1e-6 relative at every frequency of a direct ngspice simulation there (the
+    outside reference); its first two runs are the testbench's own analysis (1e-12)."""
+    job, amplifier = _amplifier(tmp_path, nets, segments=20)
+    corner = job.corners[1]
+    reference = {"cc": 1.5e-12, "rc": 3000.0}
+    char, output, port_map = _port_map(session, amplifier, corner, form, reference)
+    assert output.reads and sum(s.is_ac for s in char.request(amplifier, 1).steps) == \
+        2 + (2 if form == "two-element" else 1)
+    own = char.bench.loop_gain(char.bench_output(output)).values
+    direct = _loop_gain(session, amplifier, corner, 1.5e-12, 3000.0).values
+    assert np.max(np.abs(own / direct - 1)) < 1e-12
+    for cc, rc in [(1.3e-12, 2500.0), (0.3e-12, 19e3), (8e-12, 150.0), (0.2e-12, 25e3)]:
+        direct = _loop_gain(session, amplifier, corner, cc, rc).values
+        assert np.max(np.abs(port_map.loop_gain_values(cc, rc) / direct - 1)) < 1e-6
+
+
+def test_port_map_on_the_45nm_example_matches_direct_simulation(session):
+    """The 45 nm BSIM4 example (no wiring: one-impedance form) at two of its corners:
+    the port map against direct simulation at a point away from the reference, 1e-6."""
+    job = load_job(REPO / "netlists" / "ptm45" / "job.toml")
+    amplifier = prepare_amplifier(job)
+    branch = compensation_branch(amplifier)
+    assert branch is not None and branch.form == "one-impedance"
+    values = amplifier.values_in_effect({})
+    for corner in job.corners[:2]:
+        _, _, port_map = _port_map(session, amplifier, corner, "one-impedance", values)
+        cc, rc = values["cc"] * 1.7, values["rc"] * 0.6 + 100.0
+        direct = _loop_gain(session, amplifier, corner, cc, rc).values
+        assert np.max(np.abs(port_map.loop_gain_values(cc, rc) / direct - 1)) < 1e-6
+
+
+def _tune_both_ways(monkeypatch, job, tmp_path):
+    import dataclasses
+
+    import amploop.strategy.mapping as mapping
+    from amploop.strategy.tune import tune
+
+    job = dataclasses.replace(job, corners=job.corners[:2])
+    new = tune(job, out=tmp_path / "ports", workers=1, time_domain=False)
+    with monkeypatch.context() as patch:
+        patch.setattr(mapping, "port_form", lambda *args: None)
+        old = tune(job, out=tmp_path / "samples", workers=1, time_domain=False)
+    return new, old
+
+
+@pytest.mark.parametrize("which", ["demo", "demo-wired", "ptm45"])
+def test_ports_and_samples_choose_the_same_values_and_margins(tmp_path, monkeypatch, which):
+    """`tune` through the port map and through the sampled maps (the previous path,
+    forced) on two corners: the same chosen values, and the final loop gains within 1e-6
+    relative at every frequency (both are simulations at the chosen values); the port
+    path runs fewer AC analyses, and results.json names the form and the method."""
+    if which == "ptm45":
+        job = load_job(REPO / "netlists" / "ptm45" / "job.toml")
+    else:
+        nets = ("nz", "out") if which == "demo-wired" else ()
+        job = load_job(extracted_job(tmp_path / "job", 5, 10, nets=nets))
+    new, old = _tune_both_ways(monkeypatch, job, tmp_path)
+    assert new.status == old.status == "converged"
+    assert new.outcome.values == old.outcome.values
+    for a, b in zip(new.corners, old.corners):
+        assert np.max(np.abs(a.loop_gain.values / b.loop_gain.values - 1)) < 1e-6
+    assert new.ac_run + new.ac_reused < old.ac_run + old.ac_reused
+    form = "two-element" if which == "demo-wired" else "one-impedance"
+    assert new.outcome.extra["map_form"] == form == new.as_json()["map_form"]
+    assert (new.outcome.extra["map_method"], old.outcome.extra["map_method"]) == \
+        ("ports", "samples")

@@ -20,6 +20,7 @@ from amploop.spice.units import describe_values
 from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, not_simulated
 from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapsolve import CommonModeLoop, MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.portchar import characterise_ports, port_form
 from amploop.strategy.samples import initial_samples, samples_around
 from amploop.strategy.worst import missed_target, worst_text
 
@@ -129,19 +130,29 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     agreement = target.tolerance_deg / 10.0
 
     form = map_form(evaluator)
+    ports = port_form(evaluator, compensation_branch(evaluator.amplifier), form)
     samples = _samples(form, cc_bounds, rc_bounds, rc_sample)
+    reference = initial_samples(cc_bounds, rc_sample)[1]
     solution: MapSolution | None = None
     verified: PointResult | None = None
     predictions = []
     for round_number in range(1, max_rounds + 1):
-        characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
-                                           kind="characterise",
-                                           note=f"round {round_number}")
-        failed = next((p for p in characterised if p.errors), None)
-        if failed is not None:
-            return not_simulated(failed, in_effect)
-        maps = _maps(evaluator, characterised)
-        common_mode = _common_mode(evaluator, characterised, target)
+        if ports is not None:  # one analysis per corner, exact in either form
+            point, maps = characterise_ports(
+                evaluator, knob_values(reference, has_rc), ports,
+                compensation_branch(evaluator.amplifier), note=f"round {round_number}")
+            if point.errors:
+                return not_simulated(point, in_effect)
+            common_mode = None
+        else:
+            characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
+                                               kind="characterise",
+                                               note=f"round {round_number}")
+            failed = next((p for p in characterised if p.errors), None)
+            if failed is not None:
+                return not_simulated(failed, in_effect)
+            maps = _maps(evaluator, characterised)
+            common_mode = _common_mode(evaluator, characterised, target)
         optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db,
                                 common_mode=common_mode)
         # 4 significant digits, what a designer writes into the netlist and what is
@@ -158,10 +169,11 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
         if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
             break
         samples = _samples_near(form, solution.cc, solution.rc, cc_bounds, rc_bounds)
+        reference = {"cc": solution.cc, "rc": solution.rc}
     assert solution is not None and verified is not None
     worst = verified.worst
     extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions),
-             "map_form": form}
+             "map_form": form, "map_method": "samples" if ports is None else "ports"}
     if not solution.feasible:
         return Outcome("infeasible", verified.values, verified,
                        _unreachable(worst, target) + describe_values(verified.values), extra)
