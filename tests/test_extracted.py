@@ -149,7 +149,7 @@ def test_port_map_on_the_45nm_example_matches_direct_simulation(session):
 def _tune_both_ways(monkeypatch, job, tmp_path):
     import dataclasses
 
-    import amploop.strategy.mapping as mapping
+    from amploop.strategy import mapping
     from amploop.strategy.tune import tune
 
     job = dataclasses.replace(job, corners=job.corners[:2])
