@@ -29,7 +29,7 @@ def port_ports(branch: CompensationBranch, form: str, amplifier: Amplifier
                ) -> list[tuple[str, str]]:
     """The (first, second) subckt nodes of each port of ``form``: Rc's then Cc's for
     ``"two-element"``, the series branch's outer nodes for ``"one-impedance"``, Cc's for
-    ``"cc-only"``."""
+    ``"cc-only"``; the elements named in ``branch``, read from ``amplifier``'s subckt."""
     cc = amplifier.subckt.element(branch.cc_element)
     cc_nodes = (cc.tokens[1].lower(), cc.tokens[2].lower())
     if form == "cc-only":
@@ -90,7 +90,8 @@ class PortCharacterisation:
 
     def request(self, amplifier: Amplifier, time_limit_s: float) -> AnalysisRequest:
         """The request: the probe's two runs (reading the port voltages too), then one run
-        per port source, then the testbench's operating-point read-out."""
+        per port source, then the testbench's operating-point read-out; node names from
+        ``amplifier``, hung after ``time_limit_s`` seconds."""
         steps = list(self.bench.steps)
         op_step = steps.pop()
         extra = tuple(dict.fromkeys(v for pair in self._vectors(amplifier) for v in pair
@@ -124,7 +125,8 @@ class PortCharacterisation:
         return replace(output, reads=output.reads[: n - 1] + (output.reads[-1],))
 
     def port_map(self, amplifier: Amplifier, output: AnalysisOutput) -> PortMap:
-        """The corner's :class:`PortMap` from the finished analysis ``output``."""
+        """The corner's :class:`PortMap` from the finished analysis ``output`` of
+        :meth:`request` (with the same ``amplifier``)."""
         request_steps = self.request(amplifier, 1.0).steps
         runs = [output.reads[i] for i, step in enumerate(request_steps) if step.is_ac]
         vectors = self._vectors(amplifier)

@@ -18,8 +18,9 @@ __all__ = ["characterise_ports", "port_form"]
 
 def port_form(evaluator: Evaluator, branch: CompensationBranch | None, form: str
               ) -> str | None:
-    """The port map's form for the map strategy's ``form``; None where ports cannot be
-    used (no branch of two named elements, another probe than double injection)."""
+    """The port map's form for the map strategy's ``form`` in ``evaluator``'s job, with
+    the compensation ``branch``; None where ports cannot be used (no branch of named
+    elements, another probe than double injection)."""
     job = evaluator.amplifier.job
     if branch is None or job.analysis.probe != "double-injection":
         return None
