@@ -306,7 +306,8 @@ class _Figures:
                               default=None)
         self.final_entry = next((h for h in self.story if h["step"] == self.final_step), None)
         # the maps: the last three characterisation samples of each corner
-        self.samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+        self.samples = [h for h in history if h["kind"] in
+                        ("characterise", "characterise-ports", "report-map")][-3:]
         # the netlist's own values, predicted from the map (no simulation)
         self.start = results.get("values_in_netlist")
         self.predict_start = (bool(self.start) and data.command == "tune"

@@ -274,7 +274,10 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
                 h.kind == "characterise" for h in evaluator.history):
             # the report's map page needs three samples per corner; journalled like the
             # rest, kept apart in the history
-            evaluator.simulate(_report_samples(evaluator), kind="report-map",
+            samples = _report_samples(evaluator)
+            if any(h.kind == "characterise-ports" for h in evaluator.history):
+                samples = [samples[0], samples[2]]  # the middle one is the port reference
+            evaluator.simulate(samples, kind="report-map",
                                note="samples for the report's compensation map")
         checks = {}
         if outcome.final is not None and time_domain:
