@@ -1,7 +1,7 @@
 """Benchmark of `amploop tune` on an extracted-size netlist: ngspice seconds per corner.
 
 Run:  .venv/bin/python scripts/bench_layout.py [--sizes 1000 10000] [--corners 2]
-                                               [--baseline /path/to/main/checkout]
+                                               [--reps 1] [--baseline /path/to/old/checkout]
 
 INVENTED BENCHMARK DATA. The netlist is the demo amplifier (netlists/demo, itself
 invented) with a synthetic "extracted" wiring added: each of six nets (n1, n2, tail, out,
@@ -26,6 +26,7 @@ import argparse
 import json
 import os
 import resource
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -151,6 +152,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000])
     parser.add_argument("--corners", type=int, default=2)
+    parser.add_argument("--reps", type=int, default=1, help="alternating repetitions")
     parser.add_argument("--baseline", type=Path, default=None,
                         help="checkout of today's code (default: skip the old way)")
     args = parser.parse_args()
@@ -160,26 +162,27 @@ def main() -> None:
         for size in args.sizes:
             job = extracted_job(folder / f"n{size}", size, args.corners)
             ways = {"new": REPO} | ({"today": args.baseline} if args.baseline else {})
-            runs = {}
-            for name, checkout in ways.items():
-                runs[name] = run_tune(checkout, job, folder / f"out-{name}-{size}")
-                r = runs[name]
-                inside = "" if r["ngspice_cpu"] is None else \
-                    f", inside analyses {r['ngspice_cpu'] / args.corners:.2f} s"
-                print(f"N={size} {name:>5}: {r['status']}, worker CPU "
-                      f"{r['workers_cpu'] / args.corners:.2f} s per corner{inside} (ngspice "
-                      f"wall {r['ngspice_wall'] / args.corners:.2f} s), "
-                      f"{r['ac'] / args.corners:.0f} AC per corner, rounds {r['rounds']}, "
-                      f"form {r['form']}, tune wall {r['wall']:.1f} s ({load()})", flush=True)
+            runs: dict[str, list[dict]] = {name: [] for name in ways}
+            for rep in range(args.reps):  # alternating, so that the load hits both alike
+                for name, checkout in ways.items():
+                    r = run_tune(checkout, job, folder / f"out-{name}-{size}-{rep}")
+                    runs[name].append(r)
+                    inside = "" if r["ngspice_cpu"] is None else \
+                        f", inside analyses {r['ngspice_cpu'] / args.corners:.2f} s"
+                    print(f"N={size} {name:>5}: {r['status']}, worker CPU "
+                          f"{r['workers_cpu'] / args.corners:.2f} s per corner{inside} (ngspice "
+                          f"wall {r['ngspice_wall'] / args.corners:.2f} s), "
+                          f"{r['ac'] / args.corners:.0f} AC per corner, rounds {r['rounds']}, "
+                          f"form {r['form']}, tune wall {r['wall']:.1f} s ({load()})", flush=True)
             if "today" in runs:
-                old, new = runs["today"], runs["new"]
+                old, new = runs["today"][-1], runs["new"][-1]
                 pm, ugf = compare(old, new)
-                ratio = new["workers_cpu"] / old["workers_cpu"]
-                print(f"N={size}: workers' CPU new/today {ratio:.2f}, wall "
-                      f"{new['wall'] / old['wall']:.2f}; largest margin difference "
-                      f"{pm:.4f}° PM, {ugf:.2e} UGF; values today {old['values']}, "
-                      f"new {new['values']}", flush=True)
-
+                cpu = {k: statistics.median(r["workers_cpu"] for r in v) for k, v in runs.items()}
+                wall = {k: statistics.median(r["wall"] for r in v) for k, v in runs.items()}
+                print(f"N={size}: worker CPU new/today {cpu['new'] / cpu['today']:.2f}, tune wall "
+                      f"{wall['new'] / wall['today']:.2f} (medians of {args.reps}); largest "
+                      f"margin difference {pm:.4f}° PM, {ugf:.2e} UGF; values today "
+                      f"{old['values']}, new {new['values']}", flush=True)
 
 if __name__ == "__main__":
     main()
