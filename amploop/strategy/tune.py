@@ -155,8 +155,10 @@ class TuneResult:
             "history": [h.as_json() for h in self.history],
             "compensated_netlist": self.compensated,
             "device": device_json(self.outcome.extra.get("device")),
-            # the map strategy's form: "one-impedance" or "two-element" (None: other)
+            # the map strategy's form ("one-impedance", "two-element") and method ("ports",
+            # "samples"); None for other strategies
             "map_form": self.outcome.extra.get("map_form"),
+            "map_method": self.outcome.extra.get("map_method"),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
         }
