@@ -132,7 +132,9 @@ class PortCharacterisation:
         vectors = self._vectors(amplifier)
 
         def port_voltages(run: dict) -> np.ndarray:
-            return np.stack([run[p] - (run[q] if q != "0" else 0.0) for p, q in vectors])
+            def node(name: str):
+                return 0.0 if name == "0" else run[name]
+            return np.stack([node(p) - node(q) for p, q in vectors])
 
         first = [s for s in self.bench.steps if s.is_ac]
         y_names = [first[0].read[-1], first[1].read[-1]]  # v(b), the series current

@@ -26,6 +26,8 @@ def port_form(evaluator: Evaluator, branch: CompensationBranch | None, form: str
         return None
     if "rc" not in job.compensation:
         return "cc-only"
+    if branch.middle is None:  # not one series branch: a port per element holds any case
+        return "two-element"
     return form
 
 
