@@ -96,6 +96,9 @@ class AnalysisOutput:
         True when the operating point needed ngspice's transient fallback.
     seconds
         Wall time of the analysis inside ngspice.
+    cpu_seconds
+        CPU time of the worker process during the analysis (ngspice's own work; not
+        recorded in the journal).
     after
         What the request's ``after`` returned in the worker (None: no such work, or it
         failed; the caller then does the work itself).
@@ -107,5 +110,6 @@ class AnalysisOutput:
     warnings: tuple[str, ...] = ()
     transient_op: bool = False
     seconds: float = 0.0
+    cpu_seconds: float = field(default=0.0, compare=False)
     messages: tuple[str, ...] = field(default=(), repr=False)
     after: object = field(default=None, repr=False)

@@ -29,7 +29,7 @@ from amploop.bench.probe import Probe
 from amploop.bench.requests import AnalysisOutput, AnalysisRequest, Step
 from amploop.spec.model import Corner
 
-__all__ = ["Testbench", "build_testbench"]
+__all__ = ["Testbench", "build_testbench", "save_line"]
 
 
 @dataclass(frozen=True)
@@ -129,6 +129,15 @@ class Testbench:
         return body[: -len(".end")] + "\n".join(lines) + "\n.end\n"
 
 
+def save_line(steps: tuple[Step, ...]) -> str:
+    """The ``.save`` line of the node voltages and branch currents ``steps`` read (device
+    quantities such as ``@m.x1.m1[vds]`` are read from the operating point's plot either
+    way and are left out: a model without one would fail the analysis)."""
+    names = dict.fromkeys(name for step in steps for name in step.read
+                          if name.lower().startswith(("v(", "i(")))
+    return ".save " + " ".join(names)
+
+
 def build_testbench(
     amplifier: Amplifier,
     corner: Corner,
@@ -169,12 +178,14 @@ def build_testbench(
     loops = loop_readout(job, probe, closed_loop)
     ac_command = ac_command or job.analysis.ac_command()
     full_values = amplifier.values_in_effect(values)
-    # the AC analysis keeps its operating point as a plot, read after the AC runs
-    loop = [*loops.elements(), KEEP_OP_LINE]
-    deck, notes = closed_loop_deck(amplifier, corner, full_values, loop_elements=loop,
-                                   title=f"amploop loop gain: job {job.name}, corner {corner.name}")
     op_probe = OperatingPointProbe.for_amplifier(amplifier)
     steps = loops.steps(ac_command) + (op_probe.step(),)
+    # the AC analysis keeps its operating point as a plot, read after the AC runs; only
+    # the vectors read are saved (an extracted netlist's tens of thousands of nodes
+    # otherwise cost a third of each AC run, and 16 bytes per node and frequency)
+    loop = [*loops.elements(), KEEP_OP_LINE, save_line(steps)]
+    deck, notes = closed_loop_deck(amplifier, corner, full_values, loop_elements=loop,
+                                   title=f"amploop loop gain: job {job.name}, corner {corner.name}")
     return Testbench(corner=corner, values=full_values, deck=deck, steps=steps, loops=loops,
                      files=amplifier.files, notes=tuple(notes), label=label or corner.name,
                      op_probe=op_probe)

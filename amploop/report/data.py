@@ -271,7 +271,8 @@ class _Figures:
                               default=None)
         self.final_entry = next((h for h in self.story if h["step"] == self.final_step), None)
         # the maps: the last three characterisation samples of each corner
-        self.samples = [h for h in history if h["kind"] in ("characterise", "report-map")][-3:]
+        self.samples = [h for h in history if h["kind"] in
+                        ("characterise", "characterise-ports", "report-map")][-3:]
         # a settling tune's characterisations ran the closed-loop response too
         self.closed_loop = needs_settling(results) and all(
             h["kind"] == "characterise" for h in self.samples)

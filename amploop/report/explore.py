@@ -47,7 +47,7 @@ EXPLORE_FILE = "explore.html"
 #: The figures the margins table shows, by their results.json key.
 TABLE_KEYS = ("dc_loop_gain_db", "unity_gain_hz", "phase_margin_deg", "gain_margin_db")
 
-_MAP_KINDS = ("characterise", "report-map")
+_MAP_KINDS = ("characterise", "characterise-ports", "report-map")
 
 #: The page's scripts, inlined in this order: the maths, the Bode plots, the map view,
 #: then the controls and the table (which start the page).

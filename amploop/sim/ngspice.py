@@ -238,7 +238,7 @@ class NgspiceSession:
         if self.broken:
             raise SimulatorError("ngspice session is no longer usable", place=request.label,
                                  kind="crash")
-        started = time.perf_counter()
+        started, cpu_started = time.perf_counter(), time.process_time()
         messages = self._load_checked(request)
         reads: list[dict[str, np.ndarray]] = []
         warnings: list[str] = []
@@ -253,6 +253,7 @@ class NgspiceSession:
             warnings=tuple(dict.fromkeys(warnings)),
             transient_op=_TRANSIENT_OP_WARNING in warnings,
             seconds=time.perf_counter() - started,
+            cpu_seconds=time.process_time() - cpu_started,
             messages=tuple(messages),
         )
 

@@ -37,6 +37,8 @@ class Runner:
         AC analyses simulated, and AC analyses taken from the journal.
     simulator_seconds
         Wall time, seconds, the workers spent inside ngspice on the requests simulated.
+    simulator_cpu_seconds
+        CPU time, seconds, of the workers during those requests.
     transient_run, transient_reused
         Transient analyses simulated, and transient analyses taken from the journal.
     """
@@ -47,6 +49,7 @@ class Runner:
     ac_run: int = 0
     ac_reused: int = 0
     simulator_seconds: float = 0.0  # wall time the workers spent inside ngspice
+    simulator_cpu_seconds: float = 0.0  # CPU time of the workers inside ngspice
     transient_run: int = 0
     transient_reused: int = 0
 
@@ -91,6 +94,7 @@ class Runner:
             request = requests[key]
             if isinstance(output, AnalysisOutput):
                 self.simulator_seconds += output.seconds
+                self.simulator_cpu_seconds += output.cpu_seconds
                 self.ac_run += request.ac_runs
                 self.transient_run += _transients(request)
                 self.ac_reused += request.ac_runs * (len(by_key[key]) - 1)

@@ -244,16 +244,34 @@ class Evaluator:
             out.append(point)
             keys = {c.name: self.runner.key_of(requests_by_key[(i, c.name)])
                     for c in self.corners}
-            entry = HistoryEntry(step=len(self.history) + 1, kind=kind, values=values,
-                                 worst=point.worst, ac_analyses=round(before + per_point * (i + 1)),
-                                 note=note, analyses=keys)
-            self.history.append(entry)
-            for c in corners:
-                if c.loop_gain is not None:
-                    self.loop_gains[(entry.step, c.corner.name)] = c.loop_gain
-            if self.progress is not None:
-                self.progress(entry)
+            self.record(point, kind, note, keys, round(before + per_point * (i + 1)))
         return out
+
+    def record(self, point: PointResult, kind: str, note: str, keys: dict[str, str],
+               ac_analyses: int) -> HistoryEntry:
+        """Add ``point`` to the history (and its loop gains to :attr:`loop_gains`).
+
+        Parameters
+        ----------
+        point
+            The simulated point.
+        kind, note
+            See :class:`HistoryEntry`.
+        keys
+            Corner name -> journal key of its analysis.
+        ac_analyses
+            AC analyses (run and reused) so far, this point included.
+        """
+        entry = HistoryEntry(step=len(self.history) + 1, kind=kind, values=point.values,
+                             worst=point.worst, ac_analyses=ac_analyses, note=note,
+                             analyses=keys)
+        self.history.append(entry)
+        for c in point.corners:
+            if c.loop_gain is not None:
+                self.loop_gains[(entry.step, c.corner.name)] = c.loop_gain
+        if self.progress is not None:
+            self.progress(entry)
+        return entry
 
     def device_quantities(self, quantities: dict[str, str], values: dict[str, float]
                           ) -> dict[str, dict[str, float]]:

@@ -9,6 +9,7 @@ __all__ = ["KIND_LABELS", "TEXTBOOK_KINDS", "kind_label"]
 #: History kind -> what the terminal, the report and results.json call it.
 KIND_LABELS: dict[str, str] = {
     "characterise": "map sample",
+    "characterise-ports": "map from the compensation's ports",
     "verify": "check",
     "start": "textbook start",
     "dominant-pole": "dominant-pole step",

@@ -19,6 +19,8 @@ simulated settling times are the ones reported, beside the predictions.
 from __future__ import annotations
 
 from amploop.analysis.compmap import CompensationMap
+from amploop.analysis.twomap import TwoElementMap, two_element_samples
+from amploop.bench.branch import compensation_branch
 from amploop.corners.stepcheck import run_step_checks, step_stop_s, step_window_s
 from amploop.spec.limits import Target
 from amploop.spice.units import describe_values, engineering
@@ -26,6 +28,7 @@ from amploop.strategy.common import Evaluator, Outcome, PointResult, bounds_of, 
 from amploop.strategy.devicemap import tune_device_by_map
 from amploop.strategy.mapgrid import CommonModeLoop
 from amploop.strategy.mapsolve import MapSolution, round_on_maps, solve_on_maps
+from amploop.strategy.portchar import characterise_ports, port_form
 from amploop.strategy.samplerule import sample_rule
 from amploop.strategy.samples import initial_samples, samples_around
 from amploop.strategy.settlemap import SettlingLoop, settling_agreement
@@ -47,13 +50,43 @@ def knob_values(point: dict[str, float], has_rc: bool) -> dict[str, float]:
 def _maps(evaluator: Evaluator, results: list[PointResult], loop: str = "loop_gain"
           ) -> dict[str, CompensationMap]:
     """Each corner's map of its ``loop`` (the attribute of its results: the main loop's
-    ``loop_gain``, or the ``common_mode_loop_gain``) from the three samples ``results``."""
+    ``loop_gain``, or the ``common_mode_loop_gain``) from the samples ``results``: three
+    for the one-impedance map, seven for the two-element one."""
+    kind = TwoElementMap if len(results) == 7 else CompensationMap
     maps = {}
     for index, corner in enumerate(evaluator.corners):
         samples = [(p.values["cc"], p.values.get("rc", 0.0)) for p in results]
         responses = [getattr(p.corners[index], loop) for p in results]
-        maps[corner.name] = CompensationMap.from_loop_gains(samples, responses)
+        maps[corner.name] = kind.from_loop_gains(samples, responses)
     return maps
+
+
+def map_form(evaluator: Evaluator) -> str:
+    """``"two-element"`` when Rc is tuned and the node between Rc and Cc has other
+    connections in the netlist (wiring, a bottom-plate capacitance: the loop gain is then
+    bilinear in Rc and in 1/Cc separately, seven samples per corner), else
+    ``"one-impedance"`` (bilinear in Z = Rc + 1/(sCc), three samples)."""
+    if "rc" not in evaluator.amplifier.job.compensation:
+        return "one-impedance"  # Cc alone is one element, whatever its node carries
+    branch = compensation_branch(evaluator.amplifier)
+    return branch.form if branch is not None else "one-impedance"
+
+
+def _samples(form: str, cc_bounds, rc_bounds, rc_value: float) -> list[dict[str, float]]:
+    """The first round's samples of the map of ``form``."""
+    if form == "two-element":
+        return two_element_samples(cc_bounds, rc_bounds, rc_value)
+    return initial_samples(cc_bounds, rc_value)
+
+
+def _samples_near(form: str, cc: float, rc: float, cc_bounds, rc_bounds
+                  ) -> list[dict[str, float]]:
+    """A later round's samples of the map of ``form``, around (``cc``, ``rc``)."""
+    if form == "two-element":
+        near_cc = (max(cc * 0.8, cc_bounds[0]), min(cc * 1.25, cc_bounds[1]))
+        near_rc = (max(rc * 0.8, rc_bounds[0]), min(rc * 1.25, rc_bounds[1]))
+        return two_element_samples(near_cc, near_rc, rc)
+    return samples_around(cc, rc, cc_bounds)
 
 
 def _common_mode(evaluator: Evaluator, results: list[PointResult], target: Target
@@ -133,21 +166,34 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
     agreement = target.tolerance_deg / 10.0
 
     rule = sample_rule(evaluator.corners, target, aim)  # a sigma or yield target's samples
-    samples = initial_samples(cc_bounds, rc_sample)
+    form = map_form(evaluator)
+    # the settling objective's closed-loop maps come from the sampled path
+    ports = None if target.needs_settling else port_form(
+        evaluator, compensation_branch(evaluator.amplifier), form)
+    samples = _samples(form, cc_bounds, rc_bounds, rc_sample)
+    reference = initial_samples(cc_bounds, rc_sample)[1]
     solution: MapSolution | None = None
     verified: PointResult | None = None
     predictions = []
     for round_number in range(1, max_rounds + 1):
-        characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
-                                           kind="characterise",
-                                           note=f"round {round_number}",
-                                           closed_loop=target.needs_settling)
-        failed = next((p for p in characterised if p.errors), None)
-        if failed is not None:
-            return not_simulated(failed, in_effect)
-        maps = _maps(evaluator, characterised)
-        common_mode = _common_mode(evaluator, characterised, target)
-        settling = _settling(evaluator, characterised, target)
+        if ports is not None:  # one analysis per corner, exact in either form
+            point, maps = characterise_ports(
+                evaluator, knob_values(reference, has_rc), ports,
+                compensation_branch(evaluator.amplifier), note=f"round {round_number}")
+            if point.errors:
+                return not_simulated(point, in_effect)
+            common_mode = settling = None
+        else:
+            characterised = evaluator.simulate([knob_values(p, has_rc) for p in samples],
+                                               kind="characterise",
+                                               note=f"round {round_number}",
+                                               closed_loop=target.needs_settling)
+            failed = next((p for p in characterised if p.errors), None)
+            if failed is not None:
+                return not_simulated(failed, in_effect)
+            maps = _maps(evaluator, characterised)
+            common_mode = _common_mode(evaluator, characterised, target)
+            settling = _settling(evaluator, characterised, target)
         optimum = solve_on_maps(maps, cc_bounds, rc_bounds, aim, target.gain_margin_db,
                                 common_mode=common_mode, rule=rule, settling=settling)
         # 4 significant digits, what a designer writes into the netlist and what is
@@ -163,10 +209,12 @@ def tune_by_map(evaluator: Evaluator, target: Target, *, max_rounds: int = 3) ->
             return not_simulated(verified)
         if abs(worst.phase_margin_deg - solution.phase_margin_deg) <= agreement:
             break
-        samples = samples_around(solution.cc, solution.rc, cc_bounds)
+        samples = _samples_near(form, solution.cc, solution.rc, cc_bounds, rc_bounds)
+        reference = {"cc": solution.cc, "rc": solution.rc}
     assert solution is not None and verified is not None
     worst = verified.worst
-    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions)}
+    extra = {"predicted": [p.__dict__ for p in predictions], "rounds": len(predictions),
+             "map_form": form, "map_method": "samples" if ports is None else "ports"}
     if settling is not None and not verified.errors:
         # verification in the time domain: the step transients at every corner
         extra["step_checks"], extra["settling"] = _verify_settling(

@@ -70,6 +70,8 @@ class TuneResult:
         (history step, corner name) -> the loop gain simulated there.
     simulator_seconds
         Wall time, seconds, the workers spent inside ngspice.
+    simulator_cpu_seconds
+        CPU time, seconds, of the workers inside ngspice.
     step_checks
         Corner name -> :class:`~amploop.corners.stepcheck.StepCheck` at the final values (empty
         when not run).
@@ -93,6 +95,7 @@ class TuneResult:
     compensated: dict | None = None
     loop_gains: dict | None = None
     simulator_seconds: float = 0.0
+    simulator_cpu_seconds: float = 0.0
     step_checks: dict = field(default_factory=dict)
     transient_run: int = 0
     transient_reused: int = 0
@@ -161,6 +164,10 @@ class TuneResult:
             "device": device_json(self.outcome.extra.get("device")),
             # per corner: predicted and simulated settling time (tuning for settling)
             "settling_prediction": self.outcome.extra.get("settling"),
+            # the map strategy's form ("one-impedance", "two-element") and method ("ports",
+            # "samples"); None for other strategies
+            "map_form": self.outcome.extra.get("map_form"),
+            "map_method": self.outcome.extra.get("map_method"),
             "warnings": list(self.warnings),
             "seconds": self.seconds,
             **statistics_entry(self.job, self.corners),
@@ -284,7 +291,10 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
                 h.kind == "characterise" for h in evaluator.history):
             # the report's map page needs three samples per corner; journalled like the
             # rest, kept apart in the history
-            evaluator.simulate(_report_samples(evaluator), kind="report-map",
+            samples = _report_samples(evaluator)
+            if any(h.kind == "characterise-ports" for h in evaluator.history):
+                samples = [samples[0], samples[2]]  # the middle one is the port reference
+            evaluator.simulate(samples, kind="report-map",
                                note="samples for the report's compensation map")
         checks = outcome.extra.pop("step_checks", None) or {}
         if outcome.final is not None and time_domain and not checks:
@@ -317,7 +327,8 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
                         ac_reused=runner.ac_reused, out=folder.path if folder else None,
                         seconds=time.perf_counter() - started, compensated=compensated,
                         loop_gains=dict(evaluator.loop_gains),
-                        simulator_seconds=runner.simulator_seconds, step_checks=checks,
+                        simulator_seconds=runner.simulator_seconds,
+                        simulator_cpu_seconds=runner.simulator_cpu_seconds, step_checks=checks,
                         transient_run=runner.transient_run,
                         transient_reused=runner.transient_reused,
                         values_in_netlist=amplifier.values_in_effect({}),
@@ -382,6 +393,7 @@ def _write_interrupted(folder: OutFolder, amplifier: Amplifier, strategy: str,
                         ac_reused=runner.ac_reused, out=folder.path,
                         seconds=time.perf_counter() - started,
                         simulator_seconds=runner.simulator_seconds,
+                        simulator_cpu_seconds=runner.simulator_cpu_seconds,
                         transient_run=runner.transient_run,
                         transient_reused=runner.transient_reused,
                         values_in_netlist=amplifier.values_in_effect({}),
