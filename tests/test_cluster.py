@@ -143,8 +143,7 @@ def test_a_worker_killed_mid_run_costs_a_retry_and_the_run_completes(cluster, lo
                                                                       tmp_path):
     with ClusterPool(cluster.scheduler_address) as pool:
         killing = KillingPool(pool)
-        result = tune(load_job(DEMO / "job.toml"), out=tmp_path / "out", pool=killing,
-                      time_domain=False)
+        result = tune(load_job(DEMO / "job.toml"), out=tmp_path / "out", pool=killing)
         assert killing.killed is not None
         assert killing.killed not in pool.client.run(os.getpid).values()
     assert result.status == "converged"

@@ -260,8 +260,16 @@ def build_explore(out: str | Path) -> ExploreOutcome:
     folder = OutFolder(out)
     with folder.lock(join=True), load_report_data(folder.path) as data:
         if not data.maps:
-            raise JobError("no compensation maps in this out folder: explore.html needs a "
-                           "tune with the map strategy", file=data.out / "results.json")
+            by_ports = any(h.get("kind") == "characterise-ports"
+                           for h in data.results.get("history", []))
+            raise JobError(
+                "no compensation maps in this out folder: " + (
+                    "this tune characterised its corners at the compensation's ports and ran "
+                    "no report, so the page's sampled maps were not simulated" if by_ports
+                    else "explore.html needs a tune with the map strategy"),
+                file=data.out / "results.json",
+                hint="run the same tune without --no-report; the journal makes it quick"
+                if by_ports else None)
         maps = {name: data.maps[name] for name in data.maps}
         cm_maps = {name: data.cm_maps[name] for name in data.cm_maps}
         text = explore_page(data.results, maps, cm_maps)

@@ -289,8 +289,8 @@ def _tune_into(job: Job, amplifier: Amplifier, folder: OutFolder | None, journal
         outcome, remarks = _with_remarks(evaluator, outcome)
         if outcome.final is not None and time_domain and not any(
                 h.kind == "characterise" for h in evaluator.history):
-            # the report's map page needs three samples per corner; journalled like the
-            # rest, kept apart in the history
+            # the report's map page and the what-if page need three samples per corner;
+            # journalled like the rest, kept apart in the history
             samples = _report_samples(evaluator)
             if any(h.kind == "characterise-ports" for h in evaluator.history):
                 samples = [samples[0], samples[2]]  # the middle one is the port reference
