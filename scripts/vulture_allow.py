@@ -15,4 +15,5 @@ _.allowed = (
     _.dc_path,  # amploop/spec/model.py: read by name, feedback("dc_path"), in the testbench
     _.to_dataframe,  # corners/results.py, strategy/tune.py: public API for notebook users
     _.to_frd,  # corners/results.py, strategy/tune.py: public API (python-control FRD objects)
+    _.settling_corner,  # strategy/mapsolve.py: set by name (_settling_of), read in results.json
 )

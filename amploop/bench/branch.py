@@ -48,15 +48,6 @@ class CompensationBranch:
         ``"one-impedance"`` (bilinear in Z = Rc + 1/(sCc))."""
         return "two-element" if self.rc_element and self.middle_connections else "one-impedance"
 
-    def alters(self, values: dict[str, float]) -> list[str]:
-        """ngspice commands that set ``values`` (``cc`` farads, ``rc`` ohms) in a loaded
-        testbench, written with ``%.17g`` (``%g`` cost 5e-6 relative)."""
-        commands = [f"alter c.{INSTANCE}.{self.cc_element.lower()} = {values['cc']:.17g}"]
-        if self.rc_element is not None and "rc" in values:
-            commands.append(f"alter r.{INSTANCE}.{self.rc_element.lower()} = "
-                            f"{values['rc']:.17g}")
-        return commands
-
 
 def _element_of(amplifier: Amplifier, role: str, letter: str) -> Statement | None:
     """The one element of kind ``letter`` (``"c"``, ``"r"``) that holds the knob ``role``:
