@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from amploop.analysis.loopgain import FrequencyResponse
+from amploop.analysis.loopgain import FrequencyResponse, LoopGainMap
 
 __all__ = ["CompensationMap", "branch_impedance", "mobius_through_three"]
 
@@ -84,7 +84,7 @@ def mobius_through_three(z: tuple, w: tuple, query: np.ndarray) -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class CompensationMap:
+class CompensationMap(LoopGainMap):
     """One corner's loop gain as a function of (Cc, Rc), from three samples.
 
     Attributes
@@ -182,7 +182,3 @@ class CompensationMap:
             scc = s * cc
             z_scaled = scc * rc + 1.0
             return (a * z_scaled + b * scc) / (c * z_scaled + d * scc)
-
-    def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
-        """The predicted loop gain at one Cc, ``cc_f`` (farads), and Rc, ``rc_ohm`` (ohms)."""
-        return FrequencyResponse(self.frequency_hz, self.loop_gain_values(cc_f, rc_ohm))

@@ -11,7 +11,7 @@ from functools import cached_property
 
 import numpy as np
 
-__all__ = ["FrequencyResponse", "double_injection", "unwrap_from_dc", "voltage_break"]
+__all__ = ["FrequencyResponse", "LoopGainMap", "double_injection", "unwrap_from_dc", "voltage_break"]
 
 
 @dataclass(frozen=True)
@@ -115,3 +115,29 @@ def voltage_break(v_a: np.ndarray, v_b: np.ndarray) -> np.ndarray:
         Node voltage (complex) on the feedback side ``b``, where the AC voltage is driven.
     """
     return -np.asarray(v_a, dtype=complex) / np.asarray(v_b, dtype=complex)
+
+
+class LoopGainMap:
+    """What every compensation map offers (the one-impedance map, the two-element map, the
+    port map): the loop gain at any (Cc, Rc) of one corner, predicted without simulating.
+    A subclass has ``frequency_hz`` and implements :meth:`loop_gain_values`."""
+
+    frequency_hz: np.ndarray
+
+    def loop_gain_values(self, cc_f, rc_ohm, frequency_index=None) -> np.ndarray:
+        """Complex T at every frequency for each (Cc, Rc); shape ``broadcast(cc, rc) + (n_f,)``.
+
+        Parameters
+        ----------
+        cc_f
+            Cc, farads (0: the branch is open).
+        rc_ohm
+            Rc, ohms; broadcast against ``cc_f``.
+        frequency_index
+            Picks a subset of the frequencies; None for all of them.
+        """
+        raise NotImplementedError
+
+    def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
+        """The predicted loop gain at one Cc, ``cc_f`` (farads), and Rc, ``rc_ohm`` (ohms)."""
+        return FrequencyResponse(self.frequency_hz, self.loop_gain_values(cc_f, rc_ohm))

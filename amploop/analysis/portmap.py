@@ -31,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from amploop.analysis.loopgain import FrequencyResponse
+from amploop.analysis.loopgain import LoopGainMap
 
 __all__ = ["R_MIN_OHM", "PortMap"]
 
@@ -51,7 +51,7 @@ def _admittances(form: str, s: np.ndarray, cc, rc) -> list[np.ndarray]:
 
 
 @dataclass(frozen=True)
-class PortMap:
+class PortMap(LoopGainMap):
     """One corner's loop gain at every (Cc, Rc) from its port characterisation.
 
     Attributes
@@ -117,7 +117,3 @@ class PortMap:
             y.append(c[k] + d[k, 0] * delta[0] * v1 + d[k, 1] * delta[1] * v2)
         with np.errstate(divide="ignore", invalid="ignore"):
             return 1.0 / (y[0] - y[1]) - 1.0
-
-    def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
-        """The predicted loop gain at one Cc, ``cc_f`` (farads), and Rc, ``rc_ohm`` (ohms)."""
-        return FrequencyResponse(self.frequency_hz, self.loop_gain_values(cc_f, rc_ohm))

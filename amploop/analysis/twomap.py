@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from amploop.analysis.loopgain import FrequencyResponse
+from amploop.analysis.loopgain import FrequencyResponse, LoopGainMap
 
 __all__ = ["TWO_ELEMENT_SAMPLES", "TwoElementMap", "two_element_samples"]
 
@@ -70,7 +70,7 @@ def two_element_samples(cc_bounds: tuple[float, float], rc_bounds: tuple[float, 
 
 
 @dataclass(frozen=True)
-class TwoElementMap:
+class TwoElementMap(LoopGainMap):
     """One corner's loop gain as a function of (Cc, Rc) from seven samples, exact when
     the node between Rc and Cc has other connections.
 
@@ -174,7 +174,3 @@ class TwoElementMap:
             num = (n[:, 0] + n[:, 1] * x) * k + n[:, 2] + n[:, 3] * x
             den = (d[:, 0] + d[:, 1] * x) * k + d[:, 2] + d[:, 3] * x
             return den / num - 1.0
-
-    def loop_gain(self, cc_f: float, rc_ohm: float) -> FrequencyResponse:
-        """The predicted loop gain at one Cc, ``cc_f`` (farads), and Rc, ``rc_ohm`` (ohms)."""
-        return FrequencyResponse(self.frequency_hz, self.loop_gain_values(cc_f, rc_ohm))

@@ -20,7 +20,7 @@ from amploop.spice.rewrite import add_subckt_ports
 from amploop.spice.source import Statement
 from amploop.spice.units import parse_value
 
-__all__ = ["CommonModeBreak", "dc_value", "locate_common_mode_break"]
+__all__ = ["CommonModeBreak", "dc_value", "locate_common_mode_break", "zero_volt_source"]
 
 _GROUND = {"0", "gnd"}
 
@@ -77,24 +77,10 @@ def locate_common_mode_break(job: Job, subckt: Subckt) -> CommonModeBreak | None
     if name is None:
         return None
     place = "[amplifier].common_mode_break"
-    statement = subckt.element(name)
-    sources = [s.tokens[0] for s in subckt.elements() if s.keyword.startswith("v")]
-    if statement is None or "." in name:
-        raise NetlistError(
-            f"{name!r} is not an element of subckt {subckt.name} (its voltage sources: "
-            f"{' '.join(sources) or 'none'})" + closest_names(name, sources),
-            file=job.path, place=place)
+    statement = None if "." in name else subckt.element(name)
+    statement = zero_volt_source(statement, name, subckt.elements(), f"subckt {subckt.name}",
+                                 "the common-mode feedback path", job, place)
     where = f"{statement.file.name}:{statement.line}"
-    if not statement.keyword.startswith("v") or len(statement.tokens) < 3:
-        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a voltage source; the "
-                           "break is a 0 V voltage source on the common-mode feedback path",
-                           file=job.path, place=place)
-    value = dc_value(statement.tokens[3:])
-    if value != 0.0:
-        shown = " ".join(statement.tokens[3:]) or "no value"
-        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a 0 V source ({shown}); "
-                           "the break must leave the operating point alone",
-                           file=job.path, place=place, hint="give it 'dc 0' and nothing else")
     drive, driven = statement.tokens[1], statement.tokens[2]
     for node in (drive, driven):
         if node.lower() in _GROUND:
@@ -109,6 +95,31 @@ def locate_common_mode_break(job: Job, subckt: Subckt) -> CommonModeBreak | None
         raise NetlistError(f"{statement.tokens[0]} ({where}) has both ends on {drive}",
                            file=job.path, place=place)
     return CommonModeBreak(statement=statement, drive=drive, driven=driven)
+
+
+def zero_volt_source(statement: Statement | None, name: str, elements, within: str, on: str,
+                     job: Job, place: str) -> Statement:
+    """``statement``, the element a job names ``name`` as a loop's break, checked: found
+    among ``elements`` (of ``within``, e.g. ``"subckt ota"``; their voltage sources are
+    listed when not), a voltage source, and 0 V at DC with no AC value (the break must
+    leave the operating point alone). Each failure is a NetlistError at ``place`` of
+    ``job``'s file; ``on`` names the loop the break belongs on."""
+    if statement is None:
+        sources = [s.tokens[0] for s in elements if s.keyword.startswith("v")]
+        raise NetlistError(f"{name!r} is not an element of {within} (its voltage sources: "
+                           f"{' '.join(sources) or 'none'})" + closest_names(name, sources),
+                           file=job.path, place=place)
+    where = f"{statement.file.name}:{statement.line}"
+    if not statement.keyword.startswith("v") or len(statement.tokens) < 3:
+        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a voltage source; the "
+                           f"break is a 0 V voltage source on {on}", file=job.path,
+                           place=place)
+    if dc_value(statement.tokens[3:]) != 0.0:
+        shown = " ".join(statement.tokens[3:]) or "no value"
+        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a 0 V source ({shown}); "
+                           "the break must leave the operating point alone",
+                           file=job.path, place=place, hint="give it 'dc 0' and nothing else")
+    return statement
 
 
 def dc_value(tokens: tuple[str, ...]) -> float | None:

@@ -16,8 +16,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from amploop.bench.cmbreak import dc_value
-from amploop.bench.knobsites import closest_names
+from amploop.bench.cmbreak import zero_volt_source
 from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_FEEDBACK, NODE_FEEDBACK_N
 from amploop.errors import NetlistError
 from amploop.spec.model import Job
@@ -176,21 +175,9 @@ def _break(job: Job, top: list[Statement], name: str, number: int) -> Statement:
     deck's top-level statements ``top``, checked."""
     place = "[testbench].break" + (f"[{number}]" if len(job.testbench.breaks) > 1 else "")
     statement = next((s for s in top if s.keyword == name.lower()), None)
-    sources = [s.tokens[0] for s in top if s.keyword.startswith("v")]
-    if statement is None:
-        raise NetlistError(f"{name!r} is not an element of the testbench's top level (its "
-                           f"voltage sources: {' '.join(sources) or 'none'})"
-                           + closest_names(name, sources), file=job.path, place=place)
+    statement = zero_volt_source(statement, name, top, "the testbench's top level", "the loop",
+                                 job, place)
     where = f"{statement.file.name}:{statement.line}"
-    if not statement.keyword.startswith("v") or len(statement.tokens) < 3:
-        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a voltage source; the "
-                           "break is a 0 V voltage source on the loop", file=job.path,
-                           place=place)
-    if dc_value(statement.tokens[3:]) != 0.0:
-        raise NetlistError(f"{statement.tokens[0]} ({where}) is not a 0 V source "
-                           f"({' '.join(statement.tokens[3:])}); the break must leave the "
-                           "operating point alone", file=job.path, place=place,
-                           hint="give it 'dc 0' and nothing else")
     a, b = statement.tokens[1], statement.tokens[2]
     if a.lower() in _GROUND or b.lower() in _GROUND or a.lower() == b.lower():
         raise NetlistError(f"{statement.tokens[0]} ({where}) must sit on the loop, between "

@@ -76,10 +76,10 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
         return CornerResult(corner=bench.corner, status="error",
                             error="the simulator returned non-finite loop-gain values")
     op = bench.operating_point(output)
+    cm_response = bench.common_mode_loop_gain(output)
     # figures a worker already read off (CornerWork), else read them here
     margins, status, reason, common_mode = output.after if output.after is not None else \
-        corner_figures(bench, output)
-    cm_response = bench.common_mode_loop_gain(output)
+        corner_figures(bench, response, op, cm_response)
     return CornerResult(
         corner=bench.corner,
         status=status,
@@ -96,16 +96,16 @@ def result_from_output(bench: Testbench, output, amplifier: Amplifier | None = N
     )
 
 
-def corner_figures(bench: Testbench, output) -> tuple:
-    """The margins of a finished analysis ``output`` of ``bench``, its status and reason
-    (:func:`~amploop.corners.results.assess_loop_gain`), and the common-mode loop's
-    margins (None when not measured). A common-mode loop that is negative at DC makes the
-    corner an error, one that never crosses 0 dB makes it suspect, each saying so."""
-    response = bench.loop_gain(output)
+def corner_figures(bench: Testbench, response: FrequencyResponse, op,
+                   cm_response: FrequencyResponse | None) -> tuple:
+    """The margins of ``response``, the loop gain of a finished analysis of ``bench`` with
+    the operating point ``op``, its status and reason
+    (:func:`~amploop.corners.results.assess_loop_gain`), and the margins of
+    ``cm_response``, the common-mode loop gain (None when not measured). A common-mode
+    loop that is negative at DC makes the corner an error, one that never crosses 0 dB
+    makes it suspect, each saying so."""
     probe = bench.op_probe
-    margins, status, reason = assess_loop_gain(response, bench.operating_point(output),
-                                               probe and probe.limits)
-    cm_response = bench.common_mode_loop_gain(output)
+    margins, status, reason = assess_loop_gain(response, op, probe and probe.limits)
     if cm_response is None:
         return margins, status, reason, None
     common_mode, problem = assess_common_mode(cm_response)
@@ -186,8 +186,11 @@ class CornerWork:
             write_into(self.folder, self.cm_csv, loop_gain_csv(cm_response), atomic=False)
 
     def __call__(self, output) -> tuple[Margins, str, str | None, Margins | None]:
-        figures = corner_figures(self.bench, output)
-        self.write_files(self.bench.loop_gain(output), self.bench.common_mode_loop_gain(output))
+        response = self.bench.loop_gain(output)
+        cm_response = self.bench.common_mode_loop_gain(output)
+        figures = corner_figures(self.bench, response, self.bench.operating_point(output),
+                                 cm_response)
+        self.write_files(response, cm_response)
         return figures
 
 
