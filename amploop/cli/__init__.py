@@ -282,7 +282,9 @@ def _run_tune(args) -> ExitCode:
                 print(f"no compensated netlist written: the run is {result.status}")
         if not args.no_report and result.outcome.final is not None:
             _write_report(result.out, args, quiet=args.quiet or args.json)
-        if args.strategy == "map" and result.outcome.final is not None:
+        # a tune characterised at its ports has the page's sampled maps only with the report
+        sampled = not args.no_report or data.get("map_method") != "ports"
+        if args.strategy == "map" and result.outcome.final is not None and sampled:
             _write_explore(result.out, quiet=args.quiet or args.json, strict=False)
         else:  # no maps: a page of an earlier run's would look current
             from amploop.report.explore import remove_explore
