@@ -7,6 +7,7 @@ demo amplifier with dangling RC wires added to some of its nets).
 
 from __future__ import annotations
 
+import dataclasses
 import sys
 from pathlib import Path
 
@@ -95,6 +96,39 @@ def test_saving_only_the_vectors_read_changes_no_loop_gain(session, job_file):
         assert np.max(np.abs(t_new / t_old - 1)) < 1e-6
         for name, value in old.reads[-1].items():
             np.testing.assert_allclose(new.reads[-1][name], value, rtol=1e-9)
+
+
+@pytest.mark.parametrize("job_file", [REPO / "netlists" / "demo" / "job.toml",
+                                      REPO / "netlists" / "ptm45" / "job.toml"])
+def test_a_supply_at_0_v_tied_to_ground_changes_no_loop_gain(session, job_file):
+    """A ``[bias]`` supply written as 0 V is tied to ground: no source line for it, and
+    the loop gain and operating point of the deck that holds it with a 0 V source (the
+    old deck, made here by writing the same 0 V as the expression ``{0}``) within 1e-9
+    relative at every frequency. A 0 V source is a short (circuit theory, common
+    practice); a supply written as an expression keeps its source."""
+    job = load_job(job_file)
+    zero = [s.port for s in job.bias.sources if s.kind == "volts" and s.value.strip() == "0"]
+    assert zero == ["vss"]
+    old_sources = tuple(dataclasses.replace(s, value="{0}") if s.port in zero else s
+                        for s in job.bias.sources)
+    old_job = dataclasses.replace(job, bias=dataclasses.replace(job.bias, sources=old_sources))
+    amplifier, old_amplifier = prepare_amplifier(job), prepare_amplifier(old_job)
+    for corner in job.corners[:2]:
+        bench = build_testbench(amplifier, corner, {})
+        old_bench = build_testbench(old_amplifier, corner, {})
+        assert "* port vss tied to ground" in bench.deck and " tb_vss " not in bench.deck
+        assert "tied to ground" not in old_bench.deck
+        assert any(line.startswith("Vbias") and " tb_vss 0 dc {0}" in line
+                   for line in old_bench.deck.splitlines())
+        new, old = session.run(bench.request(120)), session.run(old_bench.request(120))
+        t_new, t_old = bench.loop_gain(new).values, old_bench.loop_gain(old).values
+        assert np.max(np.abs(t_new / t_old - 1)) < 1e-9
+        op_new, op_old = bench.operating_point(new), old_bench.operating_point(old)
+        for field in ("output_v", "common_mode_v", "supply_span_v", "inverting_input_v"):
+            assert getattr(op_new, field) == pytest.approx(getattr(op_old, field), rel=1e-9)
+        assert [d.name for d in op_new.devices] == [d.name for d in op_old.devices]
+        assert [d.vds_v for d in op_new.devices] == pytest.approx(
+            [d.vds_v for d in op_old.devices], rel=1e-9)
 
 
 def _port_map(session, amplifier, corner, form, reference):

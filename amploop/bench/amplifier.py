@@ -13,7 +13,7 @@ from pathlib import Path
 
 from amploop.bench.cmbreak import CommonModeBreak, locate_common_mode_break
 from amploop.bench.knobsites import Device, KnobSite, closest_names, device_site, locate_knob
-from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_CM_DRIVE, NODE_CM_DRIVEN, port_node
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_CM_DRIVE, NODE_CM_DRIVEN, bias_node
 from amploop.bench.usertb import UserDeck, read_user_deck
 from amploop.errors import NetlistError
 from amploop.spec.model import Job
@@ -102,7 +102,8 @@ class Amplifier:
             return "v(tb_inp)"
         if port.lower() == self.job.amplifier.in_n.lower():
             return "v(tb_inn)"
-        return f"v({port_node(port)})"
+        node = bias_node(self.job.bias, port)
+        return "0" if node == "0" else f"v({node})"
 
     @property
     def files(self) -> tuple[Path, ...]:

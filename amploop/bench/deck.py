@@ -9,7 +9,7 @@ from __future__ import annotations
 from functools import partial
 
 from amploop.bench.amplifier import Amplifier
-from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_FEEDBACK, NODE_FEEDBACK_N, port_node
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, NODE_FEEDBACK, NODE_FEEDBACK_N, bias_node
 from amploop.spec.model import Corner
 from amploop.spice.ngread import deck_text
 from amploop.spice.units import parse_value, spice_number
@@ -115,12 +115,14 @@ def closed_loop_deck(
         job.amplifier.out.lower(): NODE_AMP,
     }
     for number, source in enumerate(job.bias.sources, start=1):
-        node = port_node(source.port)
+        node = bias_node(job.bias, source.port)
         nodes[source.port.lower()] = node
         place = f"[bias].{source.port}"
         value = quote(text(source.value, place))
         port = text(source.port, place)
-        if source.kind == "volts":
+        if node == "0":  # the same circuit as a 0 V source, with one node fewer
+            lines.append(f"* port {port} tied to ground ([bias] holds it at 0 V)")
+        elif source.kind == "volts":
             lines.append(f"Vbias{number} {node} 0 dc {value}  ; port {port}")
         else:
             lines.append(f"Ibias{number} {node} 0 dc {value}  ; port {port}")

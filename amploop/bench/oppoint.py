@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, port_node
+from amploop.bench.nodes import NODE_AMP, NODE_AMP_N, bias_node
 from amploop.bench.requests import Step
 from amploop.spec.limits import OperatingPointLimits
 from amploop.spice.units import engineering
@@ -223,8 +223,8 @@ class OperatingPointProbe:
         """The read-out for ``amplifier``'s testbench."""
 
         job = amplifier.job
-        supplies = tuple(dict.fromkeys(f"v({port_node(s.port)})" for s in job.bias.sources
-                                       if s.kind == "volts"))
+        tied = (bias_node(job.bias, s.port) for s in job.bias.sources if s.kind == "volts")
+        supplies = tuple(dict.fromkeys(f"v({node})" for node in tied if node != "0"))
         devices = tuple((role, getattr(job.amplifier, role)) for role in _ROLES
                         if getattr(job.amplifier, role))
         if job.testbench is not None:  # the user's deck: no common mode known to amploop
@@ -232,7 +232,7 @@ class OperatingPointProbe:
                        devices=devices, limits=job.operating_point, inverting_input=None)
         if job.amplifier.fully_differential:  # the CMFB reference, or the signal source
             reference = job.amplifier.common_mode_reference
-            common_mode = f"v({port_node(reference)})" if reference else "v(tb_sig)"
+            common_mode = f"v({bias_node(job.bias, reference)})" if reference else "v(tb_sig)"
             return cls(output=f"v({NODE_AMP})", common_mode=common_mode, supplies=supplies,
                        devices=devices, limits=job.operating_point,
                        output_n=f"v({NODE_AMP_N})")
