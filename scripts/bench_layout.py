@@ -2,11 +2,13 @@
 
 Run:  .venv/bin/python scripts/bench_layout.py [--sizes 1000 10000] [--corners 2]
                                                [--reps 1] [--baseline /path/to/old/checkout]
+                                               [--return-net vss]
 
 INVENTED BENCHMARK DATA. The netlist is the demo amplifier (netlists/demo, itself
 invented) with a synthetic "extracted" wiring added: each of six nets (n1, n2, tail, out,
 ibias and nz, the node between Rc and Cc) carries a dangling RC wire of N segments of
-2 ohm and 0.02 fF to vss. It is no layout's data; it only gives ngspice the size of one.
+2 ohm and 0.02 fF to vss (``--return-net vdd``: to vdd instead, a supply that is not
+tied to ground). It is no layout's data; it only gives ngspice the size of one.
 
 1. For each N: `tune` (map strategy, one worker, no step check, no report) on the first
    few corners of the demo job, today's way (the code at --baseline, run in its own
@@ -39,9 +41,9 @@ DEMO = REPO / "netlists" / "demo"
 NETS = ("n1", "n2", "tail", "out", "ibias", "nz")
 
 
-def wiring(segments: int, nets=NETS) -> str:
+def wiring(segments: int, nets=NETS, return_net: str = "vss") -> str:
     """Invented extracted wiring: an RC ladder of ``segments`` 2 Ω / 0.02 fF sections
-    hanging off each of ``nets`` (to vss), as netlist lines."""
+    hanging off each of ``nets`` (capacitors to ``return_net``), as netlist lines."""
     title = ("* INVENTED BENCHMARK DATA: synthetic extracted wiring "
              f"({segments} RC segments on each of {', '.join(nets)})")
     lines = [title]
@@ -50,17 +52,18 @@ def wiring(segments: int, nets=NETS) -> str:
         for k in range(1, segments + 1):
             node = f"w_{net}_{k}"
             lines.append(f"Rw_{net}_{k} {previous} {node} 2")
-            lines.append(f"Cw_{net}_{k} {node} vss 0.02f")
+            lines.append(f"Cw_{net}_{k} {node} {return_net} 0.02f")
             previous = node
     return "\n".join(lines) + "\n"
 
 
-def extracted_job(folder: Path, segments: int, corners: int, nets=NETS) -> Path:
+def extracted_job(folder: Path, segments: int, corners: int, nets=NETS,
+                  return_net: str = "vss") -> Path:
     """Write the demo job with the wired netlist into ``folder`` (its first ``corners``
-    corners only); the job file's path."""
+    corners only, the wire capacitors to ``return_net``); the job file's path."""
     folder.mkdir(parents=True, exist_ok=True)
     text = (DEMO / "two_stage.cir").read_text()
-    text = text.replace(".ends two_stage", wiring(segments, nets) + ".ends two_stage")
+    text = text.replace(".ends two_stage", wiring(segments, nets, return_net) + ".ends two_stage")
     (folder / "two_stage.cir").write_text(text)
     job = (DEMO / "job.toml").read_text()
     job = job.replace('models = "models.lib"', f'models = "{DEMO / "models.lib"}"')
@@ -153,14 +156,18 @@ def main() -> None:
     parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000])
     parser.add_argument("--corners", type=int, default=2)
     parser.add_argument("--reps", type=int, default=1, help="alternating repetitions")
+    parser.add_argument("--return-net", default="vss", choices=["vss", "vdd"],
+                        help="where the wire capacitors return (vss: tied to ground)")
     parser.add_argument("--baseline", type=Path, default=None,
                         help="checkout of today's code (default: skip the old way)")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="amploop-layout-") as tmp:
         folder = Path(tmp)
         reader(folder)
+        print(f"wire capacitors return to {args.return_net}", flush=True)
         for size in args.sizes:
-            job = extracted_job(folder / f"n{size}", size, args.corners)
+            job = extracted_job(folder / f"n{size}", size, args.corners,
+                                return_net=args.return_net)
             ways = {"new": REPO} | ({"today": args.baseline} if args.baseline else {})
             runs: dict[str, list[dict]] = {name: [] for name in ways}
             for rep in range(args.reps):  # alternating, so that the load hits both alike
